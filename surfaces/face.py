@@ -1,0 +1,384 @@
+"""Find the test face and rectify it into its own metric axes.
+
+The face is located in two passes:
+
+1. **Coarse**, on a copy of the photo warped into the marker plane at
+   ``COARSE_PX_PER_MM``: a texture-energy map (the granular fracture surface
+   is rougher at the 0.1-0.5 mm scale than plate, card, table and shadow),
+   with the reference card masked out and saturated (rusty) areas damped.
+   The best elongated component gives the face's centre, axis and rough size.
+2. **Fine**, on the face rectified at :data:`surfaces.model.WORK_PX_PER_MM`
+   with a margin: texture profiles across and along the face give its edges
+   to a fraction of a working pixel (half-way between the inside and outside
+   texture levels).  Medians over the face's length make the edges robust to
+   an untextured unfused band along part of the root.
+
+Every length here is in millimetres; pixels appear only when warping.
+"""
+
+from __future__ import annotations
+
+import math
+
+import cv2
+import numpy as np
+
+from .geometry import apply_h
+from .model import WORK_PX_PER_MM, Calibration, Face, FaceError
+
+COARSE_PX_PER_MM = 4.0
+#: Largest plane extent searched around the photo's footprint (mm).
+MAX_SEARCH_MM = 700.0
+
+
+# --------------------------------------------------------------------------
+# warping helpers
+
+
+def face_frame(centre_mm, axis_deg: float, origin_mm, *, px_per_mm: float) -> np.ndarray:
+    """Matrix mapping face-image pixels (col, row, 1) to plane mm (X, Y, 1).
+
+    ``origin_mm`` is the face-axes position (x, y) of the image's top-left
+    pixel edge; pixel centres sit at ``origin + (col + 0.5) / px_per_mm``.
+    """
+    a = math.radians(axis_deg)
+    ux = np.array([math.cos(a), math.sin(a)])  # along the weld, in the plane
+    uy = np.array([-math.sin(a), math.cos(a)])  # across
+    s = 1.0 / px_per_mm
+    ox, oy = origin_mm
+    c = np.asarray(centre_mm, dtype=np.float64)
+    # plane = c + ux * (ox + (col + .5) s) + uy * (oy + (row + .5) s)
+    t = c + ux * (ox + 0.5 * s) + uy * (oy + 0.5 * s)
+    return np.array([[ux[0] * s, uy[0] * s, t[0]], [ux[1] * s, uy[1] * s, t[1]], [0, 0, 1.0]])
+
+
+def warp_to_face(img: np.ndarray, H_px_to_mm: np.ndarray, A: np.ndarray, shape) -> np.ndarray:
+    """Sample ``img`` (photo pixels) on the face grid described by ``A``."""
+    M = np.linalg.inv(H_px_to_mm) @ A  # face px -> photo px
+    h, w = int(shape[0]), int(shape[1])
+    return cv2.warpPerspective(
+        img, M, (w, h), flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP, borderMode=cv2.BORDER_REPLICATE
+    )
+
+
+def _texture_energy(gray: np.ndarray, *, px_per_mm: float, fine_mm: float, window_mm: float) -> np.ndarray:
+    """Local RMS of the band-pass detail between ``fine_mm`` and the pixel scale."""
+    g = gray.astype(np.float32)
+    hp = g - cv2.GaussianBlur(g, (0, 0), max(fine_mm * px_per_mm, 0.6))
+    e = cv2.GaussianBlur(hp * hp, (0, 0), max(window_mm * px_per_mm, 0.8))
+    return np.sqrt(np.maximum(e, 0))
+
+
+# --------------------------------------------------------------------------
+# coarse search
+
+
+def _search_box(calib: Calibration, shape, roi_poly_px) -> tuple[np.ndarray, str]:
+    """Plane-mm polygon to search, and a description."""
+    h, w = shape[:2]
+    if roi_poly_px is not None:
+        return apply_h(calib.H, roi_poly_px), "roi"
+    corners = np.array([[0, 0], [w - 1, 0], [w - 1, h - 1], [0, h - 1]], dtype=np.float64)
+    return apply_h(calib.H, corners), "photo"
+
+
+def _card_exclusion(calib: Calibration) -> list[np.ndarray]:
+    """Plane polygons around each marker that are certainly card, not face."""
+    out = []
+    for m in calib.markers:
+        c = apply_h(calib.H, m.corners_px)
+        ctr = c.mean(axis=0)
+        out.append(ctr + (c - ctr) * 2.2)  # marker + quiet zone + card margin
+    return out
+
+
+def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly_px, test: str):
+    poly_mm, where = _search_box(calib, gray.shape, roi_poly_px)
+    lo = poly_mm.min(axis=0)
+    hi = poly_mm.max(axis=0)
+    if calib.markers:
+        mc = np.mean([apply_h(calib.H, m.corners_px).mean(axis=0) for m in calib.markers], axis=0)
+        lo = np.maximum(lo, mc - MAX_SEARCH_MM)
+        hi = np.minimum(hi, mc + MAX_SEARCH_MM)
+    if np.any(hi - lo < 5):
+        raise FaceError("the face region is too small or lies outside the photo: give --roi inside the photo")
+    s = COARSE_PX_PER_MM
+    W = int(math.ceil((hi[0] - lo[0]) * s))
+    Hh = int(math.ceil((hi[1] - lo[1]) * s))
+    # plane grid: col -> X = lo.x + (col + .5)/s
+    A = np.array([[1 / s, 0, lo[0] + 0.5 / s], [0, 1 / s, lo[1] + 0.5 / s], [0, 0, 1.0]])
+    # downscale the photo first so the warp does not alias the texture away
+    ppm = calib.px_per_mm_at(gray.shape[1] / 2, gray.shape[0] / 2)
+    target = 6.0  # px/mm kept for the texture measure
+    f = min(1.0, target / max(ppm, 1e-6))
+    if f < 0.95:
+        small = cv2.resize(gray, None, fx=f, fy=f, interpolation=cv2.INTER_AREA)
+        small_rgb = cv2.resize(rgb, None, fx=f, fy=f, interpolation=cv2.INTER_AREA)
+        Hs = calib.H @ np.diag([1 / f, 1 / f, 1.0])
+        # pixel-centre convention: x_full = (x_small + .5)/f - .5
+        Hs = calib.H @ np.array([[1 / f, 0, 0.5 / f - 0.5], [0, 1 / f, 0.5 / f - 0.5], [0, 0, 1]])
+    else:
+        small, small_rgb, Hs = gray, rgb, calib.H
+    energy_photo = _texture_energy(small, px_per_mm=ppm * f, fine_mm=0.25, window_mm=0.6)
+    valid_photo = np.ones(small.shape, np.uint8)
+    M = np.linalg.inv(Hs) @ A
+    warp = lambda im, interp=cv2.INTER_LINEAR: cv2.warpPerspective(  # noqa: E731
+        im, M, (W, Hh), flags=interp | cv2.WARP_INVERSE_MAP, borderMode=cv2.BORDER_CONSTANT, borderValue=0
+    )
+    energy = warp(energy_photo)
+    valid = warp(valid_photo, cv2.INTER_NEAREST) > 0
+    hsv = cv2.cvtColor(small_rgb, cv2.COLOR_RGB2HSV)
+    sat = warp(hsv[..., 1]).astype(np.float32)
+    val = warp(small).astype(np.float32)
+
+    # search polygon and card exclusion, in coarse plane pixels
+    to_px = lambda p: ((np.asarray(p) - lo) * s - 0.5).astype(np.int32)  # noqa: E731
+    allowed = np.zeros((Hh, W), np.uint8)
+    cv2.fillPoly(allowed, [to_px(poly_mm)], 1)
+    for ex in _card_exclusion(calib):
+        cv2.fillPoly(allowed, [to_px(ex)], 0)
+    allowed = (allowed > 0) & valid
+    # the white card around the marker: bright, flat, unsaturated, connected to the marker
+    if calib.markers:
+        bright = (val > np.percentile(val[valid], 90)) & (sat < 40)
+        n, lab = cv2.connectedComponents(bright.astype(np.uint8), connectivity=8)
+        for ex in _card_exclusion(calib):
+            c = to_px(ex).mean(axis=0).astype(int)
+            ring = np.zeros_like(bright, np.uint8)
+            cv2.polylines(ring, [to_px(ex)], True, 1, 3)
+            ids = np.unique(lab[(ring > 0) & bright])
+            for i in ids[ids > 0]:
+                allowed &= lab != i
+            del c
+    if allowed.sum() < 50:
+        raise FaceError("no room for a face beside the reference card: give --roi around the face")
+
+    e = energy.copy()
+    # rust and paint are coloured; fracture faces and bend coupons are grey metal
+    e *= np.clip(1.2 - sat / 120.0, 0.2, 1.0)
+    e[~allowed] = 0
+    vals = e[allowed]
+    thr = _otsu(vals)
+    cand = (e > thr) & allowed
+    k = max(1, int(round(0.8 * s)))
+    cand = cv2.morphologyEx(cand.astype(np.uint8), cv2.MORPH_CLOSE, np.ones((2 * k + 1, 2 * k + 1), np.uint8))
+    cand = cv2.morphologyEx(cand, cv2.MORPH_OPEN, np.ones((k + 1, k + 1), np.uint8))
+    n, lab, stats, cents = cv2.connectedComponentsWithStats(cand, connectivity=8)
+    best, best_score = None, -1.0
+    for i in range(1, n):
+        area_mm2 = stats[i, cv2.CC_STAT_AREA] / s**2
+        if area_mm2 < 15:
+            continue
+        ys, xs = np.nonzero(lab == i)
+        pts = np.c_[xs, ys].astype(np.float32)
+        (cx, cy), (rw, rh), ang = cv2.minAreaRect(pts)
+        L, Wd = max(rw, rh) / s, max(min(rw, rh), 1) / s
+        fill = area_mm2 / max(L * Wd, 1e-6)
+        contrast = float(np.median(e[lab == i])) / max(thr, 1e-6)
+        score = area_mm2 * min(fill, 1.0) ** 2 * min(contrast, 3.0)
+        if score > best_score:
+            best_score, best = score, (pts, fill, contrast)
+    if best is None:
+        raise FaceError(
+            "could not find the face automatically: give --roi X0,Y0,X1,Y1 (a rough box around the face in photo pixels)"
+        )
+    pts, fill, contrast = best
+    (cx, cy), (rw, rh), ang = cv2.minAreaRect(pts)
+    if rw < rh:
+        ang += 90.0
+        rw, rh = rh, rw
+    centre = lo + (np.array([cx, cy]) + 0.5) / s
+    return centre, float(ang), rw / s, rh / s, float(min(fill, 1.0)), where
+
+
+def _otsu(vals: np.ndarray) -> float:
+    v = vals[np.isfinite(vals)]
+    if v.size == 0:
+        return 0.0
+    top = float(np.percentile(v, 99.5)) or 1.0
+    q = np.clip(v / top * 255, 0, 255).astype(np.uint8)
+    t, _ = cv2.threshold(q.reshape(-1, 1), 0, 255, cv2.THRESH_BINARY + cv2.THRESH_OTSU)
+    return float(t) / 255 * top
+
+
+# --------------------------------------------------------------------------
+# fine edges
+
+
+def _edge_from_profile(profile: np.ndarray, inside: slice, outside_lo: slice, outside_hi: slice):
+    """Sub-pixel positions where ``profile`` crosses half-way inside/outside, each side."""
+    p = np.asarray(profile, dtype=np.float64)
+    inner = float(np.median(p[inside]))
+    out_l = float(np.median(p[outside_lo])) if p[outside_lo].size else inner * 0.3
+    out_h = float(np.median(p[outside_hi])) if p[outside_hi].size else inner * 0.3
+    c = (inside.start + inside.stop) // 2
+
+    def cross(level, rng):
+        prev = None
+        for i in rng:
+            if prev is not None and (p[prev] - level) * (p[i] - level) <= 0 and p[prev] != p[i]:
+                return prev + (level - p[prev]) / (p[i] - p[prev]) * (i - prev)
+            prev = i
+        return None
+
+    lvl_l = 0.5 * (inner + out_l)
+    lvl_h = 0.5 * (inner + out_h)
+    lo_edge = cross(lvl_l, range(c, -1, -1))
+    hi_edge = cross(lvl_h, range(c, len(p)))
+    contrast = min(inner - out_l, inner - out_h) / max(inner, 1e-6)
+    return lo_edge, hi_edge, contrast
+
+
+def find_face(
+    rgb: np.ndarray,
+    gray: np.ndarray,
+    calib: Calibration,
+    *,
+    roi: tuple[float, ...] | None = None,
+    test: str = "fillet-break",
+    px_per_mm: float = WORK_PX_PER_MM,
+) -> Face:
+    """Locate the face and rectify it.
+
+    Parameters
+    ----------
+    rgb, gray : (H, W, 3) and (H, W) uint8 ndarrays
+        The photo (after EXIF orientation).
+    calib : Calibration
+        Photo px -> plane mm.
+    roi : 4 or 8 numbers, optional
+        A rough box ``x0, y0, x1, y1`` or four corners ``x0, y0, ..., x3, y3``
+        in photo pixels; the face is searched within it.
+    test : str
+        Test type; kept for the face's warnings.
+    px_per_mm : float
+        Resolution of the rectified face image.
+
+    Returns
+    -------
+    Face
+        Rectified image with column = x along the weld (the face's longer
+        side), row = y across it.
+    """
+    roi_poly = _roi_polygon(roi, gray.shape) if roi is not None else None
+    warnings: list[str] = []
+    centre, axis, L, Wd, fill, where = _coarse_face(gray, rgb, calib, roi_poly, test)
+    method = "auto" if roi is None else ("roi-box" if len(roi) == 4 else "roi-corners")
+
+    # fine pass: rectify the face with a margin, find its edges from texture profiles
+    margin = max(3.0, 0.6 * Wd)
+    ox, oy = -L / 2 - margin, -Wd / 2 - margin
+    w = int(math.ceil((L + 2 * margin) * px_per_mm))
+    h = int(math.ceil((Wd + 2 * margin) * px_per_mm))
+    A = face_frame(centre, axis, (ox, oy), px_per_mm=px_per_mm)
+    g = warp_to_face(gray, calib.H, A, (h, w))
+    e = _texture_energy(g, px_per_mm=px_per_mm, fine_mm=0.12, window_mm=0.35)
+    mrow = int(margin * px_per_mm * 0.6)
+    core_c = slice(int(w * 0.5 - L * px_per_mm * 0.3), int(w * 0.5 + L * px_per_mm * 0.3) + 1)
+    prof_y = np.median(e[:, core_c], axis=1)
+    inside_y = slice(int(h / 2 - Wd * px_per_mm * 0.25), int(h / 2 + Wd * px_per_mm * 0.25) + 1)
+    y_lo, y_hi, c_y = _edge_from_profile(prof_y, inside_y, slice(0, mrow), slice(h - mrow, h))
+    if y_lo is None or y_hi is None:
+        y_lo, y_hi = margin * px_per_mm, (margin + Wd) * px_per_mm
+        warnings.append("face edges across the weld are unclear: width taken from the coarse outline")
+    band = slice(int(math.ceil(y_lo + 0.15 * (y_hi - y_lo))), int(y_hi - 0.15 * (y_hi - y_lo)) + 1)
+    prof_x = np.median(e[band, :], axis=0)
+    inside_x = slice(int(w / 2 - L * px_per_mm * 0.25), int(w / 2 + L * px_per_mm * 0.25) + 1)
+    mcol = int(margin * px_per_mm * 0.6)
+    x_lo, x_hi, c_x = _edge_from_profile(prof_x, inside_x, slice(0, mcol), slice(w - mcol, w))
+    if x_lo is None or x_hi is None:
+        x_lo, x_hi = margin * px_per_mm, (margin + L) * px_per_mm
+        warnings.append("face ends are unclear: length taken from the coarse outline")
+    # edges in face-centred mm (pixel centre i sits at o + (i + .5)/ppm)
+    fx0, fx1 = ox + (x_lo + 0.5) / px_per_mm, ox + (x_hi + 0.5) / px_per_mm
+    fy0, fy1 = oy + (y_lo + 0.5) / px_per_mm, oy + (y_hi + 0.5) / px_per_mm
+    length, width = fx1 - fx0, fy1 - fy0
+    if length <= 1 or width <= 0.5:
+        raise FaceError("the face found is too small to assess: give --roi around the face")
+    if width > length:
+        warnings.append("the face is wider than long: check the weld axis on the overlay")
+    conf = float(np.clip(min(c_x, c_y) * 1.5, 0.05, 1.0)) * (0.5 + 0.5 * fill)
+    if conf < 0.4:
+        warnings.append("the face outline is uncertain: check it on the overlay or give --roi")
+
+    # final rectified face, exactly the face rectangle
+    wf = int(round(length * px_per_mm))
+    hf = int(round(width * px_per_mm))
+    Af = face_frame(centre, axis, (fx0, fy0), px_per_mm=px_per_mm)
+    Af = _rescale_frame(Af, length / wf, width / hf, px_per_mm)
+    img = warp_to_face(rgb, calib.H, Af, (hf, wf))
+    mask = np.ones((hf, wf), bool)
+    corners_face = np.array([[-0.5, -0.5], [wf - 0.5, -0.5], [wf - 0.5, hf - 0.5], [-0.5, hf - 0.5]])
+    poly_px = apply_h(np.linalg.inv(calib.H) @ Af, corners_face)
+    if roi_poly is not None:
+        # keep the user's box honest: the face must lie within the photo
+        pass
+    Hp, Wp = gray.shape
+    if np.any(poly_px < -2) or np.any(poly_px[:, 0] > Wp + 1) or np.any(poly_px[:, 1] > Hp + 1):
+        warnings.append("part of the face lies outside the photo: retake with the whole face in frame")
+    return Face(
+        image=img,
+        mask=mask,
+        px_per_mm=px_per_mm,
+        A_face_to_plane=Af,
+        length_mm=float(length),
+        width_mm=float(width),
+        area_mm2=float(length * width),
+        polygon_px=poly_px,
+        method=method,
+        root_side="unknown",
+        confidence=conf,
+        warnings=tuple(warnings),
+    )
+
+
+def _rescale_frame(A: np.ndarray, sx_mm: float, sy_mm: float, px_per_mm: float) -> np.ndarray:
+    """Adjust the pixel pitch of a face frame so that an integer pixel grid spans the face exactly."""
+    B = A.copy()
+    # columns 0 and 1 carry the pitch; the translation was set for 1/px_per_mm
+    s = 1.0 / px_per_mm
+    ux = A[:2, 0] / s
+    uy = A[:2, 1] / s
+    t0 = A[:2, 2] - ux * 0.5 * s - uy * 0.5 * s  # top-left pixel edge
+    B[:2, 0] = ux * sx_mm
+    B[:2, 1] = uy * sy_mm
+    B[:2, 2] = t0 + ux * 0.5 * sx_mm + uy * 0.5 * sy_mm
+    return B
+
+
+def face_to_mm(face: Face, cols, rows) -> tuple[np.ndarray, np.ndarray]:
+    """Face-image pixel centres -> face-axes mm (x along, y across)."""
+    sx = face.length_mm / face.image.shape[1]
+    sy = face.width_mm / face.image.shape[0]
+    return (np.asarray(cols, float) + 0.5) * sx, (np.asarray(rows, float) + 0.5) * sy
+
+
+def face_to_photo(face: Face, calib: Calibration, pts_colrow: np.ndarray) -> np.ndarray:
+    """Face-image points (col, row) -> photo pixels (x, y)."""
+    return apply_h(np.linalg.inv(calib.H) @ face.A_face_to_plane, pts_colrow)
+
+
+def _roi_polygon(roi, shape) -> np.ndarray:
+    vals = [float(v) for v in roi]
+    if not all(math.isfinite(v) for v in vals):
+        raise FaceError("--roi must be finite numbers")
+    if len(vals) == 4:
+        x0, y0, x1, y1 = vals
+        if x1 <= x0 or y1 <= y0:
+            raise FaceError(f"--roi {x0:g},{y0:g},{x1:g},{y1:g}: need X0 < X1 and Y0 < Y1")
+        poly = np.array([[x0, y0], [x1, y0], [x1, y1], [x0, y1]])
+    elif len(vals) == 8:
+        poly = np.array(vals).reshape(4, 2)
+    else:
+        raise FaceError(f"--roi takes 4 numbers (box) or 8 (corners), not {len(vals)}")
+    h, w = shape[:2]
+    inside = (poly[:, 0] >= -1) & (poly[:, 0] <= w) & (poly[:, 1] >= -1) & (poly[:, 1] <= h)
+    if not inside.any():
+        raise FaceError(
+            f"--roi lies outside the photo ({w}x{h} px): give a box in the photo's pixel coordinates"
+        )
+    poly[:, 0] = np.clip(poly[:, 0], 0, w - 1)
+    poly[:, 1] = np.clip(poly[:, 1], 0, h - 1)
+    if cv2.contourArea(poly.astype(np.float32)) < 100:
+        raise FaceError("--roi is too small (under 100 px²): draw the box around the whole face")
+    return poly

@@ -1,0 +1,191 @@
+"""One assessment, stage by stage: photo -> calibration -> face -> segments -> table -> verdict.
+
+:func:`assess` returns a :class:`Result` carrying every stage's output and
+the assessment dictionary of the JSON contract (see DEVELOPERS.md).  The CLI,
+the page and the batch runner all call it.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from . import __version__
+from .calibrate import calibrate
+from .face import find_face
+from .limits import CAUTIONS, default_preset_for, judge, load_limit_set
+from .measure import TABLE_COLUMNS, measure
+from .model import TEST_TYPES, Calibration, Face, Photo, Settings, SurfacesError
+from .photo import load_photo
+from .segment import Detection, segment
+
+SCHEMA = "surfaces.assessment/1"
+
+
+@dataclass
+class Result:
+    photo: Photo
+    settings: Settings
+    calibration: Calibration
+    face: Face
+    detections: list[Detection]
+    table: pd.DataFrame
+    assessment: dict
+    timings: dict = field(default_factory=dict)
+
+
+def _check_settings(s: Settings) -> None:
+    if s.test not in TEST_TYPES:
+        raise SurfacesError(f"unknown test type {s.test!r}: choose one of {', '.join(TEST_TYPES)}")
+    if not (math.isfinite(s.min_size_mm) and 0 < s.min_size_mm <= 20):
+        raise SurfacesError(f"--min-size-mm {s.min_size_mm!r}: give a size between 0 and 20 mm")
+    for k, v in (s.nominal or {}).items():
+        if v is not None and not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
+            raise SurfacesError(f"nominal {k} = {v!r}: give a positive number of millimetres")
+
+
+def assess(photo: Photo, settings: Settings, *, progress: Callable[[str, float], None] | None = None) -> Result:
+    """Assess one photo with ``settings``; raises :class:`SurfacesError` on bad input."""
+    import time
+
+    _check_settings(settings)
+    say = progress or (lambda msg, frac: None)
+    t = {}
+    t0 = time.perf_counter()
+    say("calibrating scale from the reference mark", 0.1)
+    calib = calibrate(
+        photo,
+        marker_mm=settings.marker_mm,
+        px_per_mm=settings.px_per_mm,
+        ruler=settings.ruler,
+        face_hint_px=_roi_centre(settings.roi),
+    )
+    t["calibrate_s"] = time.perf_counter() - t0
+    say("finding the face", 0.35)
+    t1 = time.perf_counter()
+    face = find_face(photo.rgb, photo.gray, calib, roi=settings.roi, test=settings.test)
+    t["face_s"] = time.perf_counter() - t1
+    centre = face.polygon_px.mean(axis=0)
+    ppm_photo = calib.px_per_mm_at(float(centre[0]), float(centre[1]))
+    say("finding imperfections", 0.55)
+    t2 = time.perf_counter()
+    length_factor = None
+    if settings.test == "bend":
+        from . import bend
+
+        dets, face, length_factor, bend_notes = bend.detect(face, settings, photo_px_per_mm=ppm_photo)
+    else:
+        dets = segment(face.image, face.mask, px_per_mm=face.px_per_mm, min_size_mm=settings.min_size_mm, test=settings.test)
+        bend_notes = []
+    t["segment_s"] = time.perf_counter() - t2
+    say("measuring", 0.8)
+    t3 = time.perf_counter()
+    table = measure(dets, face, calib, photo_px_per_mm=ppm_photo, length_factor=length_factor)
+    t["measure_s"] = time.perf_counter() - t3
+    limit_set = load_limit_set(settings.limits or default_preset_for(settings.test))
+    assessment = build_assessment(photo, settings, calib, face, table, ppm_photo, limit_set, extra_warnings=bend_notes)
+    t["total_s"] = time.perf_counter() - t0
+    say("done", 1.0)
+    return Result(photo, settings, calib, face, dets, table, assessment, t)
+
+
+def assess_path(path: str | Path, settings: Settings, **kw) -> Result:
+    return assess(load_photo(path), settings, **kw)
+
+
+def _roi_centre(roi):
+    if not roi:
+        return None
+    a = np.asarray(roi, dtype=float).reshape(-1, 2)
+    return tuple(float(v) for v in a.mean(axis=0))
+
+
+def _jsonable(v):
+    if isinstance(v, (np.floating, float)):
+        f = float(v)
+        return None if not math.isfinite(f) else round(f, 4)
+    if isinstance(v, (np.integer,)):
+        return int(v)
+    if isinstance(v, np.bool_):
+        return bool(v)
+    if isinstance(v, np.ndarray):
+        return [_jsonable(x) for x in v.tolist()]
+    if isinstance(v, (list, tuple)):
+        return [_jsonable(x) for x in v]
+    if isinstance(v, dict):
+        return {k: _jsonable(x) for k, x in v.items()}
+    return v
+
+
+def table_records(table: pd.DataFrame) -> list[dict]:
+    return [_jsonable({c: row[c] for c in TABLE_COLUMNS if c in row}) for row in table.to_dict("records")]
+
+
+def records_table(records: list[dict]) -> pd.DataFrame:
+    """Imperfection records (JSON) back to a table; missing columns filled."""
+    df = pd.DataFrame(records)
+    for c in TABLE_COLUMNS:
+        if c not in df.columns:
+            df[c] = np.nan if c.endswith(("_mm", "_mm2")) else None
+    df = df[list(TABLE_COLUMNS) + [c for c in df.columns if c not in TABLE_COLUMNS]]
+    for c in df.columns:
+        if c.endswith(("_mm", "_mm2")) or c == "confidence":
+            df[c] = pd.to_numeric(df[c], errors="coerce")
+    return df
+
+
+def build_assessment(photo, settings, calib, face, table, ppm_photo, limit_set, *, extra_warnings=()) -> dict:
+    verdict = judge(
+        table[table["status"] != "dismissed"] if len(table) else table,
+        face={"length_mm": face.length_mm, "width_mm": face.width_mm, "area_mm2": face.area_mm2},
+        nominal=dict(settings.nominal or {}),
+        limit_set=limit_set,
+        test=settings.test,
+    )
+    warnings = list(calib.warnings) + list(face.warnings) + list(extra_warnings)
+    return _jsonable(
+        {
+            "schema": SCHEMA,
+            "tool": {"name": "surfaces", "version": __version__},
+            "photo": {"name": photo.name, "sha256": photo.sha256, "width": photo.width, "height": photo.height},
+            "test": settings.test,
+            "settings": asdict(settings),
+            "nominal": dict(settings.nominal or {}),
+            "calibration": {
+                "method": calib.method,
+                "px_per_mm": ppm_photo,
+                "uncertainty_pct": calib.uncertainty_pct,
+                "tilt_deg": calib.tilt_deg,
+                "marker_mm": calib.marker_mm,
+                "markers": [
+                    {"id": m.marker_id, "corners_px": m.corners_px, "side_px": m.side_px, "module_px": m.module_px}
+                    for m in calib.markers
+                ],
+                "consistency_pct": calib.consistency_pct,
+                "H_px_to_mm": calib.H,
+                "warnings": list(calib.warnings),
+            },
+            "face": {
+                "length_mm": face.length_mm,
+                "width_mm": face.width_mm,
+                "area_mm2": face.area_mm2,
+                "polygon_px": face.polygon_px,
+                "method": face.method,
+                "root_side": face.root_side,
+                "confidence": face.confidence,
+                "px_per_mm": face.px_per_mm,
+                "A_face_to_plane": face.A_face_to_plane,
+                "warnings": list(face.warnings),
+            },
+            "imperfections": table_records(table),
+            "limits": limit_set.summary() if hasattr(limit_set, "summary") else {"name": limit_set.name},
+            "verdict": verdict.to_dict(),
+            "warnings": warnings,
+            "cautions": list(CAUTIONS),
+        }
+    )
