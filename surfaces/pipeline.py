@@ -68,7 +68,12 @@ def assess(photo: Photo, settings: Settings, *, progress: Callable[[str, float],
     t["calibrate_s"] = time.perf_counter() - t0
     say("finding the face", 0.35)
     t1 = time.perf_counter()
-    face = find_face(photo.rgb, photo.gray, calib, roi=settings.roi, test=settings.test)
+    if settings.test == "bend":
+        from . import bend
+
+        face = bend.find_coupon(photo.rgb, photo.gray, calib, roi=settings.roi)
+    else:
+        face = find_face(photo.rgb, photo.gray, calib, roi=settings.roi, test=settings.test)
     t["face_s"] = time.perf_counter() - t1
     centre = face.polygon_px.mean(axis=0)
     ppm_photo = calib.px_per_mm_at(float(centre[0]), float(centre[1]))
@@ -76,8 +81,6 @@ def assess(photo: Photo, settings: Settings, *, progress: Callable[[str, float],
     t2 = time.perf_counter()
     length_factor = None
     if settings.test == "bend":
-        from . import bend
-
         dets, face, length_factor, bend_notes = bend.detect(face, settings, photo_px_per_mm=ppm_photo)
     else:
         dets = segment(face.image, face.mask, px_per_mm=face.px_per_mm, min_size_mm=settings.min_size_mm, test=settings.test)

@@ -170,7 +170,13 @@ def _trace_dark(i, sl, lab, gs, bg, resid, ridge_mask, tex, mask, *, mm, sig, te
     R0, R1, C0, C1 = max(0, r0 - pad), min(h, r1 + pad), max(0, c0 - pad), min(w, c1 + pad)
     seed = lab[R0:R1, C0:C1] == i
     patch = gs[R0:R1, C0:C1]
-    b = float(np.median(bg[R0:R1, C0:C1][seed]))
+    # local background: a ring just outside the candidate, other candidates left out
+    rw = max(2, int(round(0.3 * mm)))
+    grown = ndi.binary_dilation(seed, iterations=rw)
+    ring = grown & ~ndi.binary_dilation(seed, iterations=1) & (lab[R0:R1, C0:C1] == 0)
+    ring &= mask[R0:R1, C0:C1]
+    b_map = float(np.median(bg[R0:R1, C0:C1][seed]))
+    b = float(np.median(patch[ring])) if ring.sum() >= 8 else b_map
     core = float(np.percentile(patch[seed], 5))
     contrast = b - core
     thin_seed = ridge_mask[R0:R1, C0:C1] & seed
