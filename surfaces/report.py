@@ -884,13 +884,35 @@ def coupon_pdf(
     lim = assessment.get("limits") or {}
     _heading(pdf, "Limit set")
     pairs = [("Name", lim.get("name")), ("Title", lim.get("title")), ("Version", lim.get("version")),
-             ("Source", lim.get("source")), ("Edition", lim.get("edition") or lim.get("edition_note"))]
-    _kv(pdf, pairs)
-    notes = lim.get("confidence_notes") or lim.get("notes") or lim.get("confidence")
+             ("Source", lim.get("source")), ("Clause", lim.get("clause")),
+             ("Edition", lim.get("edition") or lim.get("edition_note")), ("Note", lim.get("note")),
+             ("Read from", lim.get("origin"))]
+    _kv(pdf, [(k, v) for k, v in pairs if v not in (None, "")] or [("Name", None)])
+    rules = lim.get("rules") or []
+    if rules:
+        pdf.set_font("helvetica", size=7.5)
+        with pdf.table(col_widths=(26, 22, 26, 46, 26, 18, 18), line_height=4.0, padding=0.6, text_align="LEFT",
+                       headings_style=pdf.head_style, cell_fill_color=(238, 238, 238),
+                       cell_fill_mode="ROWS") as table:
+            hr = table.row()
+            for h in ("rule", "check", "kinds", "limit", "clause", "confidence", "outcome"):
+                hr.cell(h)
+            for r in rules:
+                tr = table.row()
+                kinds = r.get("kinds")
+                for v in (r.get("id"), r.get("check"), ", ".join(kinds) if isinstance(kinds, list) else kinds,
+                          r.get("limit"), r.get("clause"), r.get("confidence"), r.get("outcome")):
+                    tr.cell(_pdf_text("" if v is None else v))
+        pdf.set_font("helvetica", "I", 7)
+        pdf.multi_cell(
+            0, 3.4,
+            "Confidence: 'found' = taken from a public copy of the standard; 'memory' = recalled, not checked "
+            "against a published copy; 'user'/'added' = set by the user. Check every value against the "
+            "edition in force.", new_x="LMARGIN", new_y="NEXT",
+        )
+    notes = lim.get("confidence_notes")
     if notes:
-        if isinstance(notes, dict):
-            notes = [f"{k}: {v}" for k, v in notes.items()]
-        elif isinstance(notes, str):
+        if isinstance(notes, str):
             notes = [notes]
         pdf.set_font("helvetica", "B", 9)
         pdf.cell(0, 4.6, "Confidence of the values", new_x="LMARGIN", new_y="NEXT")
