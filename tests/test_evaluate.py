@@ -1,0 +1,195 @@
+"""Matching detections to truth, on hand-made truth/assessment pairs.
+
+Expected values are worked out by hand from analytic geometry (distances in
+the plane, a homography applied to known points); limit values come from
+../shared/REFERENCES.md.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from surfaces import evaluate as ev
+from surfaces.geometry import apply_h
+
+# plane mm -> photo px at 10 px/mm, origin shifted by (100, 50) px
+H_SCALE = [[10.0, 0.0, 100.0], [0.0, 10.0, 50.0], [0.0, 0.0, 1.0]]
+
+
+def _truth(imps, H=H_SCALE, **face):
+    f = {"polygon_mm": [[0, 0], [100, 0], [100, 10], [0, 10]], "length_mm": 100.0, "width_mm": 10.0,
+         "area_mm2": 1000.0}
+    f.update(face)
+    return {"schema": "surfaces.truth/1", "H_plane_to_photo": H, "px_per_mm_face": 10.0, "face": f,
+            "imperfections": imps}
+
+
+def _t(kind, x, y, g, **kw):
+    d = {"kind": kind, "centroid_mm": [x, y], "greatest_mm": g, "width_mm": kw.pop("w", g),
+         "along_mm": kw.pop("along", g), "across_mm": kw.pop("across", g), "area_mm2": kw.pop("area", g * g)}
+    d.update(kw)
+    return d
+
+
+def _d(i, kind, x_mm, y_mm, g, H=H_SCALE, **kw):
+    """A detection whose centroid is the plane point (x_mm, y_mm) seen through H."""
+    px = apply_h(np.asarray(H, float), [[x_mm, y_mm]])[0]
+    d = {"id": i, "kind": kind, "centroid_px": [float(px[0]), float(px[1])], "greatest_mm": g,
+         "width_mm": g, "along_mm": kw.pop("along", g), "area_mm2": g * g, "confidence": 0.9, "status": "auto"}
+    d.update(kw)
+    return d
+
+
+def test_exact_match_distance_is_analytic():
+    # analytic geometry: (10.3, 5) vs (10, 5) is 0.3 mm apart in the plane
+    m = ev.match({"imperfections": [_d(1, "pore", 10.3, 5.0, 1.1)]}, _truth([_t("pore", 10, 5, 1.0)]))
+    assert len(m) == 1
+    r = m.iloc[0]
+    assert r["matched"] and r["same_kind"] and r["det_id"] == 1
+    assert r["dist_mm"] == pytest.approx(0.3, abs=1e-9)
+    assert r["greatest_err_mm"] == pytest.approx(0.1, abs=1e-12)
+    # 0.1 mm error on a 1 mm pore is within max(0.15 mm, 5 %)
+    assert r["greatest_ok"]
+
+
+def test_tolerance_is_max_of_1mm_and_half_greatest():
+    big = _truth([_t("inclusion", 50, 5, 4.0)])  # tolerance 2 mm
+    assert ev.match({"imperfections": [_d(1, "inclusion", 51.9, 5, 4)]}, big).iloc[0]["matched"]
+    assert not ev.match({"imperfections": [_d(1, "inclusion", 52.1, 5, 4)]}, big).iloc[0]["matched"]
+    small = _truth([_t("pore", 50, 5, 0.4)])  # tolerance 1 mm (not 0.2)
+    assert ev.match({"imperfections": [_d(1, "pore", 50.9, 5, 0.4)]}, small).iloc[0]["matched"]
+    m = ev.match({"imperfections": [_d(1, "pore", 51.1, 5, 0.4)]}, small)
+    # a miss gives a truth row and a false-detection row
+    assert list(m["truth_index"]) == [0, -1] and list(m["det_id"]) == [-1, 1]
+    assert not m["matched"].any()
+
+
+def test_perspective_homography_maps_back_to_the_plane():
+    # analytic geometry: a strongly tilted camera; detections placed by H on
+    # the same plane points must come back to them through inv(H)
+    H = np.array([[9.0, 1.2, 300.0], [-0.8, 11.0, 200.0], [0.0009, 0.0012, 1.0]])
+    truth = _truth([_t("pore", 20, 8, 1.0), _t("pore", 80, 3, 1.0)], H=H.tolist())
+    ass = {"imperfections": [_d(7, "pore", 80.2, 3.0, 1.0, H=H), _d(3, "pore", 20.0, 7.5, 1.0, H=H)]}
+    m = ev.match(ass, truth)
+    got = dict(zip(m["truth_index"], m["det_id"]))
+    assert got == {0: 3, 1: 7}
+    d = dict(zip(m["truth_index"], m["dist_mm"]))
+    assert d[0] == pytest.approx(0.5, abs=1e-9) and d[1] == pytest.approx(0.2, abs=1e-9)
+
+
+def test_one_to_one_greedy_by_distance_not_by_order():
+    # truth A at x=10, B at x=11.5; detection d1 at 10.9 (0.9 from A, 0.6 from B),
+    # d2 at 9.5 (0.5 from A).  Sorted pairs: A-d2 0.5, B-d1 0.6, A-d1 0.9 -> A-d2, B-d1.
+    truth = _truth([_t("pore", 10, 5, 0.8), _t("pore", 11.5, 5, 0.8)])
+    ass = {"imperfections": [_d(1, "pore", 10.9, 5, 0.8), _d(2, "pore", 9.5, 5, 0.8)]}
+    m = ev.match(ass, truth)
+    assert dict(zip(m["truth_index"], m["det_id"])) == {0: 2, 1: 1}
+    # one detection between two truths: only the nearer one is matched
+    m = ev.match({"imperfections": [_d(1, "pore", 10.9, 5, 0.8)]}, truth)
+    assert m.set_index("truth_index").loc[1, "det_id"] == 1
+    assert m.set_index("truth_index").loc[0, "det_id"] == -1
+    # two detections on one truth: the farther one is a false detection
+    m = ev.match({"imperfections": [_d(1, "pore", 10.1, 5, 0.8), _d(2, "pore", 10.4, 5, 0.8)]},
+                 _truth([_t("pore", 10, 5, 0.8)]))
+    assert m.loc[m["truth_index"] == 0, "det_id"].item() == 1
+    assert m.loc[m["truth_index"] == -1, "det_id"].item() == 2
+
+
+def test_dismissed_rows_are_not_scored():
+    ass = {"imperfections": [_d(1, "pore", 10, 5, 1.0, status="dismissed"), _d(2, "pore", 40, 5, 1.0)]}
+    m = ev.match(ass, _truth([_t("pore", 10, 5, 1.0)]))
+    assert list(m["det_id"]) == [-1, 2]
+
+
+def test_empty_inputs_keep_columns():
+    m = ev.match({"imperfections": []}, _truth([]))
+    assert list(m.columns) == list(ev.MATCH_COLUMNS) and len(m) == 0
+    s = ev.scores(m)
+    assert s["n_truth"] == 0 and s["greatest"]["frac_within"] is None
+
+
+def test_bad_truth_is_a_clear_error():
+    with pytest.raises(ev.TruthError, match="H_plane_to_photo"):
+        ev.match({"imperfections": []}, {"imperfections": []})
+    with pytest.raises(ev.TruthError, match="invertible"):
+        ev.match({"imperfections": []}, _truth([], H=[[0, 0, 0], [0, 0, 0], [0, 0, 0]]))
+
+
+def test_scores_hand_counted():
+    # truth: 3 pores (0.6, 1.5, 3.0 mm), 1 inclusion 2 mm, 1 unfused band 20 mm long
+    truth = _truth([
+        _t("pore", 10, 5, 0.6), _t("pore", 20, 5, 1.5), _t("pore", 30, 5, 3.0),
+        _t("inclusion", 40, 5, 2.0), _t("unfused", 70, 1, 20.0, along=20.0, across=2.0),
+    ])  # fmt: skip
+    ass = {"imperfections": [
+        _d(1, "pore", 10.1, 5, 0.70),        # pore found, err +0.10 (ok: tol 0.15)
+        _d(2, "inclusion", 20.0, 5.2, 1.8),  # pore found as inclusion, err +0.30 (not ok: tol 0.15)
+        # pore at 30 missed
+        _d(3, "inclusion", 40, 5, 2.05),     # inclusion found, err +0.05 (ok)
+        _d(4, "unfused", 71, 1, 18.0, along=18.0),  # unfused found, length err 10 %
+        _d(5, "pore", 90, 5, 0.8),           # false pore
+    ]}  # fmt: skip
+    m = ev.match(ass, truth)
+    s = ev.scores(m, min_mm={"pore": 0.5})
+    p = s["kinds"]["pore"]["all"]
+    assert (p["n_truth"], p["found"], p["found_any"]) == (3, 1, 2)
+    assert p["recall"] == pytest.approx(1 / 3) and p["recall_any_kind"] == pytest.approx(2 / 3)
+    assert (p["n_detected"], p["correct"]) == (2, 1) and p["precision"] == pytest.approx(0.5)
+    inc = s["kinds"]["inclusion"]["all"]
+    assert inc["recall"] == 1.0 and inc["precision"] == pytest.approx(0.5)  # one of two is a pore
+    assert inc["precision_any_kind"] == 1.0
+    assert s["kinds"]["pore"]["buckets"]["2-4"]["n_truth"] == 1
+    assert s["kinds"]["pore"]["buckets"]["2-4"]["found"] == 0
+    assert s["kinds"]["pore"]["at_least"]["n_truth"] == 3
+    g = s["greatest"]
+    assert g["n"] == 4
+    # abs errors 0.10, 0.30, 0.05, 2.0 -> median 0.2; within: 0.10 (1 mm: tol 0.15), 0.05 -> 2 of 4
+    assert g["median_abs_err_mm"] == pytest.approx(0.2)
+    assert g["frac_within"] == pytest.approx(0.5)
+    assert s["unfused_length"]["median_rel_err"] == pytest.approx(0.1)
+    assert s["false_detections"] == 1 and s["missed"] == 1
+
+
+def test_greatest_tolerance_edges():
+    # max(0.15 mm, 5 %): 0.15 mm up to 3 mm, then 5 % of the true size
+    assert ev.greatest_tolerance_mm(1.0) == pytest.approx(0.15)
+    assert ev.greatest_tolerance_mm(3.0) == pytest.approx(0.15)
+    assert ev.greatest_tolerance_mm(10.0) == pytest.approx(0.5)
+
+
+def test_photo_scores_percent_errors():
+    truth = _truth([])
+    ass = {"calibration": {"px_per_mm": 10.05}, "face": {"area_mm2": 960.0, "length_mm": 99.0}}
+    s = ev.photo_scores(ass, truth)
+    assert s["px_per_mm_err_pct"] == pytest.approx(0.5)
+    assert s["face_area_err_pct"] == pytest.approx(-4.0)
+    assert s["face_length_err_pct"] == pytest.approx(-1.0)
+
+
+def test_truth_table_face_axes_and_verdict():
+    # face rotated 30 degrees in the plane, origin at (5, 7): a pore at face (x, y) = (40, 4)
+    a = math.radians(30)
+    ux, uy = np.array([math.cos(a), math.sin(a)]), np.array([-math.sin(a), math.cos(a)])
+    o = np.array([5.0, 7.0])
+    poly = [o, o + 100 * ux, o + 100 * ux + 10 * uy, o + 10 * uy]
+    c = o + 40 * ux + 4 * uy
+    truth = _truth([_t("pore", *c, 3.0, starts_at_edge=False)])
+    truth["face"] = {"polygon_mm": [list(p) for p in poly], "length_mm": 100.0, "width_mm": 10.0,
+                     "area_mm2": 1000.0}
+    tab = ev.truth_table(truth)
+    r = tab.iloc[0]
+    assert r["cx_mm"] == pytest.approx(40.0) and r["cy_mm"] == pytest.approx(4.0)
+    assert r["x0_mm"] == pytest.approx(38.5) and r["y1_mm"] == pytest.approx(5.5)
+    assert r["greatest_u_mm"] == 0.0 and r["status"] == "confirmed"
+    from surfaces.limits import load_limit_set
+
+    ls = load_limit_set("aws-d1.1-fillet-break")
+    # REFERENCES.md, AWS D1.1 fillet break: no pore or inclusion over 3/32 in (2.38 mm)
+    assert ev.truth_verdict(truth, limit_set=ls, test="fillet-break")["result"] == "reject"
+    truth["imperfections"][0]["greatest_mm"] = 2.0
+    assert ev.truth_verdict(truth, limit_set=ls, test="fillet-break")["result"] == "accept"
+    truth["imperfections"] = []
+    assert ev.truth_verdict(truth, limit_set=ls, test="fillet-break")["result"] == "accept"
