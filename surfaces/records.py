@@ -358,7 +358,7 @@ class Store:
 
     # -- assessments -------------------------------------------------------
     def save_assessment(self, assessment: dict, photo_bytes: bytes, *, coupon: dict | None = None,
-                        actor: str) -> int:
+                        actor: str, settings_key: str | None = None) -> int:
         """Store an automatic assessment with a verified copy of its photo.
 
         Parameters
@@ -373,6 +373,10 @@ class Store:
             transaction.
         actor : str
             Who or what saved it (user name, ``batch``...).
+        settings_key : str, optional
+            :meth:`surfaces.model.Settings.key` of the settings used (what
+            :meth:`find_done` matches); default computed from
+            ``assessment["settings"]`` the same way.
 
         Returns
         -------
@@ -409,7 +413,7 @@ class Store:
                 (
                     coupon_id, sha, a["photo"].get("name"), rel, _now(), actor,
                     (a.get("tool") or {}).get("version"), a.get("test"), _dumps(settings),
-                    _settings_key(settings), _dumps(a.get("calibration")), _dumps(a.get("limits")), snapshot,
+                    settings_key or _settings_key(settings), _dumps(a.get("calibration")), _dumps(a.get("limits")), snapshot,
                     _dumps(a.get("imperfections") or []), _dumps(verdict), _dumps(verdict), _dumps(a), result,
                 ),
             )
