@@ -20,7 +20,6 @@ photo's coupon id is its file name without suffix.
 from __future__ import annotations
 
 import csv
-import hashlib
 import io
 import math
 import os
@@ -37,7 +36,7 @@ import pandas as pd
 
 from .atomic import OutputExistsError, write_bytes_atomic, write_text_atomic
 from .model import Settings, SurfacesError
-from .records import Store
+from .records import Store, sha256_file
 
 __all__ = [
     "IMAGE_SUFFIXES",
@@ -274,14 +273,6 @@ def _job_settings(settings: Settings, coupon: dict) -> Settings:
     return replace(settings, nominal=nominal) if nominal != dict(settings.nominal or {}) else settings
 
 
-def _sha256_file(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
-
-
 def _summary_row(job: _Job) -> dict:
     return {"photo": job.path.name, "coupon_id": job.coupon.get("id"), "welder": job.coupon.get("welder"),
             "status": None, "result": None, "first_reason": "", "n_imperfections": None,
@@ -392,7 +383,7 @@ def run_batch(
         for j in jobs:
             j.row = _summary_row(j)
             try:
-                j.sha256 = _sha256_file(j.path)
+                j.sha256 = sha256_file(j.path)
             except OSError as err:
                 j.row.update(status="error", error=f"cannot read {j.path} ({err.strerror}); check the file")
                 finish(j)

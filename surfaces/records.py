@@ -327,13 +327,13 @@ class Store:
     def _store_photo(self, data: bytes, sha: str, suffix: str) -> str:
         rel = self._photo_rel(sha, suffix)
         dest = self.photo_dir / rel
-        if dest.exists() and _sha256_file(dest) == sha:
+        if dest.exists() and sha256_file(dest) == sha:
             return rel
         dest.parent.mkdir(parents=True, exist_ok=True)
         # A copy with the wrong content (damaged disk, killed writer on a
         # file system without atomic rename) is replaced by the verified bytes.
         write_bytes_atomic(dest, data, force=dest.exists())
-        if _sha256_file(dest) != sha:
+        if sha256_file(dest) != sha:
             raise StoreError(f"the photo copy {dest} does not match its SHA-256 after writing; check the disk")
         return rel
 
@@ -625,7 +625,7 @@ class Store:
             p = self.photo_dir / r["photo_file"]
             if not p.exists():
                 problems.append(f"assessment {r['id']}: photo copy {p} is missing")
-            elif _sha256_file(p) != r["photo_sha256"]:
+            elif sha256_file(p) != r["photo_sha256"]:
                 problems.append(f"assessment {r['id']}: photo copy {p} does not match its SHA-256")
         return problems
 
@@ -658,7 +658,8 @@ def _split_sql(script: str) -> list[str]:
     return out
 
 
-def _sha256_file(path: Path) -> str:
+def sha256_file(path: Path) -> str:
+    """SHA-256 (hex) of a file, read in 1 MiB chunks."""
     h = hashlib.sha256()
     with open(path, "rb") as fh:
         for chunk in iter(lambda: fh.read(1 << 20), b""):
