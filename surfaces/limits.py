@@ -67,7 +67,6 @@ import json
 import math
 import os
 import re
-import tempfile
 import tomllib
 from dataclasses import dataclass, field, replace
 from fractions import Fraction
@@ -76,6 +75,7 @@ from typing import Any, Iterable
 
 import pandas as pd
 
+from .atomic import write_text_atomic
 from .model import KINDS, TEST_TYPES, SurfacesError
 
 __all__ = [
@@ -356,6 +356,10 @@ class LimitSet:
     def applies_to(self, test: str) -> bool:
         return test in self.tests
 
+    def summary(self) -> dict:
+        """The ``limits`` object of the assessment JSON (see :func:`limits_summary`)."""
+        return limits_summary(self)
+
 
 @dataclass(frozen=True)
 class Verdict:
@@ -543,7 +547,7 @@ class _Parser:
                                  f"e.g. {example}")
         if not isinstance(value, str):
             raise self.err(path, f"{label} must be text with a unit, e.g. {example}")
-        m = re.fullmatch(r"\s*(.*?)\s*([A-Za-z%]+)?\s*", value)
+        m = re.fullmatch(r"\s*(.*?)\s*([A-Za-z%][A-Za-z0-9%]*)?\s*", value)
         num_text, unit = m.group(1), m.group(2)
         if unit is None:
             raise self.err(path, f"{label}: missing unit in {value!r}; write e.g. {example}")
@@ -892,31 +896,12 @@ def _renamed_text(text: str, new_name: str, old: LimitSet) -> str | None:
 
 
 def _atomic_write(path: Path, text: str, *, force: bool) -> Path:
-    if path.exists() and not force:
-        raise LimitsError(f"{path} already exists: choose another name or use --force to replace it")
+    """Write via :mod:`surfaces.atomic`, creating the user folder when needed."""
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     except OSError as exc:
-        raise LimitsError(f"cannot write in {path.parent} ({exc.strerror}): choose another folder") from None
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        if force:
-            os.replace(tmp, path)
-        else:
-            try:
-                os.link(tmp, path)  # atomic and never replaces a file made meanwhile
-            except FileExistsError:
-                raise LimitsError(f"{path} already exists: choose another name or use --force") from None
-            except OSError:
-                os.replace(tmp, path)
-    finally:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-    return path
+        raise LimitsError(f"cannot create folder {path.parent} ({exc.strerror}): choose another folder") from None
+    return write_text_atomic(path, text, force=force)
 
 
 def save_user_set(limit_set: LimitSet, name: str, *, folder: Path | None = None,
@@ -1256,12 +1241,15 @@ def _eval_max_size(rule, possible, sure, why, ctx, out):
         out.items.append(it.id)
 
 
-def _sum(items: list[_Item], measure: str, clip: float | None = None):
+def _sum(items: list[_Item], measure: str, clip: float | None = None,
+         weights: dict | None = None):
+    """(sum, expanded U by root-sum-square, all uncertainties known)."""
     vals, us, known = [], [], True
     for it in items:
         v, U, k = it.value(measure)
-        vals.append(min(v, clip) if clip is not None else v)
-        us.append(U)
+        w = 1.0 if weights is None else weights[it.id]
+        vals.append(w * (min(v, clip) if clip is not None else v))
+        us.append(w * U)
         known &= k
     return math.fsum(vals), math.sqrt(math.fsum(u * u for u in us)), known
 
@@ -1293,16 +1281,33 @@ def _decide_upper(rule, out, *, lo, lo_known, hi, limit, text_fail, text_review,
         out.add("review", f"{rule.id}: the result rests on values{text_unknown}")
 
 
-def _windows(items: list[_Item], L: float) -> list[tuple[float, list[_Item]]]:
+def _windows(items: list[_Item], L: float, measure: str) -> list[tuple[float, list[_Item], dict]]:
+    """Every window ``[s, s + L]`` along the weld where the sum can peak.
+
+    Lengths along the weld (``along``) count with the part inside the window;
+    other measures count whole when the imperfection reaches into the window
+    (the stricter reading).  Both are piecewise linear in ``s``, so the
+    maximum is at a window edge meeting an imperfection's end.
+    """
     spans = []
     for it in items:
         x0, x1 = _num(it.row.get("x0_mm")), _num(it.row.get("x1_mm"))
-        spans.append((x0, x1, it))
-    if any(not (math.isfinite(a) and math.isfinite(b)) for a, b, _ in spans):
-        return []
+        if not (math.isfinite(x0) and math.isfinite(x1)):
+            return []
+        spans.append((min(x0, x1), max(x0, x1), it))
+    starts = sorted({v for a, b, _ in spans for v in (a, b, a - L, b - L)})
     out = []
-    for s in sorted({b for _, b, _ in spans}):
-        out.append((s, [it for a, b, it in spans if b >= s and a <= s + L]))
+    for s in starts:
+        inside, weights = [], {}
+        for a, b, it in spans:
+            if b < s or a > s + L:
+                continue
+            if measure == "along" and b > a:
+                weights[it.id] = max(0.0, min(b, s + L) - max(a, s)) / (b - a)
+            else:
+                weights[it.id] = 1.0
+            inside.append(it)
+        out.append((s, inside, weights))
     return out
 
 
@@ -1337,20 +1342,24 @@ def _eval_max_sum(rule, possible, sure, why, ctx, out, *, band=False):
     if nan:
         out.add("review", f"{rule.id}: {_items_label(nan)}: {col} unknown: measure it")
         return
-    groups = [(None, possible, sure)]
     if rule.window is not None:
         L = rule.window.mm
-        wp, ws = _windows(possible, L), _windows(sure, L)
+        wp, ws = _windows(possible, L, measure), _windows(sure, L, measure)
         if not wp:
             out.add("review", f"{rule.id}: the window sum needs x0_mm and x1_mm of each imperfection")
             return
-        best_p = max(wp, key=lambda w: sum(_sum(w[1], measure, clip)[:2]))
-        best_s = max(ws, key=lambda w: _sum(w[1], measure, clip)[0] - _sum(w[1], measure, clip)[1],
-                     default=(None, []))
-        groups = [(best_p[0], best_p[1], best_s[1])]
-    for start, pos, sur in groups:
-        S_hi, U_hi, k_hi = _sum(pos, measure, clip)
-        S_lo, U_lo, k_lo = _sum(sur, measure, clip)
+        best_p = max(wp, key=lambda w: sum(_sum(w[1], measure, clip, w[2])[:2]))
+
+        def low(w):
+            S, U, _ = _sum(w[1], measure, clip, w[2])
+            return S - U
+        best_s = max(ws, key=low, default=(None, [], {}))
+        groups = [(best_p[0], best_p[1], best_s[1], best_p[2], best_s[2])]
+    else:
+        groups = [(None, possible, sure, None, None)]
+    for start, pos, sur, w_pos, w_sur in groups:
+        S_hi, U_hi, k_hi = _sum(pos, measure, clip, w_pos)
+        S_lo, U_lo, k_lo = _sum(sur, measure, clip, w_sur)
         hi, lo = S_hi + U_hi, (S_lo - U_lo) if sur else -math.inf
         out.value, out.u = S_hi, U_hi
         win = (f" in the {rule.window.label()} window from x = {_fmt(start)} mm"
@@ -1390,16 +1399,20 @@ def _eval_max_area(rule, possible, sure, why, ctx, out):
         return
     S_hi, U_hi, k_hi = _sum(possible, "area")
     S_lo, U_lo, k_lo = _sum(sure, "area")
-    pct = 100.0 / area
+
+    def pct(x: float) -> float:
+        return x * 100.0 / area
+
     limit = rule.max.value
-    out.value, out.u, out.limit_mm = S_hi * pct, U_hi * pct, limit
+    out.value, out.u, out.limit_mm = pct(S_hi), pct(U_hi), limit
+
     def text(items, S, U):
-        return (f"{rule.id}: {_items_label(items)}: total area {_fmt(S * pct)} +/- {_fmt(U * pct)} % "
+        return (f"{rule.id}: {_items_label(items)}: total area {_fmt(pct(S))} +/- {_fmt(pct(U))} % "
                 f"of the face ({_fmt(S)} of {_fmt(area)} mm2)")
-    hi, lo = (S_hi + U_hi) * pct, ((S_lo - U_lo) * pct if sure else -math.inf)
+    hi, lo = pct(S_hi + U_hi), (pct(S_lo - U_lo) if sure else -math.inf)
     _decide_upper(rule, out, lo=lo, lo_known=k_lo, hi=hi, limit=limit,
                   text_fail=text(sure, S_lo, U_lo) + f" > {rule.max.label()}",
-                  text_review=text(possible, S_hi, U_hi) + f" {_compare_word(S_hi * pct, limit)} "
+                  text_review=text(possible, S_hi, U_hi) + f" {_compare_word(pct(S_hi), limit)} "
                               f"{rule.max.label()}{_low_tail(possible, sure, why)}",
                   text_unknown=_uncertain_tail(not k_hi, "area_u_mm2"))
 
