@@ -64,6 +64,12 @@ _OWN_CAUTIONS: tuple[str, ...] = (
 #: Cautions printed on every report.
 CAUTIONS: tuple[str, ...] = tuple(_LIMITS_CAUTIONS) if _LIMITS_CAUTIONS else _OWN_CAUTIONS
 
+#: The short caution in the footer of every PDF page (the full list is in the body).
+FOOTER_CAUTION = (
+    "CAUTION: this report assists a qualified inspector. Verify every limit against the code edition in "
+    "force; final acceptance is by qualified personnel under the local codes and contracts."
+)
+
 # --------------------------------------------------------------------------
 # JSON
 # --------------------------------------------------------------------------
@@ -672,16 +678,20 @@ def _new_pdf(footer_text: str):
 
     class _Doc(FPDF):
         def footer(self):  # noqa: D401 - fpdf hook
-            self.set_y(-13)
+            self.set_y(-14)
+            self.set_draw_color(160, 160, 160)
+            self.line(self.l_margin, self.get_y(), self.w - self.r_margin, self.get_y())
             self.set_font("helvetica", size=6.5)
             self.set_text_color(70, 70, 70)
-            self.multi_cell(0, 3, _pdf_text(footer_text), align="L")
-            self.set_y(-6)
-            self.cell(0, 3, f"page {self.page_no()}/{{nb}}", align="R")
+            self.set_x(self.l_margin)
+            self.multi_cell(self.w - self.l_margin - self.r_margin - 18, 3, _pdf_text(footer_text), align="L")
+            self.set_xy(self.w - self.r_margin - 16, -13)
+            self.cell(16, 3, f"page {self.page_no()}/{{nb}}", align="R")
+            self.set_text_color(0, 0, 0)
 
     pdf = _Doc(orientation="P", unit="mm", format="A4")
     pdf.head_style = FontFace(emphasis="BOLD", fill_color=(205, 205, 205))
-    pdf.set_auto_page_break(True, margin=16)
+    pdf.set_auto_page_break(True, margin=18)
     pdf.set_margins(14, 12, 14)
     pdf.alias_nb_pages()
     pdf.set_creator("surfaces")
@@ -829,7 +839,7 @@ def coupon_pdf(
     photo = assessment.get("photo") or {}
     tool = assessment.get("tool") or {}
     cautions = _cautions(assessment)
-    pdf = _new_pdf("CAUTION: " + " ".join(cautions))
+    pdf = _new_pdf(FOOTER_CAUTION)
     pdf.set_title(_pdf_text(f"Weld test face report {cp.get('id') or photo.get('name', '')}"))
     pdf.add_page()
 
@@ -919,13 +929,27 @@ def coupon_pdf(
         _bullets(pdf, [str(n) for n in notes], size=8)
 
     verdict = assessment.get("verdict") or {}
-    details = verdict.get("details") or []
-    _heading(pdf, f"Verdict: {result.upper()}")
+    details = [d for d in (verdict.get("details") or []) if isinstance(d, dict)]
+    _heading(pdf, "Verdict details")
+    pdf.set_font("helvetica", "B", 9)
+    pdf.cell(0, 4.6, _pdf_text(f"Result: {result.upper()}"), new_x="LMARGIN", new_y="NEXT")
     _bullets(pdf, reasons or ["No reason recorded."])
     if details:
-        pdf.set_font("helvetica", "B", 8.5)
-        pdf.cell(0, 4.6, "Checks", new_x="LMARGIN", new_y="NEXT")
-        _bullets(pdf, [_detail_text(d) for d in details], size=7.5)
+        pdf.ln(1)
+        pdf.set_font("helvetica", size=7.5)
+        with pdf.table(col_widths=(28, 22, 14, 50, 22, 28, 18), line_height=4.0, padding=0.6, text_align="LEFT",
+                       headings_style=pdf.head_style, cell_fill_color=(238, 238, 238),
+                       cell_fill_mode="ROWS") as table:
+            hr = table.row()
+            for h in ("rule", "check", "status", "limit", "imperfections", "clause", "confidence"):
+                hr.cell(h)
+            for d in details:
+                tr = table.row()
+                items = d.get("items")
+                items = ", ".join(str(i) for i in items) if isinstance(items, list) else items
+                for v in (d.get("rule"), d.get("check"), d.get("status"), d.get("limit"), items or "-",
+                          d.get("clause"), d.get("confidence")):
+                    tr.cell(_pdf_text("" if v is None else v))
 
     cal = assessment.get("calibration") or {}
     _heading(pdf, "Calibration")
@@ -938,10 +962,12 @@ def coupon_pdf(
         ("Marker side", None if cal.get("marker_mm") is None else f"{_fmt(cal.get('marker_mm'), 2)} mm"),
         ("Marker consistency", None if cal.get("consistency_pct") is None else f"{_fmt(cal.get('consistency_pct'), 2)} %"),
     ])
-    warns = [str(w) for w in (cal.get("warnings") or [])]
     face = assessment.get("face") or {}
-    warns += [f"face: {w}" for w in (face.get("warnings") or [])]
-    warns += [str(w) for w in (assessment.get("warnings") or [])]
+    warns: list[str] = []
+    for w in ([str(w) for w in (cal.get("warnings") or [])] + [str(w) for w in (face.get("warnings") or [])]
+              + [str(w) for w in (assessment.get("warnings") or [])]):
+        if w not in warns:
+            warns.append(w)
     if warns:
         pdf.set_font("helvetica", "B", 9)
         pdf.cell(0, 4.6, "Warnings", new_x="LMARGIN", new_y="NEXT")
@@ -964,14 +990,6 @@ def coupon_pdf(
     _kv(pdf, [("Photo size", f"{photo.get('width', '-')} x {photo.get('height', '-')} px")])
 
     return bytes(pdf.output())
-
-
-def _detail_text(d: Any) -> str:
-    if isinstance(d, dict):
-        parts = [f"{k}: {_fmt(v, 3) if isinstance(v, float) else jsonable(v)}" for k, v in d.items()
-                 if v not in (None, "", [])]
-        return "; ".join(parts)
-    return str(d)
 
 
 def write_pdf(path: str | os.PathLike, assessment: dict, photo_rgb: np.ndarray, *, force: bool = False,
@@ -1003,7 +1021,7 @@ def batch_csv(rows: pd.DataFrame) -> str:
 def batch_pdf(rows: pd.DataFrame, *, title: str = "Batch summary") -> bytes:
     """A batch summary PDF: counts by result and one line per photo."""
     df = rows.copy()
-    pdf = _new_pdf("CAUTION: " + " ".join(CAUTIONS))
+    pdf = _new_pdf(FOOTER_CAUTION)
     pdf.add_page(orientation="L")
     pdf.set_font("helvetica", "B", 15)
     pdf.cell(0, 8, _pdf_text(title), new_x="LMARGIN", new_y="NEXT")
