@@ -1,0 +1,886 @@
+"""The local page: assess a coupon photo, review it, save it, export it; batches, histories, limit sets.
+
+Thin over the core package: the page collects inputs, calls
+:mod:`surfaces.pipeline`, :mod:`surfaces.limits`, :mod:`surfaces.report`
+and :mod:`surfaces.records`, and shows what they return.  The inspector's
+review lives in :mod:`ui.review` (pure functions on the table); session
+memory and the cached analysis in :mod:`ui.state`.
+
+Start it with ``surfaces ui`` (listens on 127.0.0.1 only).
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+import math
+import sys
+from dataclasses import replace
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+if str(ROOT) not in sys.path:
+    sys.path.insert(0, str(ROOT))
+
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+import streamlit as st  # noqa: E402
+
+from surfaces import limits as L  # noqa: E402
+from surfaces import report  # noqa: E402
+from surfaces.model import KINDS, TEST_TYPES, CalibrationError, Settings, SurfacesError  # noqa: E402
+from surfaces.photo import load_photo  # noqa: E402
+from ui import helpers as H  # noqa: E402
+from ui import review as R  # noqa: E402
+from ui import state as S  # noqa: E402
+
+log = logging.getLogger("surfaces.ui")
+
+DEMO_DIR = ROOT / "demo_images"
+TEST_NAMES = {
+    "fillet-break": "Fillet-weld break test",
+    "nick-break": "Nick-break test (pipe)",
+    "bend": "Guided bend test",
+}
+KIND_NAMES = {"pore": "pore", "inclusion": "slag inclusion", "unfused": "lack of fusion", "crack": "crack"}
+VIEWS = ("Assess a coupon", "Batch of photos", "Welder histories", "Limit sets")
+SOURCES = ("Upload a photo", "Take a photo", "Demo photo")
+
+
+# =========================================================================== small pieces
+
+
+def demo_photos() -> list[Path]:
+    if not DEMO_DIR.is_dir():
+        return []
+    return sorted(p for p in DEMO_DIR.iterdir() if p.suffix.lower().lstrip(".") in H.PHOTO_TYPES)
+
+
+def limit_sets_for(test: str) -> list:
+    """Presets and the user's own sets that apply to ``test``, the default first."""
+    sets = [s for s in L.list_presets() + L.list_user_sets() if s.applies_to(test)]
+    default = L.default_preset_for(test)
+    sets.sort(key=lambda s: (s.name != default, s.kind != "preset", s.name))
+    return sets
+
+
+def flash(kind: str, text: str, *, where: str = "save") -> None:
+    st.session_state.setdefault("flash", []).append((where, kind, text))
+
+
+def show_flashes(where: str = "save") -> None:
+    keep = []
+    for w, kind, text in st.session_state.pop("flash", []):
+        if w == where:
+            getattr(st, kind)(text)
+        else:
+            keep.append((w, kind, text))
+    st.session_state["flash"] = keep
+
+
+def verdict_banner(verdict: dict, *, title: str, big: bool = True, key: str = "verdict") -> None:
+    """The verdict in words with an icon (shape differs per result); every reason listed."""
+    result = str((verdict or {}).get("result") or "review")
+    word, icon, colour, meaning = H.VERDICT_LOOK.get(result, H.VERDICT_LOOK["review"])
+    with st.container(border=True, key=key):
+        st.caption(title)
+        head = "##" if big else "####"
+        st.markdown(f"{head} {icon} :{colour}[**{word}**]")
+        st.markdown(f"*{meaning}*")
+        for reason in verdict.get("reasons") or []:
+            st.markdown(f"- {_md(reason)}")
+
+
+def _md(text: str) -> str:
+    """Plain text for Markdown (no links, no emphasis from the text itself)."""
+    out = str(text)
+    for ch in "\\`*_[]<>#|$~:":
+        out = out.replace(ch, "\\" + ch)
+    return out
+
+
+def cautions_box(assessment: dict | None = None) -> None:
+    items = list(L.CAUTIONS)
+    for c in (assessment or {}).get("cautions") or []:
+        if c not in items:
+            items.append(c)
+    with st.container(border=True, key="cautions"):
+        st.markdown("**:material/info: Before you rely on this result**")
+        st.markdown("- This tool assists a qualified inspector; it does not replace one.\n"
+                    + "\n".join(f"- {_md(c)}" for c in items))
+
+
+# =========================================================================== inputs
+
+
+def photo_input() -> tuple[bytes, str, str] | None:
+    """The chosen photo as (bytes, safe name, origin) or None."""
+    demos = demo_photos()
+    if "src" not in st.session_state:
+        st.session_state["src"] = SOURCES[2] if demos else SOURCES[0]
+    src = st.radio("Where is the photo?", SOURCES, horizontal=True, key="src")
+    if src == SOURCES[0]:
+        up = st.file_uploader(
+            f"Photo of the test face beside the reference card (JPEG, PNG or TIFF, up to {H.MAX_UPLOAD_MB} MB)",
+            type=list(H.PHOTO_TYPES), key="upload", max_upload_size=H.MAX_UPLOAD_MB)
+        if up is None:
+            return None
+        return up.getvalue(), H.safe_name(up.name), "upload"
+    if src == SOURCES[1]:
+        cam = st.camera_input("Point the camera square at the face, with the card beside it", key="camera")
+        if cam is None:
+            return None
+        return cam.getvalue(), "camera.jpg", "camera"
+    if not demos:
+        st.info("No demo photos are installed. Run `surfaces demo` once, or upload a photo.")
+        return None
+    pick = st.selectbox("Demo photo (invented coupons, for trying the page)", [p.name for p in demos], key="demo")
+    path = DEMO_DIR / H.safe_name(pick)
+    if path.parent != DEMO_DIR or not path.is_file():
+        return None
+    return path.read_bytes(), path.name, "demo"
+
+
+def coupon_and_settings() -> tuple[dict, Settings, object]:
+    """Coupon fields, Settings and the chosen limit set from the widgets."""
+    c1, c2, c3 = st.columns(3)
+    coupon = {
+        "id": c1.text_input("Coupon id", key="c_id", placeholder="stamped number, e.g. C-0417"),
+        "welder": c2.text_input("Welder id", key="c_welder"),
+        "procedure": c3.text_input("Procedure (WPS)", key="c_procedure"),
+        "process": c1.text_input("Process", key="c_process", placeholder="e.g. 135 or SMAW"),
+        "position": c2.text_input("Position", key="c_position", placeholder="e.g. PB / 2F"),
+        "material": c3.text_input("Material", key="c_material"),
+    }
+    test = c1.selectbox("Test", TEST_TYPES, format_func=TEST_NAMES.get, key="c_test")
+    sets = limit_sets_for(test)
+    names = [s.name for s in sets]
+    labels = {s.name: f"{s.title or s.name}" + ("" if s.kind == "preset" else "  (your own)") for s in sets}
+    pick = c2.selectbox("Limit set", names, format_func=lambda n: labels.get(n, n), key=f"c_limits_{test}")
+    limit_set = next(s for s in sets if s.name == pick)
+    nominal: dict = {}
+    nominal["thickness_mm"] = c3.number_input("Plate / wall thickness t (mm)", min_value=0.0, value=None,
+                                              step=0.5, key="c_thickness")
+    if test == "fillet-break":
+        nominal["throat_mm"] = c1.number_input("Throat a (mm)", min_value=0.0, value=None, step=0.5, key="c_throat")
+    if test == "nick-break":
+        nominal["wall_mm"] = c1.number_input("Pipe wall (mm)", min_value=0.0, value=None, step=0.5, key="c_wall")
+    bend_angle = former = None
+    if test == "bend":
+        bend_angle = c1.number_input("Bend angle (°)", min_value=0.0, max_value=200.0, value=None, step=5.0,
+                                     key="c_bend_angle")
+        former = c2.number_input("Former diameter (mm)", min_value=0.0, value=None, step=1.0, key="c_former")
+    nominal["length_mm"] = c3.number_input("Length examined (mm, optional)", min_value=0.0, value=None,
+                                           step=5.0, key="c_length")
+    nominal = {k: float(v) for k, v in nominal.items() if v not in (None, 0, 0.0)}
+    with st.expander("Marker size and sensitivity"):
+        a1, a2 = st.columns(2)
+        marker_mm = a1.number_input("Printed marker side (mm)", min_value=1.0, max_value=1000.0, value=20.0,
+                                    step=1.0, key="marker_mm",
+                                    help="the black square of the card; the printed card's is 20 mm")
+        min_size = a2.number_input("Smallest imperfection reported (mm)", min_value=0.05, max_value=20.0,
+                                   value=0.3, step=0.05, key="min_size")
+    coupon.update({k: v for k, v in nominal.items()})
+    coupon["test"] = test
+    coupon = {k: (v.strip() if isinstance(v, str) else v) for k, v in coupon.items()}
+    ppm = st.session_state.get("px_per_mm")
+    settings = Settings(
+        test=test, marker_mm=float(marker_mm), px_per_mm=float(ppm) if ppm else None,
+        roi=None, min_size_mm=float(min_size), limits=limit_set.name, nominal=nominal,
+        bend_angle_deg=float(bend_angle) if bend_angle else None,
+        former_diameter_mm=float(former) if former else None,
+    )
+    return coupon, settings, limit_set
+
+
+# =========================================================================== assess view
+
+
+def view_assess() -> None:
+    st.header("Assess a coupon")
+    st.caption("Photograph the broken or bent face square-on with the printed card beside it, on the same "
+               "plane. The page finds the scale, the face and the imperfections; you review and save.")
+    with st.container(border=True, key="step_photo"):
+        st.subheader("1 · Photo and coupon")
+        picked = photo_input()
+        coupon, settings, limit_set = coupon_and_settings()
+
+    failure, bad_input = None, False
+    if picked is not None:
+        data, name, origin = picked
+        try:
+            failure = load_and_analyse(data, name, origin, coupon, settings)
+        except SurfacesError as err:  # bad file: say so, keep earlier work
+            bad_input = True
+            st.error(f":material/error: {err}")
+
+    w = S.current()
+    if (failure or bad_input) and w is not None:
+        st.caption(f"Below: the last photo that worked in this session ({w.name}). Your earlier work is kept.")
+    scale_panel(w, failure, picked is not None)
+    if failure and failure[1] == "FaceError" and st.session_state.get("failed_photo"):
+        sha, Wp, Hp = st.session_state["failed_photo"]
+        with st.container(border=True, key="step_face_failed"):
+            st.subheader("3 · Face region")
+            st.markdown("Draw a rough box around the face (photo pixels: x to the right, y down from the "
+                        "top-left corner) and run again.")
+            face_box_inputs(sha, Wp, Hp, (Wp * 0.25, Hp * 0.25, Wp * 0.75, Hp * 0.75), "failed")
+    if w is None:
+        if picked is None:
+            st.info("Choose a photo above to start. No card? Print one with `surfaces card --out card.pdf`.")
+        return
+    if picked is None or S.work_key(S.sha256(picked[0]), settings) != w.key:
+        # the shown work may be an earlier one: judge it with its own settings
+        shown_settings = replace(w.settings, limits=limit_set.name) if limit_set.applies_to(w.settings.test) \
+            else w.settings
+        if shown_settings.test != settings.test:
+            limit_set = L.load_limit_set(w.settings.limits or L.default_preset_for(w.settings.test))
+    else:
+        shown_settings = settings
+        w.coupon = coupon
+    w.settings = shown_settings
+    auto = w.auto(shown_settings, limit_set)
+    reviewed = R.reviewed_assessment(auto, w.review, limit_set)
+    face_panel(w, auto)
+    results_panel(w, auto, reviewed)
+    review_panel(w, auto)
+    save_panel(w, auto, reviewed)
+
+
+def load_and_analyse(data: bytes, name: str, origin: str, coupon: dict, settings: Settings):
+    """Make the input photo the current work (analysing it if new).
+
+    Returns None, or (message, error class name) when the analysis failed.
+    """
+    H.check_upload(data, name)
+    sha = S.sha256(data)
+    roi = st.session_state.setdefault("roi", {}).get(sha)
+    settings = replace(settings, roi=roi)
+    key = S.work_key(sha, settings)
+    ws = S.works()
+    marker = (key, settings.key())
+    if key in ws:
+        if st.session_state.get("last_input") != marker:
+            st.session_state["current"] = key
+            st.session_state["last_input"] = marker
+        ws[key].coupon = coupon
+        return None
+    photos = st.session_state.setdefault("photos", {})
+    photo = photos.get(sha)
+    if photo is None:
+        photo = load_photo(data, name=name)
+        photos.clear()  # keep one decoded photo: 12 MP is 48 MB of pixels
+        photos[sha] = photo
+    try:
+        res = S.analyse(photo, settings)
+    except SurfacesError as err:
+        st.session_state["last_input"] = marker
+        st.session_state["failed_photo"] = (sha, photo.width, photo.height)
+        return str(err), type(err).__name__
+    w = S.Work(key=key, name=name, sha256=sha, data=data, photo=photo, result=res,
+               auto_base=res.assessment, settings=settings, coupon=coupon, origin=origin)
+    S.add_work(w)
+    st.session_state["last_input"] = marker
+    return None
+
+
+def scale_panel(w, failure, have_input: bool) -> None:
+    with st.container(border=True, key="step_scale"):
+        st.subheader("2 · Scale")
+        if failure:
+            st.error(f":material/error: {failure[0]}")
+            if failure[1] == "CalibrationError":
+                st.markdown("**What to check before retaking:**\n" + "\n".join(f"- {h}" for h in H.NO_MARKER_HINTS))
+        elif w is not None:
+            cal = w.auto_base.get("calibration") or {}
+            markers = cal.get("markers") or []
+            c = st.columns(4)
+            if cal.get("method") in ("marker", "markers") and markers:
+                m = markers[0]
+                c[0].metric("Reference marker", "found" if len(markers) == 1 else f"{len(markers)} found",
+                            f"id {m.get('id')}, {m.get('side_px', 0):.0f} px across", delta_color="off")
+            else:
+                c[0].metric("Reference marker", "not used", f"scale: {cal.get('method')}", delta_color="off")
+            c[1].metric("Scale at the face", f"{cal.get('px_per_mm', float('nan')):.2f} px/mm")
+            tilt = cal.get("tilt_deg")
+            c[2].metric("Camera tilt", "unknown" if tilt is None else f"{tilt:.0f}°")
+            c[3].metric("Scale uncertainty (1σ)", f"± {cal.get('uncertainty_pct', float('nan')):.2f} %")
+            for warning in cal.get("warnings") or []:
+                st.warning(f":material/warning: {warning}")
+            for hint in H.calibration_hints(cal):
+                st.info(f":material/lightbulb: {hint}")
+        if have_input or w is not None:
+            st.number_input("Scale typed by hand (photo pixels per mm), only when the photo has no marker",
+                            min_value=0.0, value=None, step=0.1, key="px_per_mm",
+                            help="Measure a known length in the photo (e.g. a ruler) in pixels and divide by "
+                                 "its millimetres. No perspective correction is made.")
+
+
+def face_panel(w, auto: dict) -> None:
+    face = auto.get("face") or {}
+    with st.container(border=True, key="step_face"):
+        st.subheader("3 · Face region")
+        st.markdown(f"Face found: **{face.get('length_mm', 0):.1f} mm** along the weld × "
+                    f"**{face.get('width_mm', 0):.1f} mm** across ({face.get('method')}); root side: "
+                    f"{face.get('root_side', 'unknown')}.")
+        for warning in face.get("warnings") or []:
+            st.warning(f":material/warning: {warning}")
+        poly = np.asarray(face.get("polygon_px") or [[0, 0]], dtype=float)
+        if w.photo is None or w.result is None:
+            return
+        with st.expander("Adjust the face region (a box in photo pixels) and run again"):
+            face_box_inputs(w.sha256, w.photo.width, w.photo.height, (*poly.min(axis=0), *poly.max(axis=0)), w.key)
+
+
+def face_box_inputs(sha: str, Wp: int, Hp: int, box, key: str) -> None:
+    """Four numbers for a face box (photo px) and the buttons to run again with it or without it."""
+    cols = st.columns(4)
+    vals = []
+    for col, lab, v, hi in zip(cols, ("left x", "top y", "right x", "bottom y"), box, (Wp, Hp, Wp, Hp)):
+        vals.append(col.number_input(f"Face box {lab} (px)", min_value=0, max_value=int(hi),
+                                     value=int(round(min(max(float(v), 0), hi))), step=10,
+                                     key=f"roi_{lab}_{key}"))
+    b1, b2 = st.columns(2)
+    if b1.button("Run again with this box", key=f"roi_run_{key}", icon=":material/crop:"):
+        bx0, by0, bx1, by1 = vals
+        if bx1 <= bx0 or by1 <= by0:
+            st.error("The box needs left < right and top < bottom: check the four numbers.")
+        else:
+            st.session_state.setdefault("roi", {})[sha] = tuple(float(v) for v in vals)
+            st.session_state.pop("last_input", None)
+            st.rerun()
+    if b2.button("Back to the automatic outline", key=f"roi_auto_{key}",
+                 disabled=st.session_state.get("roi", {}).get(sha) is None):
+        st.session_state["roi"].pop(sha, None)
+        st.session_state.pop("last_input", None)
+        st.rerun()
+
+
+def _overlay(w, reviewed: dict):
+    """The core's overlay of the reviewed assessment (drawn again only when the review changes)."""
+    sig = json.dumps([(r.get("id"), r.get("kind"), r.get("status"), r.get("greatest_mm"))
+                      for r in reviewed.get("imperfections") or []] + [reviewed["verdict"]["result"]],
+                     default=str)
+    cache = w._judged.setdefault("_overlay", {})
+    if cache.get("sig") != sig:
+        img = report.render_overlay(w.photo.rgb, reviewed)
+        lay = report.overlay_layout(w.photo.height, w.photo.width)
+        cache.clear()
+        cache.update(sig=sig, img=img, layout=lay, jpeg=H.encode_jpeg(img))
+    return cache
+
+
+def results_panel(w, auto: dict, reviewed: dict) -> None:
+    rows = reviewed.get("imperfections") or []
+    with st.container(border=True, key="step_result"):
+        st.subheader("4 · Result")
+        if w.review.touched:
+            a, b = st.columns([3, 2])
+            with a:
+                verdict_banner(reviewed["verdict"], title="After your review", key="verdict")
+            with b:
+                verdict_banner(auto["verdict"], title="Automatic result (kept in the record)", big=False,
+                               key="verdict_auto")
+        else:
+            verdict_banner(auto["verdict"], title="Automatic result (not yet reviewed)", key="verdict")
+        for warning in auto.get("warnings") or []:
+            if warning not in ((auto.get("calibration") or {}).get("warnings") or []) \
+                    and warning not in ((auto.get("face") or {}).get("warnings") or []):
+                st.warning(f":material/warning: {warning}")
+        cautions_box(auto)
+        if w.photo is not None:
+            ov = _overlay(w, reviewed)
+            tab_photo, tab_face = st.tabs(["Photo with numbered outlines", "Rectified face"])
+            with tab_photo:
+                opts = ["the whole photo"] + [f"{r['id']} · {KIND_NAMES.get(r['kind'], r['kind'])}" for r in rows]
+                z1, z2 = st.columns([3, 2])
+                pick = z1.selectbox("Zoom on", opts, key=f"zoom_on_{w.key}")
+                zoom = z2.slider("Zoom", 1, 12, 4, key=f"zoom_{w.key}", disabled=pick == opts[0])
+                if pick == opts[0]:
+                    st.image(ov["jpeg"], caption=f"{w.name}: outlines numbered as in the table",
+                             width="stretch")
+                else:
+                    row = rows[opts.index(pick) - 1]
+                    box = H.zoom_box(row.get("bbox_px") or row.get("centroid_px") * 2,
+                                     (w.photo.width, w.photo.height), zoom=zoom)
+                    crop = H.crop_overlay(ov["img"], ov["layout"], box)
+                    st.image(H.encode_jpeg(H.fit_width(crop, max_w=1600, min_h=480)),
+                             caption=f"imperfection {row['id']} ({KIND_NAMES.get(row['kind'], row['kind'])}, "
+                                     f"{H.fmt_pm(row.get('greatest_mm'), row.get('greatest_u_mm'))} mm); "
+                                     f"photo pixels {box[0]}..{box[2]} × {box[1]}..{box[3]}",
+                             width="stretch")
+            with tab_face:
+                face = auto.get("face") or {}
+                if w.result is not None:
+                    img = H.face_with_boxes(w.result.face.image, rows, px_per_mm=face.get("px_per_mm", 16),
+                                            length_mm=face.get("length_mm", 1), width_mm=face.get("width_mm", 1),
+                                            styles=report.KIND_STYLES)
+                    st.image(H.encode_jpeg(H.fit_width(img, max_w=2400, min_h=240)),
+                             caption="the face rectified to its own axes (along the weld → right); "
+                                     "boxes numbered as in the table, dismissed ones in brackets",
+                             width="stretch")
+                else:
+                    st.info("The rectified face is not kept in the records; run the photo again to see it.")
+        st.markdown(f"**Imperfections:** {sum(r.get('status') != 'dismissed' for r in rows)} judged, "
+                    f"{sum(r.get('status') == 'dismissed' for r in rows)} dismissed. Sizes in mm on the face "
+                    "plane, ± one standard uncertainty.")
+        st.dataframe(imperfection_frame(rows), hide_index=True, width="stretch", key=f"table_{w.key}")
+
+
+def imperfection_frame(rows: list[dict]) -> pd.DataFrame:
+    out = []
+    for r in rows:
+        out.append({
+            "#": f"{r.get('id')}{'m' if r.get('source') == 'manual' else ''}",
+            "kind": KIND_NAMES.get(r.get("kind"), r.get("kind")),
+            "ISO 6520-1": r.get("iso6520"),
+            "greatest (mm)": H.fmt_pm(r.get("greatest_mm"), r.get("greatest_u_mm")),
+            "width (mm)": H.fmt_pm(r.get("width_mm"), r.get("width_u_mm")),
+            "along weld (mm)": H.fmt_pm(r.get("along_mm"), r.get("along_u_mm")),
+            "across (mm)": H.fmt_pm(r.get("across_mm"), r.get("across_u_mm")),
+            "area (mm²)": H.fmt_pm(r.get("area_mm2"), r.get("area_u_mm2")),
+            "confidence": None if r.get("confidence") is None else round(float(r["confidence"]), 2),
+            "at edge/root": ", ".join(k for k in ("edge", "root") if r.get(f"at_{k}")) or "-",
+            "review": {"auto": "as found", "confirmed": "confirmed", "dismissed": "DISMISSED",
+                       "edited": "edited"}.get(r.get("status"), r.get("status")),
+            "source": "added by inspector" if r.get("source") == "manual" else "found by tool",
+        })
+    cols = ["#", "kind", "ISO 6520-1", "greatest (mm)", "width (mm)", "along weld (mm)", "across (mm)",
+            "area (mm²)", "confidence", "at edge/root", "review", "source"]
+    return pd.DataFrame(out, columns=cols)
+
+
+# --------------------------------------------------------------------------- review
+
+
+def _on_decision(w, rid: int, wkey: str) -> None:
+    w.review.edit(rid).decision = st.session_state[wkey]
+
+
+def _on_kind(w, rid: int, wkey: str, found: str) -> None:
+    v = st.session_state[wkey]
+    w.review.edit(rid).kind = None if v == found else v
+
+
+def _on_size(w, rid: int, wkey: str, attr: str, measured) -> None:
+    v = st.session_state[wkey]
+    same = v is None or (measured is not None and math.isfinite(float(measured)) and abs(v - float(measured)) < 5e-3)
+    setattr(w.review.edit(rid), attr, None if same else float(v))
+
+
+def _on_text(w, attr: str, wkey: str) -> None:
+    setattr(w.review, attr, st.session_state[wkey] or "")
+
+
+def review_panel(w, auto: dict) -> None:
+    rows = auto.get("imperfections") or []
+    with st.container(border=True, key="step_review"):
+        st.subheader("5 · Your review")
+        st.caption("Confirm or dismiss each detection, change its kind or sizes, and add what the tool missed. "
+                   "The verdict above is judged again at once from your list; the automatic result is kept.")
+        if rows:
+            head = st.columns([2.4, 2.6, 1.8, 1.3, 1.3])
+            for col, text in zip(head, ("imperfection", "decision", "kind", "greatest (mm)", "width (mm)")):
+                col.markdown(f"**{text}**")
+        for r in rows:
+            rid = int(r["id"])
+            e = w.review.edits.get(rid) or R.Edit()
+            with st.container(key=f"rv_row_{rid}"):
+                c = st.columns([2.4, 2.6, 1.8, 1.3, 1.3], vertical_alignment="center")
+                c[0].markdown(f"**{rid}** · {KIND_NAMES.get(r['kind'], r['kind'])} · "
+                              f"{H.fmt_pm(r.get('greatest_mm'), r.get('greatest_u_mm'))} mm · "
+                              f"confidence {float(r.get('confidence') or 0):.2f}")
+                k = f"rv_{w.key}_{rid}_dec"
+                c[1].radio(f"Decision on imperfection {rid}", R.DECISIONS, index=R.DECISIONS.index(e.decision),
+                           horizontal=True, key=k, label_visibility="collapsed",
+                           on_change=_on_decision, args=(w, rid, k))
+                k = f"rv_{w.key}_{rid}_kind"
+                c[2].selectbox(f"Kind of imperfection {rid}", KINDS, index=KINDS.index(e.kind or r["kind"]),
+                               format_func=KIND_NAMES.get, key=k, label_visibility="collapsed",
+                               on_change=_on_kind, args=(w, rid, k, r["kind"]))
+                for col, attr, col_name in ((c[3], "greatest_mm", "greatest_mm"), (c[4], "width_mm", "width_mm")):
+                    k = f"rv_{w.key}_{rid}_{attr}"
+                    measured = r.get(col_name)
+                    value = getattr(e, attr) if getattr(e, attr) is not None else measured
+                    col.number_input(f"{attr.replace('_mm', '').replace('_', ' ')} of imperfection {rid} (mm)",
+                                     min_value=0.0, value=None if value is None else round(float(value), 2),
+                                     step=0.05, format="%.2f", key=k, label_visibility="collapsed",
+                                     on_change=_on_size, args=(w, rid, k, attr, measured))
+        if not rows:
+            st.markdown("The tool found no imperfection on this face.")
+        for m in list(w.review.manual):
+            c = st.columns([6, 1])
+            c[0].markdown(f"**{m['id']}m** · {KIND_NAMES[m['kind']]} added by you · "
+                          f"{m['along_mm']:.2f} × {m['across_mm']:.2f} mm at x {m['cx_mm']:.1f}, y {m['cy_mm']:.1f} mm")
+            if c[1].button("Remove", key=f"rm_{w.key}_{m['id']}"):
+                w.review.manual = [x for x in w.review.manual if x["id"] != m["id"]]
+                st.rerun()
+        face = auto.get("face") or {}
+        with st.expander("Add an imperfection the tool missed"):
+            st.caption("Give its centre in face millimetres (x along the weld from the face start, y across "
+                       "from the edge drawn at the top of the rectified face) and its size; the outline is "
+                       "an ellipse with those axes.")
+            with st.form(key=f"add_{w.key}", clear_on_submit=False, border=False):
+                f = st.columns(5)
+                kind = f[0].selectbox("Kind", KINDS, format_func=KIND_NAMES.get, key=f"add_kind_{w.key}")
+                x = f[1].number_input("Centre x (mm)", min_value=0.0,
+                                      max_value=float(max(face.get("length_mm") or 0, 0.1)),
+                                      value=round(float(face.get("length_mm") or 0) / 2, 1), key=f"add_x_{w.key}")
+                y = f[2].number_input("Centre y (mm)", min_value=0.0,
+                                      max_value=float(max(face.get("width_mm") or 0, 0.1)),
+                                      value=round(float(face.get("width_mm") or 0) / 2, 1), key=f"add_y_{w.key}")
+                a = f[3].number_input("Length along (mm)", min_value=0.01, value=1.0, step=0.1, key=f"add_a_{w.key}")
+                b = f[4].number_input("Height across (mm)", min_value=0.01, value=1.0, step=0.1,
+                                      key=f"add_b_{w.key}")
+                if st.form_submit_button("Add this imperfection", icon=":material/add:"):
+                    try:
+                        rec = R.manual_record(auto, kind=kind, x_mm=x, y_mm=y, along_mm=a, across_mm=b,
+                                              rid=R.next_manual_id(rows, w.review))
+                    except SurfacesError as err:
+                        st.error(str(err))
+                    else:
+                        w.review.manual.append(rec)
+                        st.rerun()
+        k1, k2 = st.columns([1, 2])
+        k1.text_input("Reviewed by (your name)", key="reviewer")
+        w.review.reviewer = st.session_state.get("reviewer") or ""
+        k = f"note_{w.key}"
+        k2.text_area("Review note", value=w.review.note, key=k, height=80, on_change=_on_text, args=(w, "note", k))
+
+
+# --------------------------------------------------------------------------- save and export
+
+
+def _review_fingerprint(reviewed: dict) -> str:
+    rv = dict(reviewed.get("review") or {})
+    rv.pop("reviewed_at", None)
+    return json.dumps([reviewed.get("imperfections"), reviewed.get("verdict"), rv], sort_keys=True, default=str)
+
+
+def _save(w, auto: dict, reviewed: dict) -> None:
+    reviewer = w.review.reviewer.strip()
+    coupon = {k: v for k, v in w.coupon.items() if v not in (None, "")}
+    if not coupon.get("id"):
+        coupon = None
+    if w.data is None:
+        flash("error", "This photo is no longer in memory (older than the last "
+                       f"{S.MAX_WORKS} photos of the session): load it again to save it.")
+        return
+    try:
+        with S.store() as s:
+            if w.saved_id is None:
+                w.saved_id = s.save_assessment(auto, w.data, coupon=coupon, actor=reviewer or "page user")
+            if w.review.touched or reviewer:
+                if not reviewer:
+                    raise SurfacesError("enter your name under 'Reviewed by' to save your review")
+                s.save_review(w.saved_id, reviewed, reviewer=reviewer, note=w.review.note.strip() or None)
+                w.saved_review = _review_fingerprint(reviewed)
+    except SurfacesError as err:
+        flash("error", f"Not saved: {err}")
+        return
+    what = "with your review" if w.saved_review else "automatic result only"
+    flash("success", f"Saved as assessment {w.saved_id} ({what}) in {S.db_path()}"
+                     + ("" if coupon else ". No coupon id was given: enter one to file it under the coupon."))
+
+
+def save_panel(w, auto: dict, reviewed: dict) -> None:
+    with st.container(border=True, key="step_save"):
+        st.subheader("6 · Save and export")
+        show_flashes()
+        unsaved = w.saved_id is None or (w.review.touched and w.saved_review != _review_fingerprint(reviewed))
+        if w.saved_id is not None:
+            st.markdown(f"Record: assessment **{w.saved_id}**" + (" — your latest changes are not saved yet."
+                                                                if unsaved else " — saved."))
+        st.button("Save to the records" if w.saved_id is None else "Save the review again",
+                  key="save", type="primary", icon=":material/save:", disabled=not unsaved,
+                  on_click=_save, args=(w, auto, reviewed))
+        base = H.stem(w.coupon.get("id") or w.name)
+        photo_rgb = w.photo.rgb if w.photo is not None else None
+        face_rgb = w.result.face.image if w.result is not None else None
+        reviewer = w.review.reviewer.strip() or None
+        coupon = {k: v for k, v in w.coupon.items() if v not in (None, "")}
+        c = st.columns(3)
+        if photo_rgb is not None:
+            c[0].download_button(
+                "Report (PDF)", data=lambda: report.coupon_pdf(reviewed, photo_rgb, face_rgb=face_rgb,
+                                                               reviewer=reviewer, coupon=coupon),
+                file_name=f"{base}-report.pdf", mime="application/pdf", key="dl_pdf", icon=":material/download:")
+        c[1].download_button("Assessment (JSON)", data=lambda: report.dumps_json(reviewed),
+                             file_name=f"{base}-assessment.json", mime="application/json", key="dl_json",
+                             icon=":material/download:")
+        c[2].download_button("Imperfection table (CSV)", data=lambda: report.table_csv(reviewed),
+                             file_name=f"{base}-imperfections.csv", mime="text/csv", key="dl_csv",
+                             icon=":material/download:")
+
+
+# =========================================================================== other views
+
+
+def view_limits() -> None:
+    st.header("Limit sets")
+    st.caption("The acceptance limits the verdict is judged against. Presets come with the tool; copy one, "
+               "edit it and save it as your own. Check every value against the edition of the code in force.")
+    sets = L.list_presets() + L.list_user_sets()
+    names = [s.name for s in sets]
+    pick = st.selectbox("Limit set", names, key="ls_pick",
+                        format_func=lambda n: next(f"{s.title or s.name} ({s.name}, {s.kind})"
+                                                   for s in sets if s.name == n))
+    ls = next(s for s in sets if s.name == pick)
+    st.markdown(f"**{_md(ls.title or ls.name)}** · version {_md(ls.version)} · for "
+                f"{', '.join(TEST_NAMES.get(t, t) for t in ls.tests)}")
+    st.markdown(f"Source: {_md(ls.source or 'not given')}" + (f", {_md(ls.clause)}" if ls.clause else "")
+                + (f" · edition: {_md(ls.edition)}" if ls.edition else ""))
+    if ls.note:
+        st.info(ls.note)
+    st.dataframe(pd.DataFrame([{
+        "rule": r.id, "applies to": ", ".join(r.kinds), "check": r.check, "limit": r.limit_label(),
+        "clause": r.clause, "confidence": r.confidence, "if broken": r.outcome, "note": r.note,
+    } for r in ls.rules]), hide_index=True, width="stretch", key="ls_rules")
+    st.caption("Confidence: 'found' = checked against a published copy; 'memory' = recalled, not checked; "
+               "'added' = our own addition; 'user' = your own value.")
+    st.subheader("Copy and edit")
+    key = f"ls_text_{ls.name}"
+    text = st.text_area("The set as TOML (edit it, then check it)", value=L.to_toml(ls) if not ls.text else ls.text,
+                        height=360, key=key)
+    new_name = st.text_input("Name of your copy", value=f"{ls.name}-mine" if ls.kind == "preset" else ls.name,
+                             key="ls_new_name")
+    c1, c2 = st.columns(2)
+    check = c1.button("Check the text", key="ls_check", icon=":material/fact_check:")
+    save = c2.button("Save as my own set", key="ls_save", icon=":material/save:")
+    if check or save:
+        try:
+            parsed = L.parse_limit_set(text, origin="the text above")
+        except SurfacesError as err:
+            st.error(f":material/error: {err}")
+            return
+        st.success(f"The text is a valid limit set with {len(parsed.rules)} rule(s).")
+        if save:
+            try:
+                path = L.save_user_set(parsed, H.safe_name(new_name, default="my-limits"),
+                                       force=ls.kind == "user" and new_name == ls.name)
+            except SurfacesError as err:
+                st.error(f":material/error: {err}")
+            else:
+                st.success(f"Saved as '{H.safe_name(new_name)}' in {path}. It now appears in the limit-set "
+                           "choice of the assessment.")
+
+
+def view_histories() -> None:
+    st.header("Welder histories")
+    try:
+        with S.store() as s:
+            hist = s.history()
+    except SurfacesError as err:
+        st.error(f":material/error: {err}")
+        return
+    st.caption(f"Records: {S.db_path()}")
+    if hist.empty:
+        st.info("No saved assessments yet. Save one from 'Assess a coupon'"
+                + (", or fill the records with invented demo coupons: `surfaces demo`." ))
+        return
+    welders = sorted(w for w in hist["welder"].dropna().unique() if w)
+    tab_w, tab_g = st.tabs(["Per welder", "Reject rates by batch, procedure, position"])
+    with tab_w:
+        if not welders:
+            st.info("No saved assessment names a welder yet.")
+        else:
+            who = st.selectbox("Welder", welders, key="hist_welder")
+            h = hist[hist["welder"] == who].sort_values("assessment_id")
+            n = len(h)
+            c = st.columns(4)
+            c[0].metric("Attempts", n)
+            for col, res in zip(c[1:], ("accept", "reject", "review")):
+                col.metric(H.VERDICT_LOOK[res][0], int((h["result"] == res).sum()))
+            st.dataframe(h[["assessment_id", "created_at", "coupon_id", "test", "procedure", "position", "result",
+                            "automatic_result", "first_reason", "n_imperfections", "reviewer"]]
+                         .rename(columns={"result": "verdict", "automatic_result": "automatic verdict"})
+                         .assign(verdict=lambda d: d["verdict"].str.upper()),
+                         hide_index=True, width="stretch", key="hist_table")
+            kinds = _kind_counts(h["assessment_id"].tolist())
+            if kinds:
+                st.markdown("**Most common imperfections** (judged, all attempts): "
+                            + ", ".join(f"{KIND_NAMES.get(k, k)} × {v}" for k, v in kinds))
+            trend = h.assign(attempt=range(1, n + 1)).set_index("attempt")
+            trend = pd.DataFrame({"imperfections judged": trend["n_imperfections"].astype(float),
+                                  "rejected (1 = yes)": (trend["result"] == "reject").astype(float)})
+            st.markdown("**Trend over attempts**")
+            st.line_chart(trend, x_label="attempt", y_label="count")
+            pick = st.selectbox("Open an attempt for review", h["assessment_id"].tolist()[::-1], key="hist_open")
+            st.button("Open it", key="hist_open_btn", on_click=_open_cb, args=(int(pick),))
+    with tab_g:
+        by = st.multiselect("Group by", ["batch", "procedure", "position", "process", "material", "welder", "test"],
+                            default=["batch", "procedure", "position"], key="stats_by")
+        try:
+            with S.store() as s:
+                stats = s.stats(by=by)
+        except SurfacesError as err:
+            st.error(f":material/error: {err}")
+            return
+        if not stats.empty:
+            stats = stats.assign(reject_rate=(stats["reject_rate"] * 100).round(1)).rename(
+                columns={"reject_rate": "reject rate (%)", "top_reasons": "most frequent reasons"})
+        st.dataframe(stats, hide_index=True, width="stretch", key="stats_table")
+
+
+def _kind_counts(ids: list[int]) -> list[tuple[str, int]]:
+    from collections import Counter
+
+    counts: Counter[str] = Counter()
+    with S.store() as s:
+        for aid in ids:
+            for r in s.get_assessment(int(aid)).get("imperfections") or []:
+                if r.get("status") != "dismissed":
+                    counts[str(r.get("kind"))] += 1
+    return counts.most_common()
+
+
+def open_record(aid: int) -> None:
+    """Make a saved assessment the current work (photo from the store, review rebuilt from its list)."""
+    with S.store() as s:
+        a = s.get_assessment(aid)
+        data = s.photo_bytes(a["photo"]["sha256"])
+    rec = a.pop("record")
+    auto_rows = a.pop("automatic_imperfections")
+    auto = dict(a, imperfections=auto_rows, verdict=rec.get("automatic_verdict") or a.get("verdict"))
+    auto.pop("review", None)
+    review = R.Review(note=rec.get("review_note") or "")
+    by_id = {int(r["id"]): r for r in auto_rows}
+    for r in rec.get("reviewed_imperfections") or []:
+        if r.get("source") == "manual" and int(r["id"]) not in by_id:
+            review.manual.append(r)
+            continue
+        old = by_id.get(int(r["id"]))
+        if old is None:
+            continue
+        e = R.Edit(decision={"dismissed": "dismiss", "confirmed": "confirm"}.get(r.get("status"), "as found"))
+        if r.get("kind") != old.get("kind"):
+            e.kind = r.get("kind")
+        for attr in ("greatest_mm", "width_mm"):
+            if r.get(attr) is not None and old.get(attr) is not None and abs(r[attr] - old[attr]) > 5e-3:
+                setattr(e, attr, float(r[attr]))
+        if e != R.Edit():
+            review.edits[int(r["id"])] = e
+    settings = Settings(**{k: (tuple(v) if isinstance(v, list) else v)
+                           for k, v in (a.get("settings") or {}).items() if k in Settings.__dataclass_fields__})
+    photo = load_photo(data, name=a["photo"].get("name") or "photo")
+    coupon = dict(rec.get("coupon") or {})
+    w = S.Work(key=f"record-{aid}", name=f"record {aid}: {a['photo'].get('name')}", sha256=photo.sha256,
+               data=data, photo=photo, result=None, auto_base=auto, settings=settings, coupon=coupon,
+               review=review, saved_id=aid, origin="record")
+    w.saved_review = None
+    S.add_work(w)
+    st.session_state["view"] = VIEWS[0]
+    st.session_state["last_input"] = None
+
+
+def _open_cb(aid: int) -> None:
+    try:
+        open_record(aid)
+    except SurfacesError as err:
+        flash("error", f"Cannot open assessment {aid}: {err}", where="page")
+
+
+def view_batch() -> None:
+    st.header("Batch of photos")
+    st.caption("Assess many photos with the same coupon details; every result is saved to the records "
+               "(automatic result, to be reviewed). Open any of them for review afterwards.")
+    ups = st.file_uploader("Photos", type=list(H.PHOTO_TYPES), accept_multiple_files=True, key="batch_upload",
+                           max_upload_size=H.MAX_UPLOAD_MB)
+    c1, c2, c3 = st.columns(3)
+    test = c1.selectbox("Test", TEST_TYPES, format_func=TEST_NAMES.get, key="b_test")
+    sets = limit_sets_for(test)
+    pick = c2.selectbox("Limit set", [s.name for s in sets], key=f"b_limits_{test}")
+    batch_id = c3.text_input("Batch name", key="b_batch", placeholder="e.g. 2026-W48 qualification")
+    welder = c1.text_input("Welder id (all photos)", key="b_welder")
+    procedure = c2.text_input("Procedure (all photos)", key="b_procedure")
+    position = c3.text_input("Position (all photos)", key="b_position")
+    st.caption("Each photo's coupon id is taken from its file name (without the suffix).")
+    if st.button("Assess and save all", key="b_run", type="primary", disabled=not ups, icon=":material/play_arrow:"):
+        settings = Settings(test=test, limits=pick)
+        limit_set = next(s for s in sets if s.name == pick)
+        rows = []
+        bar = st.progress(0.0, text="starting")
+        for i, up in enumerate(ups):
+            name = H.safe_name(up.name)
+            bar.progress(i / len(ups), text=f"{i + 1} of {len(ups)}: {name}")
+            row = {"photo": name, "coupon_id": H.stem(name), "welder": welder or None, "status": "done",
+                   "result": None, "first_reason": "", "n_imperfections": None, "assessment_id": None, "error": ""}
+            try:
+                data = up.getvalue()
+                H.check_upload(data, name)
+                photo = load_photo(data, name=name)
+                res = S.analyse(photo, settings)
+                w = S.Work(key=S.work_key(photo.sha256, settings), name=name, sha256=photo.sha256, data=None,
+                           photo=None, result=None, auto_base=res.assessment, settings=settings)
+                auto = w.auto(settings, limit_set)
+                coupon = {"id": H.stem(name), "welder": welder, "procedure": procedure, "position": position,
+                          "batch": batch_id, "test": test}
+                with S.store() as s:
+                    aid = s.save_assessment(auto, data, coupon={k: v for k, v in coupon.items() if v},
+                                            actor="batch")
+                row.update(result=auto["verdict"]["result"], assessment_id=aid,
+                           first_reason=(auto["verdict"]["reasons"] or [""])[0],
+                           n_imperfections=len(auto.get("imperfections") or []))
+            except SurfacesError as err:
+                row.update(status="error", error=str(err))
+            rows.append(row)
+        bar.progress(1.0, text=f"done: {len(ups)} photo(s)")
+        st.session_state["batch_rows"] = rows
+    rows = st.session_state.get("batch_rows")
+    if rows:
+        df = pd.DataFrame(rows)
+        c = st.columns(4)
+        for col, res in zip(c, ("accept", "reject", "review")):
+            col.metric(H.VERDICT_LOOK[res][0], int((df["result"] == res).sum()))
+        c[3].metric("Could not be assessed", int((df["status"] == "error").sum()))
+        st.dataframe(df.assign(result=df["result"].fillna("").str.upper()), hide_index=True,
+                     width="stretch", key="batch_table")
+        d1, d2 = st.columns(2)
+        d1.download_button("Summary (CSV)", data=report.batch_csv(df), file_name="batch-summary.csv",
+                           mime="text/csv", key="b_csv")
+        d2.download_button("Summary (PDF)", data=lambda: report.batch_pdf(df), file_name="batch-summary.pdf",
+                           mime="application/pdf", key="b_pdf")
+        ids = [int(a) for a in df["assessment_id"].dropna()]
+        if ids:
+            pick = st.selectbox("Open a coupon for review", ids, key="b_open",
+                                format_func=lambda a: f"assessment {a}: "
+                                + str(df.loc[df['assessment_id'] == a, 'photo'].iloc[0]))
+            st.button("Open it", key="b_open_btn", on_click=_open_cb, args=(int(pick),))
+
+
+# =========================================================================== page
+
+
+def sidebar() -> str:
+    with st.sidebar:
+        st.markdown("## surfaces")
+        st.caption("Weld test faces measured from a photo beside the printed reference card.")
+        view = st.radio("Go to", VIEWS, key="view")
+        ws = S.works()
+        if len(ws) > 1:
+            keys = list(ws)[::-1]
+            cur = st.session_state.get("current")
+            st.radio("Photos in this session", keys, index=keys.index(cur) if cur in keys else 0,
+                     format_func=lambda k: ws[k].name + (f" (record {ws[k].saved_id})" if ws[k].saved_id else ""),
+                     key="pick_work", on_change=lambda: st.session_state.update(current=st.session_state["pick_work"]))
+        st.divider()
+        st.caption(f"Records: `{S.db_path()}`")
+        st.caption("This page runs on this computer only (127.0.0.1).")
+    return view
+
+
+def main() -> None:
+    st.set_page_config(page_title="surfaces · weld test faces", page_icon=":material/straighten:", layout="wide")
+    view = sidebar()
+    show_flashes("page")
+    try:
+        {VIEWS[0]: view_assess, VIEWS[1]: view_batch, VIEWS[2]: view_histories, VIEWS[3]: view_limits}[view]()
+    except SurfacesError as err:
+        st.error(f":material/error: {err}")
+    except Exception as err:  # never a traceback on the page; the log has it
+        log.exception("page error")
+        st.error(f":material/error: Something went wrong on the page ({err.__class__.__name__}: {err}). "
+                 "Your earlier work in this session is kept; please report this with the photo.")
+
+
+main()
