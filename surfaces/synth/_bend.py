@@ -1,0 +1,314 @@
+"""Guided-bend coupons: the stretched convex surface with open discontinuities.
+
+Surface frame: ``s`` (x) along the coupon from the start of the inspected
+surface, ``t`` (y) across it from the ``y = 0`` edge, true millimetres on
+the metal.  With curvature the surface is a cylinder of outer radius
+``R = former radius + thickness`` about an axis across the coupon, apex at
+``s = L/2``; the photo from above sees it projected onto the card's plane,
+
+    x_plane = Lp/2 + R sin((s - L/2) / R),   Lp = 2 R sin(L / (2 R)),
+
+which is the layout frame used for the canvases and the truth polygons.
+Truth sizes are true arc lengths on the surface; ``projected`` sizes are
+measured on the projected outlines.
+"""
+
+from __future__ import annotations
+
+import math
+
+import cv2
+import numpy as np
+
+from . import _noise, _shapes
+from ._paint import Defect, paint_defect, paint_smudge, paint_speck
+from ._render import Layer, fill_alpha, grid_A, to_px
+from ._scene import Context, Geometry, Placed, SynthError, clear_of, layer_res, parse_specs, place_specs
+
+KIND_WEIGHTS = {"crack": 0.55, "pore": 0.25, "inclusion": 0.2}
+SPEC_KEYS = {"kind", "shape", "x_mm", "y_mm", "d_mm", "a_mm", "b_mm", "length_mm", "width_mm", "angle_deg", "edge"}
+
+
+def _loguniform(rng, lo, hi):
+    return float(math.exp(rng.uniform(math.log(lo), math.log(hi))))
+
+
+class BendBuilder:
+    scene = "bend"
+    test = "bend"
+    projected = True
+
+    def __init__(self, *, curvature: bool, radius_mm=None, thickness_mm=None, width_mm=None, length_mm=None):
+        self.curved = bool(curvature)
+        self.fixed_R = radius_mm
+        self.fixed_T = thickness_mm
+        self.fixed_W = width_mm
+        self.fixed_L = length_mm
+        self.geo: Geometry | None = None
+
+    # ------------------------------------------------------------------ mapping
+    def to_layout(self, pts):
+        p = np.array(pts, float).reshape(-1, 2)
+        if self.curved:
+            L, R, Lp = self.L, self.R, self.Lp
+            p[:, 0] = Lp / 2 + R * np.sin((p[:, 0] - L / 2) / R)
+        return p
+
+    def to_surface_x(self, xp):
+        """Projected layout x -> surface s (inverse of :meth:`to_layout` along x)."""
+        if not self.curved:
+            return np.asarray(xp, float)
+        u = np.clip((np.asarray(xp, float) - self.Lp / 2) / self.R, -1.0, 1.0)
+        return self.L / 2 + self.R * np.arcsin(u)
+
+    def curvature_truth(self) -> dict:
+        half = self.L / (2 * self.R) if self.curved else 0.0
+        return {
+            "enabled": self.curved,
+            "radius_mm": self.R if self.curved else None,
+            "former_radius_mm": self.Rf if self.curved else None,
+            "thickness_mm": self.T,
+            "axis": "across the coupon (face y)",
+            "arc_length_mm": self.L,
+            "projected_length_mm": self.Lp,
+            "half_angle_deg": math.degrees(half),
+            "apex_face_x_mm": self.L / 2,
+            "projected_area_mm2": self.Lp * self.Wc,
+            "mapping": "x_plane_face = Lp/2 + R*sin((s - L/2)/R)",
+        }
+
+    # ------------------------------------------------------------------ geometry
+    def geometry(self, rng, *, shrink: float = 1.0) -> Geometry:
+        Wc = float(self.fixed_W or rng.uniform(10.0, 40.0))
+        T = float(self.fixed_T or rng.uniform(6.0, 25.0))
+        Rf = T * float(rng.choice([1.0, 1.5, 2.0, 3.0, 4.0]))  # former diameter 2T..8T
+        R = float(self.fixed_R or (Rf + T))
+        if self.fixed_R:
+            Rf = max(R - T, 0.0)
+        if not (5.0 <= Wc <= 80.0 and R > 0):
+            raise SynthError(f"coupon width {Wc:g} mm is out of range (use 10..40 mm)")
+        lmax = 150.0
+        if self.curved:
+            lmax = min(lmax, 2 * R * 1.25)  # half angle up to about 72 deg
+        L = float(self.fixed_L or max(20.0, rng.uniform(40.0, max(40.0, lmax)) * shrink))
+        if self.curved and L / (2 * R) >= math.pi / 2:
+            raise SynthError(f"bend arc {L:g} mm is more than half the circumference of radius {R:g} mm; shorten it")
+        self.L, self.R, self.T, self.Rf, self.Wc = L, R, T, Rf, Wc
+        self.Lp = 2 * R * math.sin(L / (2 * R)) if self.curved else L
+        face = np.array([[0, 0], [self.Lp, 0], [self.Lp, Wc], [0, Wc]], float)
+        if self.curved:
+            phi_max = min(math.radians(86), L / (2 * R) + math.radians(rng.uniform(8, 25)))
+            ext = R * math.sin(phi_max)
+            self.s_ext = (L / 2 - R * phi_max, L / 2 + R * phi_max)
+            spec = np.array([[self.Lp / 2 - ext, 0], [self.Lp / 2 + ext, 0], [self.Lp / 2 + ext, Wc], [self.Lp / 2 - ext, Wc]])
+            height = R + rng.uniform(20, 60)
+        else:
+            self.s_ext = (0.0, L)
+            spec = face.copy()
+            height = T
+        params = {"true_area_mm2": L * Wc, "coupon_thickness_mm": T}
+        self.geo = Geometry(face, L, Wc, "unknown", spec, float(height), params)
+        return self.geo
+
+    # ------------------------------------------------------------------ imperfections
+    def place(self, rng, defects, distractors: bool) -> Placed:
+        def mixed():
+            n = int(rng.choice(7, p=[0.12, 0.2, 0.2, 0.18, 0.12, 0.1, 0.08]))
+            return [{"kind": str(rng.choice(list(KIND_WEIGHTS), p=list(KIND_WEIGHTS.values())))} for _ in range(n)]
+
+        specs = parse_specs(defects, SPEC_KEYS, KIND_WEIGHTS, mixed, "bend")
+        out = place_specs(
+            rng, specs, self._make, self._fits, random_set=isinstance(defects, str),
+            where=f"on the {self.L:.0f} x {self.Wc:.0f} mm coupon surface",
+        )  # fmt: skip
+        dis = self._distractors(rng) if distractors else []
+        return Placed(out, dis)
+
+    def _fits(self, d: Defect, others, gap: float = 0.6) -> bool:
+        p = d.poly
+        m = 0.3
+        edge = d.extra.get("starts_at_edge", False)
+        if p[:, 0].min() < m or p[:, 0].max() > self.L - m:
+            return False
+        lo, hi = (-1e-9, self.Wc + 1e-9) if edge else (m, self.Wc - m)
+        if p[:, 1].min() < lo or p[:, 1].max() > hi:
+            return False
+        return clear_of(p, others, gap)
+
+    def _make(self, rng, s) -> Defect:
+        L, Wc = self.L, self.Wc
+        kind = s["kind"]
+        cx = s.get("x_mm")
+        cy = s.get("y_mm")
+        if kind == "pore":
+            if "a_mm" in s:
+                a, b = float(s["a_mm"]), float(s.get("b_mm", s["a_mm"]))
+                shape = "ellipse"
+            else:
+                d = float(s.get("d_mm") or _loguniform(rng, 0.4, 3.0))
+                if rng.random() < 0.25 and "d_mm" not in s:
+                    a, b, shape = d / 2, d / 2 / rng.uniform(1.1, 1.8), "ellipse"
+                else:
+                    a = b = d / 2
+                    shape = "circle"
+            ang = float(s.get("angle_deg", rng.uniform(0, 180)))
+            cx = float(cx if cx is not None else rng.uniform(0, L))
+            cy = float(cy if cy is not None else rng.uniform(0, Wc))
+            poly, an = _shapes.ellipse(cx, cy, a, b, ang)
+            sh = {"shape": shape, "cx_mm": cx, "cy_mm": cy, "a_mm": max(a, b), "b_mm": min(a, b), "angle_deg": ang if a >= b else ang + 90}
+            if shape == "circle":
+                sh["d_mm"] = 2 * a
+            return Defect("pore", "2017", poly, an, sh, {"cause": "pore"})
+        if kind == "inclusion":
+            g = float(s.get("length_mm") or _loguniform(rng, 0.5, 4.0))
+            w = float(s.get("width_mm") or g / rng.uniform(1.0, 2.2))
+            ang = float(s.get("angle_deg", rng.uniform(0, 180)))
+            cx = float(cx if cx is not None else rng.uniform(0, L))
+            cy = float(cy if cy is not None else rng.uniform(0, Wc))
+            poly = _shapes.blob(rng, cx, cy, g / 2, w / 2, ang, rough=0.22)
+            sh = {"shape": "blob", "cx_mm": cx, "cy_mm": cy, "nominal_length_mm": g, "nominal_width_mm": w, "angle_deg": ang}
+            return Defect("inclusion", "301", poly, None, sh, {"cause": "slag"})
+        # open discontinuity
+        length = float(s.get("length_mm") or _loguniform(rng, 0.5, 8.0))
+        width = float(s.get("width_mm") or rng.uniform(0.08, 0.35) * min(1.0, 0.5 + length / 8))
+        edge = s.get("edge")
+        if edge is None:
+            edge = str(rng.choice(["", "y0", "y1"], p=[0.75, 0.125, 0.125]))
+        if edge not in ("", "y0", "y1"):
+            raise SynthError(f"bend crack edge {edge!r} is unknown (use '', 'y0' or 'y1')")
+        if edge:
+            ang = float(s.get("angle_deg", rng.normal(90, 20)))
+            ang = ang if edge == "y0" else ang + 180.0
+            length = min(length, 0.8 * Wc)
+            x0 = float(cx if cx is not None else rng.uniform(0, L))
+            y0 = 0.0 if edge == "y0" else Wc
+            poly, _ = _shapes.crack(rng, x0, y0, length, width, ang, open_start=True)
+            poly[0, 1] = poly[-1, 1] = y0
+            poly[:, 1] = np.clip(poly[:, 1], 0.0, Wc)
+        else:
+            ang = float(s.get("angle_deg", rng.choice([rng.normal(90, 12), rng.uniform(0, 180)])))
+            length = min(length, 0.9 * Wc / max(abs(math.sin(math.radians(ang))), 0.1))
+            c, sn = math.cos(math.radians(ang)), math.sin(math.radians(ang))
+            cx = float(cx if cx is not None else rng.uniform(0, L))
+            cy = float(cy if cy is not None else rng.uniform(0, Wc))
+            poly, _ = _shapes.crack(rng, cx - c * length / 2, cy - sn * length / 2, length, width, ang)
+            x0, y0 = cx, cy
+        sh = {"shape": "crack", "x_mm": x0, "y_mm": y0, "chord_mm": length, "nominal_width_mm": width, "angle_deg": ang}
+        return Defect("crack", "100", poly, None, sh, {"cause": "", "starts_at_edge": bool(edge), "edge": edge})
+
+    def _distractors(self, rng) -> list:
+        L, Wc = self.L, self.Wc
+        out = []
+        self._specks = []
+        for _ in range(int(rng.integers(5, 40))):
+            p = (rng.uniform(0.3, L - 0.3), rng.uniform(0.3, Wc - 0.3))
+            self._specks.append((p, rng.uniform(0.04, 0.18), float(rng.choice([rng.uniform(0.1, 0.3), rng.uniform(0.85, 1.0)]))))
+            out.append(("speck", p))
+        self._scratches = []
+        for _ in range(int(rng.integers(0, 6))):
+            y = rng.uniform(0.5, Wc - 0.5)
+            x0 = rng.uniform(0, 0.7 * L)
+            self._scratches.append((x0, min(L, x0 + rng.uniform(5, 0.5 * L)), y, rng.uniform(0.03, 0.08)))
+            out.append(("grinding_mark", ((x0 + self._scratches[-1][1]) / 2, y)))
+        self._smudges = []
+        for _ in range(int(rng.choice(3, p=[0.5, 0.35, 0.15]))):
+            p = (rng.uniform(0, L), rng.uniform(0, Wc))
+            self._smudges.append((p, rng.uniform(2, 8), rng.uniform(0.1, 0.3)))
+            out.append(("smudge", p))
+        return out
+
+    # ------------------------------------------------------------------ rendering
+    def layers(self, rng, ctx: Context, placed: Placed) -> list[Layer]:
+        Wc = self.Wc
+        s0, s1 = self.s_ext
+        pad = 0.6
+        lo_s, hi_s = s0 - pad, s1 + pad
+        xp = self.to_layout(np.array([[s0, 0], [s1, 0]]))[:, 0]
+        area_p = (xp[1] - xp[0] + 2 * pad) * (Wc + 2 * pad)
+        r = layer_res(ctx, area_p, 1.6)
+        r = max(r, ctx.px_per_mm)
+        hs = int(math.ceil((Wc + 2 * pad) * r))
+        ws = int(math.ceil((hi_s - lo_s) * r))
+        A_s = grid_A(lo_s, -pad, r)
+        rgb = self._surface(rng, (hs, ws), r, A_s, ctx, placed)
+        # curvature shading per surface column
+        s_col = (np.arange(ws, dtype=np.float64) + 0.5) / r + lo_s
+        phi = (s_col - self.L / 2) / self.R if self.curved else np.zeros(ws)
+        Lv = ctx.light.vec()
+        # surface normal in the layout frame tilts along x with phi (z up towards the camera)
+        diffuse = np.clip(np.sin(phi) * Lv[0] + np.cos(phi) * Lv[2], 0.05, 1.0)
+        diffuse /= max(float(np.cos(0) * Lv[2]), 0.2)
+        hvec = Lv + np.array([0, 0, 1.0])
+        hvec /= np.linalg.norm(hvec)
+        phi_h = math.atan2(hvec[0], hvec[2])
+        width = math.radians(rng.uniform(4, 14))
+        spec = np.exp(-(((phi - phi_h) / width) ** 2)) * rng.uniform(0.15, 0.5)
+        shade = (0.45 + 0.55 * np.clip(diffuse, 0, 1.3)).astype(np.float32)
+        rgb *= shade[None, :, None]
+        rgb += spec.astype(np.float32)[None, :, None]
+        # rounded coupon edges: a highlight line and a dark line along both long edges
+        t = (np.arange(hs, dtype=np.float32) + 0.5) / np.float32(r) - np.float32(pad)
+        de = np.minimum(np.abs(t), np.abs(t - Wc))
+        rgb *= (1.0 - 0.35 * np.exp(-((de / 0.25) ** 2)))[:, None, None]
+        if not self.curved:
+            alpha = fill_alpha((hs, ws), [to_px(A_s, self.geo.specimen_poly)])
+            return [Layer(rgb.astype(np.float32), alpha, A_s)]
+        # remap the surface canvas onto the projected (layout) frame
+        x_lo, x_hi = xp[0] - pad, xp[1] + pad
+        wp = int(math.ceil((x_hi - x_lo) * r))
+        A_p = grid_A(x_lo, -pad, r)
+        xcol = (np.arange(wp, dtype=np.float64) + 0.5) / r + x_lo
+        s_of = self.to_surface_x(xcol)
+        comp = 1.0 / np.sqrt(np.clip(1 - ((xcol - self.Lp / 2) / self.R) ** 2, 1e-4, 1))  # ds/dx
+        src = (s_of - lo_s) * r - 0.5
+        out = np.zeros((hs, wp, 3), np.float32)
+        levels = [1.0, 1.6, 2.5, 4.0, 7.0]
+        which = np.argmin(np.abs(np.log(comp[:, None]) - np.log(np.array(levels))[None, :]), axis=1)
+        map_y = np.repeat(np.arange(hs, dtype=np.float32)[:, None], wp, axis=1)
+        map_x = np.repeat(src.astype(np.float32)[None, :], hs, axis=0)
+        for k, c in enumerate(levels):
+            cols = which == k
+            if not cols.any():
+                continue
+            sig = 0.45 * math.sqrt(c * c - 1)
+            img = cv2.GaussianBlur(rgb, (0, 0), sigmaX=sig, sigmaY=0.01) if sig > 0.25 else rgb
+            res = cv2.remap(img, map_x, map_y, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
+            out[:, cols] = res[:, cols]
+        spec_poly = self.geo.specimen_poly
+        alpha = fill_alpha((hs, wp), [to_px(A_p, spec_poly)])
+        return [Layer(out, alpha, A_p)]
+
+    def _surface(self, rng, shape, r, A, ctx: Context, placed: Placed) -> np.ndarray:
+        """Ground, stretched metal in surface mm: grinding marks, orange peel, weld zone."""
+        h, w = shape
+        g = rng.uniform(0.5, 0.75)
+        base = np.array([g, g * rng.uniform(0.98, 1.01), g * rng.uniform(0.98, 1.04)], np.float32)
+        marks = _noise.fractal(rng, shape, rng.uniform(15, 40) * r, cell_y=max(rng.uniform(0.04, 0.15) * r, 0.6), angle_deg=float(rng.normal(0, 2)), octaves=3)
+        peel_cell = rng.uniform(0.25, 0.8)
+        peel_h = _noise.fractal(rng, shape, 1.5 * peel_cell * r, cell_y=peel_cell * r, octaves=3) * np.float32(rng.uniform(0.1, 0.3) * r)
+        peel = _noise.shade(peel_h, ctx.light.azimuth_deg, strength=0.5)
+        lum = 1.0 + np.float32(rng.uniform(0.03, 0.09)) * marks + peel + 0.03 * _noise.fractal(rng, shape, 10 * r)
+        # the weld zone across the coupon: a slightly different tone between two fusion lines
+        X = (np.arange(w, dtype=np.float32) + 0.5) / np.float32(r) + np.float32(A[0, 2] - 0.5 / r)
+        wz = rng.uniform(6, 25)
+        c = self.L / 2 + rng.normal(0, 0.1 * self.L)
+        wzone = np.clip(1 - np.abs(X - c) / (wz / 2), 0, 1) ** 0.3
+        lum *= (1 + np.float32(rng.uniform(-0.08, 0.08)) * wzone)[None, :]
+        rgb = lum[..., None] * base
+        tint = rng.random() < 0.3
+        if tint:  # faint heat tint left from welding or a light etch
+            tcol = np.array([1.04, 1.0, 0.9], np.float32) if rng.random() < 0.5 else np.array([0.95, 0.98, 1.06], np.float32)
+            rgb *= (1 + (tcol - 1)[None, None, :] * wzone[None, :, None])
+        for x0, x1, y, wid in getattr(self, "_scratches", []):
+            pts = np.array([[x0, y], [x1, y]])
+            pp = to_px(A, pts)
+            m = np.zeros(shape, np.uint8)
+            cv2.line(m, tuple(np.round(pp[0] * 16).astype(int)), tuple(np.round(pp[1] * 16).astype(int)), 255, max(1, int(round(wid * r))), cv2.LINE_AA, shift=4)
+            rgb *= (1 - 0.18 * m.astype(np.float32)[..., None] / 255.0)
+        for p, size, k in getattr(self, "_smudges", []):
+            paint_smudge(rgb, A, p[0], p[1], size, rng, strength=k)
+        for d in placed.defects:
+            paint_defect(rgb, A, d, rng, ctx.light)
+        for p, size, tone in getattr(self, "_specks", []):
+            paint_speck(rgb, A, p[0], p[1], size, tone)
+        return rgb.astype(np.float32)
