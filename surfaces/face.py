@@ -120,6 +120,9 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
     else:
         small, small_rgb, Hs = gray, rgb, calib.H
     energy_photo = _texture_energy(small, px_per_mm=ppm * f, fine_mm=0.25, window_mm=0.6)
+    # granular fracture texture is isotropic; brushed plate, weld ripples and
+    # grinding marks are oriented: damp the energy by the structure-tensor coherence
+    energy_photo *= 1.0 - _coherence(small, sigma_px=1.0 * ppm * f)
     valid_photo = np.ones(small.shape, np.uint8)
     M = np.linalg.inv(Hs) @ A
     warp = lambda im, interp=cv2.INTER_LINEAR: cv2.warpPerspective(  # noqa: E731
@@ -158,26 +161,28 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
     e *= np.clip(1.2 - sat / 120.0, 0.2, 1.0)
     e[~allowed] = 0
     vals = e[allowed]
-    thr = _otsu(vals)
-    cand = (e > thr) & allowed
-    k = max(1, int(round(0.8 * s)))
-    cand = cv2.morphologyEx(cand.astype(np.uint8), cv2.MORPH_CLOSE, np.ones((2 * k + 1, 2 * k + 1), np.uint8))
-    cand = cv2.morphologyEx(cand, cv2.MORPH_OPEN, np.ones((k + 1, k + 1), np.uint8))
-    n, lab, stats, cents = cv2.connectedComponentsWithStats(cand, connectivity=8)
+    out_level = float(np.median(vals))
     best, best_score = None, -1.0
-    for i in range(1, n):
-        area_mm2 = stats[i, cv2.CC_STAT_AREA] / s**2
-        if area_mm2 < 15:
-            continue
-        ys, xs = np.nonzero(lab == i)
-        pts = np.c_[xs, ys].astype(np.float32)
-        (cx, cy), (rw, rh), ang = cv2.minAreaRect(pts)
-        L, Wd = max(rw, rh) / s, max(min(rw, rh), 1) / s
-        fill = area_mm2 / max(L * Wd, 1e-6)
-        contrast = float(np.median(e[lab == i])) / max(thr, 1e-6)
-        score = area_mm2 * min(fill, 1.0) ** 2 * min(contrast, 3.0)
-        if score > best_score:
-            best_score, best = score, (pts, fill, contrast)
+    k = max(1, int(round(0.8 * s)))
+    for thr in _thresholds(vals):
+        cand = (e > thr) & allowed
+        cand = cv2.morphologyEx(cand.astype(np.uint8), cv2.MORPH_CLOSE, np.ones((2 * k + 1, 2 * k + 1), np.uint8))
+        cand = cv2.morphologyEx(cand, cv2.MORPH_OPEN, np.ones((k + 1, k + 1), np.uint8))
+        n, lab, stats, cents = cv2.connectedComponentsWithStats(cand, connectivity=8)
+        for i in range(1, n):
+            area_mm2 = stats[i, cv2.CC_STAT_AREA] / s**2
+            if area_mm2 < 15:
+                continue
+            ys, xs = np.nonzero(lab == i)
+            pts = np.c_[xs, ys].astype(np.float32)
+            (cx, cy), (rw, rh), ang = cv2.minAreaRect(pts)
+            L, Wd = max(rw, rh) / s, max(min(rw, rh), 1) / s
+            fill = area_mm2 / max(L * Wd, 1e-6)
+            # texture contrast of the region against the search area's typical level
+            contrast = float(np.median(e[ys, xs])) / max(out_level, 1e-6)
+            score = math.sqrt(area_mm2) * min(fill, 1.0) ** 2 * min(contrast, 8.0)
+            if score > best_score:
+                best_score, best = score, (pts, fill, contrast)
     if best is None:
         raise FaceError(
             "could not find the face automatically: give --roi X0,Y0,X1,Y1 (a rough box around the face in photo pixels)"
@@ -189,6 +194,32 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
         rw, rh = rh, rw
     centre = lo + (np.array([cx, cy]) + 0.5) / s
     return centre, float(ang), rw / s, rh / s, float(min(fill, 1.0)), where
+
+
+def _coherence(gray: np.ndarray, *, sigma_px: float) -> np.ndarray:
+    """Structure-tensor coherence ((l1 - l2) / (l1 + l2)), 0 isotropic .. 1 oriented."""
+    g = gray.astype(np.float32)
+    gx = cv2.Sobel(g, cv2.CV_32F, 1, 0, ksize=3)
+    gy = cv2.Sobel(g, cv2.CV_32F, 0, 1, ksize=3)
+    s = max(sigma_px, 0.8)
+    jxx = cv2.GaussianBlur(gx * gx, (0, 0), s)
+    jyy = cv2.GaussianBlur(gy * gy, (0, 0), s)
+    jxy = cv2.GaussianBlur(gx * gy, (0, 0), s)
+    return np.clip(np.sqrt((jxx - jyy) ** 2 + 4 * jxy**2) / (jxx + jyy + 1e-6), 0, 1)
+
+
+def _thresholds(vals: np.ndarray) -> list[float]:
+    """Candidate texture thresholds: Otsu, and the upper class split of a 3-class Otsu."""
+    from skimage.filters import threshold_multiotsu
+
+    out = [_otsu(vals)]
+    v = vals[np.isfinite(vals)]
+    if v.size > 100:
+        try:
+            out.extend(float(t) for t in threshold_multiotsu(v, classes=3))
+        except ValueError:
+            pass
+    return sorted(set(out))
 
 
 def _otsu(vals: np.ndarray) -> float:
@@ -205,8 +236,13 @@ def _otsu(vals: np.ndarray) -> float:
 # fine edges
 
 
-def _edge_from_profile(profile: np.ndarray, inside: slice, outside_lo: slice, outside_hi: slice):
-    """Sub-pixel positions where ``profile`` crosses half-way inside/outside, each side."""
+def _edge_from_profile(profile: np.ndarray, inside: slice, outside_lo: slice, outside_hi: slice, *, persist: int = 1):
+    """Sub-pixel positions where ``profile`` crosses half-way inside/outside, each side.
+
+    Walking out from the centre, a crossing counts only when the profile then
+    stays on the outside level for ``persist`` samples, so a short internal
+    dip (a smooth unfused patch across the face) is not taken for an end.
+    """
     p = np.asarray(profile, dtype=np.float64)
     inner = float(np.median(p[inside]))
     out_l = float(np.median(p[outside_lo])) if p[outside_lo].size else inner * 0.3
@@ -214,11 +250,13 @@ def _edge_from_profile(profile: np.ndarray, inside: slice, outside_lo: slice, ou
     c = (inside.start + inside.stop) // 2
 
     def cross(level, rng):
-        prev = None
-        for i in rng:
-            if prev is not None and (p[prev] - level) * (p[i] - level) <= 0 and p[prev] != p[i]:
-                return prev + (level - p[prev]) / (p[i] - p[prev]) * (i - prev)
-            prev = i
+        idx = list(rng)
+        for k in range(1, len(idx)):
+            a, b = idx[k - 1], idx[k]
+            if p[a] >= level > p[b]:
+                after = [p[j] for j in idx[k : k + persist]]
+                if len(after) < persist or max(after) < level:
+                    return a + (level - p[a]) / (p[b] - p[a]) * (b - a)
         return None
 
     lvl_l = 0.5 * (inner + out_l)
@@ -227,6 +265,30 @@ def _edge_from_profile(profile: np.ndarray, inside: slice, outside_lo: slice, ou
     hi_edge = cross(lvl_h, range(c, len(p)))
     contrast = min(inner - out_l, inner - out_h) / max(inner, 1e-6)
     return lo_edge, hi_edge, contrast
+
+
+def _snap_to_step(profile: np.ndarray, pos: float, *, win: int) -> float:
+    """Move an edge estimate to the strongest brightness step within ``win`` samples.
+
+    The texture profile locates the face; where the face also differs in
+    brightness from its surroundings, the brightness step is the sharper
+    edge.  The step is taken only when it clearly stands out of the profile's
+    own sample-to-sample noise; its sub-sample position is the vertex of a
+    parabola through the gradient peak.
+    """
+    p = np.asarray(profile, dtype=np.float64)
+    grad = np.abs(np.gradient(p))
+    i0, i1 = max(1, int(pos) - win), min(len(p) - 2, int(pos) + win)
+    if i1 <= i0:
+        return pos
+    noise = 1.4826 * float(np.median(np.abs(np.diff(p) - np.median(np.diff(p))))) + 1e-6
+    k = i0 + int(np.argmax(grad[i0 : i1 + 1]))
+    if grad[k] < 4 * noise:
+        return pos
+    a, b, c = grad[k - 1], grad[k], grad[k + 1]
+    den = a - 2 * b + c
+    off = 0.5 * (a - c) / den if abs(den) > 1e-12 else 0.0
+    return float(k + np.clip(off, -0.5, 0.5))
 
 
 def find_face(
@@ -267,28 +329,44 @@ def find_face(
 
     # fine pass: rectify the face with a margin, find its edges from texture profiles
     margin = max(3.0, 0.6 * Wd)
-    ox, oy = -L / 2 - margin, -Wd / 2 - margin
-    w = int(math.ceil((L + 2 * margin) * px_per_mm))
+    margin_x = max(5.0, 0.35 * L)
+    ox, oy = -L / 2 - margin_x, -Wd / 2 - margin
+    w = int(math.ceil((L + 2 * margin_x) * px_per_mm))
     h = int(math.ceil((Wd + 2 * margin) * px_per_mm))
     A = face_frame(centre, axis, (ox, oy), px_per_mm=px_per_mm)
     g = warp_to_face(gray, calib.H, A, (h, w))
     e = _texture_energy(g, px_per_mm=px_per_mm, fine_mm=0.12, window_mm=0.35)
+    e *= 1.0 - _coherence(g, sigma_px=0.5 * px_per_mm)
     mrow = int(margin * px_per_mm * 0.6)
     core_c = slice(int(w * 0.5 - L * px_per_mm * 0.3), int(w * 0.5 + L * px_per_mm * 0.3) + 1)
+    e = e * e  # blurred energy is linear in the blur: its half-level is the edge (sqrt would bias outward)
+    gi = cv2.GaussianBlur(g.astype(np.float32), (0, 0), 0.08 * px_per_mm)
     prof_y = np.median(e[:, core_c], axis=1)
     inside_y = slice(int(h / 2 - Wd * px_per_mm * 0.25), int(h / 2 + Wd * px_per_mm * 0.25) + 1)
-    y_lo, y_hi, c_y = _edge_from_profile(prof_y, inside_y, slice(0, mrow), slice(h - mrow, h))
+    y_lo, y_hi, c_y = _edge_from_profile(
+        prof_y, inside_y, slice(0, mrow), slice(h - mrow, h), persist=int(0.4 * px_per_mm)
+    )
     if y_lo is None or y_hi is None:
         y_lo, y_hi = margin * px_per_mm, (margin + Wd) * px_per_mm
         warnings.append("face edges across the weld are unclear: width taken from the coarse outline")
+    else:
+        prof_i = np.median(gi[:, core_c], axis=1)
+        y_lo = _snap_to_step(prof_i, y_lo, win=int(0.8 * px_per_mm))
+        y_hi = _snap_to_step(prof_i, y_hi, win=int(0.8 * px_per_mm))
     band = slice(int(math.ceil(y_lo + 0.15 * (y_hi - y_lo))), int(y_hi - 0.15 * (y_hi - y_lo)) + 1)
     prof_x = np.median(e[band, :], axis=0)
     inside_x = slice(int(w / 2 - L * px_per_mm * 0.25), int(w / 2 + L * px_per_mm * 0.25) + 1)
-    mcol = int(margin * px_per_mm * 0.6)
-    x_lo, x_hi, c_x = _edge_from_profile(prof_x, inside_x, slice(0, mcol), slice(w - mcol, w))
+    mcol = int(margin_x * px_per_mm * 0.6)
+    x_lo, x_hi, c_x = _edge_from_profile(
+        prof_x, inside_x, slice(0, mcol), slice(w - mcol, w), persist=int(2.0 * px_per_mm)
+    )
     if x_lo is None or x_hi is None:
-        x_lo, x_hi = margin * px_per_mm, (margin + L) * px_per_mm
+        x_lo, x_hi = margin_x * px_per_mm, (margin_x + L) * px_per_mm
         warnings.append("face ends are unclear: length taken from the coarse outline")
+    else:
+        prof_i = np.median(gi[band, :], axis=0)
+        x_lo = _snap_to_step(prof_i, x_lo, win=int(0.8 * px_per_mm))
+        x_hi = _snap_to_step(prof_i, x_hi, win=int(0.8 * px_per_mm))
     # edges in face-centred mm (pixel centre i sits at o + (i + .5)/ppm)
     fx0, fx1 = ox + (x_lo + 0.5) / px_per_mm, ox + (x_hi + 0.5) / px_per_mm
     fy0, fy1 = oy + (y_lo + 0.5) / px_per_mm, oy + (y_hi + 0.5) / px_per_mm
