@@ -110,7 +110,7 @@ def test_calibration_feedback_found_marker(at, photos):
     metrics = {m.label: m.value for m in at.metric}
     assert metrics["Reference marker"] == "found"
     truth = json.loads(photos["truth"].read_text())["px_per_mm_face"]
-    shown = float(metrics["Scale at the face"].split()[0])
+    shown = float(metrics["Scale at the face (px/mm)"])
     # truth by construction of the synthetic photo: its scale at the face centre
     assert shown == pytest.approx(truth, rel=0.03)
     assert metrics["Scale uncertainty (1σ)"].startswith("± ")
@@ -129,7 +129,7 @@ def test_no_marker_gives_advice_and_the_typed_scale_works(at, photos):
     assert not at.exception
     metrics = {m.label: m.value for m in at.metric}
     assert metrics["Reference marker"] == "not used"
-    assert metrics["Scale at the face"].startswith("8.00")
+    assert metrics["Scale at the face (px/mm)"] == "8.00"
     text = " ".join(i.value for i in at.info)
     assert "no perspective correction" in text
 

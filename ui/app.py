@@ -143,33 +143,33 @@ def photo_input() -> tuple[bytes, str, str] | None:
 
 def coupon_and_settings() -> tuple[dict, Settings, object]:
     """Coupon fields, Settings and the chosen limit set from the widgets."""
-    c1, c2, c3 = st.columns(3)
+    c1, c2, c3, c4 = st.columns(4)
     coupon = {
         "id": c1.text_input("Coupon id", key="c_id", placeholder="stamped number, e.g. C-0417"),
         "welder": c2.text_input("Welder id", key="c_welder"),
         "procedure": c3.text_input("Procedure (WPS)", key="c_procedure"),
-        "process": c1.text_input("Process", key="c_process", placeholder="e.g. 135 or SMAW"),
-        "position": c2.text_input("Position", key="c_position", placeholder="e.g. PB / 2F"),
-        "material": c3.text_input("Material", key="c_material"),
+        "process": c4.text_input("Process", key="c_process", placeholder="e.g. 135 or SMAW"),
+        "position": c1.text_input("Position", key="c_position", placeholder="e.g. PB / 2F"),
+        "material": c2.text_input("Material", key="c_material"),
     }
-    test = c1.selectbox("Test", TEST_TYPES, format_func=TEST_NAMES.get, key="c_test")
+    test = c3.selectbox("Test", TEST_TYPES, format_func=TEST_NAMES.get, key="c_test")
     sets = limit_sets_for(test)
     names = [s.name for s in sets]
     labels = {s.name: f"{s.title or s.name}" + ("" if s.kind == "preset" else "  (your own)") for s in sets}
-    pick = c2.selectbox("Limit set", names, format_func=lambda n: labels.get(n, n), key=f"c_limits_{test}")
+    pick = c4.selectbox("Limit set", names, format_func=lambda n: labels.get(n, n), key=f"c_limits_{test}")
     limit_set = next(s for s in sets if s.name == pick)
     nominal: dict = {}
-    nominal["thickness_mm"] = c3.number_input("Plate / wall thickness t (mm)", min_value=0.0, value=None,
+    nominal["thickness_mm"] = c1.number_input("Plate / wall thickness t (mm)", min_value=0.0, value=None,
                                               step=0.5, key="c_thickness")
     if test == "fillet-break":
-        nominal["throat_mm"] = c1.number_input("Throat a (mm)", min_value=0.0, value=None, step=0.5, key="c_throat")
+        nominal["throat_mm"] = c2.number_input("Throat a (mm)", min_value=0.0, value=None, step=0.5, key="c_throat")
     if test == "nick-break":
-        nominal["wall_mm"] = c1.number_input("Pipe wall (mm)", min_value=0.0, value=None, step=0.5, key="c_wall")
+        nominal["wall_mm"] = c2.number_input("Pipe wall (mm)", min_value=0.0, value=None, step=0.5, key="c_wall")
     bend_angle = former = None
     if test == "bend":
-        bend_angle = c1.number_input("Bend angle (°)", min_value=0.0, max_value=200.0, value=None, step=5.0,
+        bend_angle = c2.number_input("Bend angle (°)", min_value=0.0, max_value=200.0, value=None, step=5.0,
                                      key="c_bend_angle")
-        former = c2.number_input("Former diameter (mm)", min_value=0.0, value=None, step=1.0, key="c_former")
+        former = c4.number_input("Former diameter (mm)", min_value=0.0, value=None, step=1.0, key="c_former")
     nominal["length_mm"] = c3.number_input("Length examined (mm, optional)", min_value=0.0, value=None,
                                            step=5.0, key="c_length")
     nominal = {k: float(v) for k, v in nominal.items() if v not in (None, 0, 0.0)}
@@ -217,32 +217,40 @@ def view_assess() -> None:
     w = S.current()
     if (failure or bad_input) and w is not None:
         st.caption(f"Below: the last photo that worked in this session ({w.name}). Your earlier work is kept.")
-    scale_panel(w, failure, picked is not None)
-    if failure and failure[1] == "FaceError" and st.session_state.get("failed_photo"):
-        sha, Wp, Hp = st.session_state["failed_photo"]
-        with st.container(border=True, key="step_face_failed"):
-            st.subheader("3 · Face region")
-            st.markdown("Draw a rough box around the face (photo pixels: x to the right, y down from the "
-                        "top-left corner) and run again.")
-            face_box_inputs(sha, Wp, Hp, (Wp * 0.25, Hp * 0.25, Wp * 0.75, Hp * 0.75), "failed")
+    left, right = st.columns([2, 3], gap="medium")
+    with left:
+        scale_panel(w, failure, picked is not None)
+        if failure and failure[1] == "FaceError" and st.session_state.get("failed_photo"):
+            sha, Wp, Hp = st.session_state["failed_photo"]
+            with st.container(border=True, key="step_face_failed"):
+                st.subheader("3 · Face region")
+                st.markdown("Draw a rough box around the face (photo pixels: x to the right, y down from the "
+                            "top-left corner) and run again.")
+                face_box_inputs(sha, Wp, Hp, (Wp * 0.25, Hp * 0.25, Wp * 0.75, Hp * 0.75), "failed")
     if w is None:
         if picked is None:
-            st.info("Choose a photo above to start. No card? Print one with `surfaces card --out card.pdf`.")
+            with right:
+                st.info("Choose a photo above to start. No card? Print one with `surfaces card --out card.pdf`.")
         return
-    if picked is None or S.work_key(S.sha256(picked[0]), settings) != w.key:
-        # the shown work may be an earlier one: judge it with its own settings
+    if picked is None or S.work_key(S.sha256(picked[0]), replace(
+            settings, roi=st.session_state.get("roi", {}).get(S.sha256(picked[0])))) != w.key:
+        # the shown work is an earlier one: judge it with its own test type
         shown_settings = replace(w.settings, limits=limit_set.name) if limit_set.applies_to(w.settings.test) \
             else w.settings
-        if shown_settings.test != settings.test:
+        if not limit_set.applies_to(w.settings.test):
             limit_set = L.load_limit_set(w.settings.limits or L.default_preset_for(w.settings.test))
     else:
-        shown_settings = settings
+        shown_settings = replace(settings, roi=w.settings.roi)
         w.coupon = coupon
     w.settings = shown_settings
+    w.review.reviewer = st.session_state.get("reviewer") or ""
     auto = w.auto(shown_settings, limit_set)
     reviewed = R.reviewed_assessment(auto, w.review, limit_set)
-    face_panel(w, auto)
-    results_panel(w, auto, reviewed)
+    with left:
+        face_panel(w, auto)
+    with right:
+        verdict_panel(w, auto, reviewed)
+    pictures_panel(w, auto, reviewed)
     review_panel(w, auto)
     save_panel(w, auto, reviewed)
 
@@ -294,14 +302,16 @@ def scale_panel(w, failure, have_input: bool) -> None:
         elif w is not None:
             cal = w.auto_base.get("calibration") or {}
             markers = cal.get("markers") or []
-            c = st.columns(4)
+            c = [*st.columns(2), *st.columns(2)]
             if cal.get("method") in ("marker", "markers") and markers:
                 m = markers[0]
                 c[0].metric("Reference marker", "found" if len(markers) == 1 else f"{len(markers)} found",
-                            f"id {m.get('id')}, {m.get('side_px', 0):.0f} px across", delta_color="off")
+                            f"id {m.get('id')}, {m.get('side_px', 0):.0f} px across", delta_color="off",
+                            delta_arrow="off")
             else:
-                c[0].metric("Reference marker", "not used", f"scale: {cal.get('method')}", delta_color="off")
-            c[1].metric("Scale at the face", f"{cal.get('px_per_mm', float('nan')):.2f} px/mm")
+                c[0].metric("Reference marker", "not used", f"scale: {cal.get('method')}", delta_color="off",
+                            delta_arrow="off")
+            c[1].metric("Scale at the face (px/mm)", f"{cal.get('px_per_mm', float('nan')):.2f}")
             tilt = cal.get("tilt_deg")
             c[2].metric("Camera tilt", "unknown" if tilt is None else f"{tilt:.0f}°")
             c[3].metric("Scale uncertainty (1σ)", f"± {cal.get('uncertainty_pct', float('nan')):.2f} %")
@@ -370,44 +380,53 @@ def _overlay(w, reviewed: dict):
     return cache
 
 
-def results_panel(w, auto: dict, reviewed: dict) -> None:
-    rows = reviewed.get("imperfections") or []
+def verdict_panel(w, auto: dict, reviewed: dict) -> None:
     with st.container(border=True, key="step_result"):
         st.subheader("4 · Result")
         if w.review.touched:
-            a, b = st.columns([3, 2])
-            with a:
-                verdict_banner(reviewed["verdict"], title="After your review", key="verdict")
-            with b:
-                verdict_banner(auto["verdict"], title="Automatic result (kept in the record)", big=False,
-                               key="verdict_auto")
+            verdict_banner(reviewed["verdict"], title="After your review", key="verdict")
+            verdict_banner(auto["verdict"], title="Automatic result (kept in the record)", big=False,
+                           key="verdict_auto")
         else:
             verdict_banner(auto["verdict"], title="Automatic result (not yet reviewed)", key="verdict")
+        shown = set((auto.get("calibration") or {}).get("warnings") or []) | set(
+            (auto.get("face") or {}).get("warnings") or [])
         for warning in auto.get("warnings") or []:
-            if warning not in ((auto.get("calibration") or {}).get("warnings") or []) \
-                    and warning not in ((auto.get("face") or {}).get("warnings") or []):
+            if warning not in shown:
                 st.warning(f":material/warning: {warning}")
         cautions_box(auto)
+
+
+def pictures_panel(w, auto: dict, reviewed: dict) -> None:
+    rows = reviewed.get("imperfections") or []
+    with st.container(border=True, key="step_pictures"):
+        st.subheader("Pictures and measurements")
         if w.photo is not None:
-            ov = _overlay(w, reviewed)
             tab_photo, tab_face = st.tabs(["Photo with numbered outlines", "Rectified face"])
             with tab_photo:
-                opts = ["the whole photo"] + [f"{r['id']} · {KIND_NAMES.get(r['kind'], r['kind'])}" for r in rows]
+                opts = ["the face", "the whole photo"] + [
+                    f"{r['id']} · {KIND_NAMES.get(r['kind'], r['kind'])}" for r in rows]
                 z1, z2 = st.columns([3, 2])
                 pick = z1.selectbox("Zoom on", opts, key=f"zoom_on_{w.key}")
-                zoom = z2.slider("Zoom", 1, 12, 4, key=f"zoom_{w.key}", disabled=pick == opts[0])
-                if pick == opts[0]:
-                    st.image(ov["jpeg"], caption=f"{w.name}: outlines numbered as in the table",
+                zoom = z2.slider("Zoom", 1, 12, 4, key=f"zoom_{w.key}", disabled=pick in opts[:2])
+                if pick == opts[1]:
+                    st.image(_overlay(w, reviewed)["jpeg"], caption=f"{w.name}: outlines numbered as in the table",
                              width="stretch")
                 else:
-                    row = rows[opts.index(pick) - 1]
-                    box = H.zoom_box(row.get("bbox_px") or row.get("centroid_px") * 2,
-                                     (w.photo.width, w.photo.height), zoom=zoom)
-                    crop = H.crop_overlay(ov["img"], ov["layout"], box)
-                    st.image(H.encode_jpeg(H.fit_width(crop, max_w=1600, min_h=480)),
-                             caption=f"imperfection {row['id']} ({KIND_NAMES.get(row['kind'], row['kind'])}, "
-                                     f"{H.fmt_pm(row.get('greatest_mm'), row.get('greatest_u_mm'))} mm); "
-                                     f"photo pixels {box[0]}..{box[2]} × {box[1]}..{box[3]}",
+                    if pick == opts[0]:
+                        poly = np.asarray((auto.get("face") or {}).get("polygon_px") or [[0, 0], [w.photo.width,
+                                                                                                w.photo.height]])
+                        bbox, z, what = [*poly.min(axis=0), *poly.max(axis=0)], None, "the face"
+                    else:
+                        row = rows[opts.index(pick) - 2]
+                        bbox = row.get("bbox_px") or (list(row.get("centroid_px")) * 2)
+                        z = zoom
+                        what = (f"imperfection {row['id']} ({KIND_NAMES.get(row['kind'], row['kind'])}, "
+                                f"{H.fmt_pm(row.get('greatest_mm'), row.get('greatest_u_mm'))} mm)")
+                    box = (H.margin_box(bbox, (w.photo.width, w.photo.height)) if z is None
+                           else H.zoom_box(bbox, (w.photo.width, w.photo.height), zoom=z))
+                    view = _zoomed(w, reviewed, box)
+                    st.image(view, caption=f"{what}; photo pixels x {box[0]}..{box[2]}, y {box[1]}..{box[3]}",
                              width="stretch")
             with tab_face:
                 face = auto.get("face") or {}
@@ -425,6 +444,19 @@ def results_panel(w, auto: dict, reviewed: dict) -> None:
                     f"{sum(r.get('status') == 'dismissed' for r in rows)} dismissed. Sizes in mm on the face "
                     "plane, ± one standard uncertainty.")
         st.dataframe(imperfection_frame(rows), hide_index=True, width="stretch", key=f"table_{w.key}")
+
+
+def _zoomed(w, reviewed: dict, box) -> bytes:
+    """JPEG of the core's overlay drawn on the enlarged crop ``box`` (kept until the review or box changes)."""
+    sig = json.dumps([box, [(r.get("id"), r.get("kind"), r.get("status"), r.get("greatest_mm"))
+                            for r in reviewed.get("imperfections") or []], reviewed["verdict"]["result"]],
+                     default=str)
+    cache = w._judged.setdefault("_zoom", {})
+    if cache.get("sig") != sig:
+        img = H.zoom_view(w.photo.rgb, reviewed, box, render=report.render_overlay, long_side=1600)
+        cache.clear()
+        cache.update(sig=sig, jpeg=H.encode_jpeg(img))
+    return cache["jpeg"]
 
 
 def imperfection_frame(rows: list[dict]) -> pd.DataFrame:
@@ -445,8 +477,8 @@ def imperfection_frame(rows: list[dict]) -> pd.DataFrame:
                        "edited": "edited"}.get(r.get("status"), r.get("status")),
             "source": "added by inspector" if r.get("source") == "manual" else "found by tool",
         })
-    cols = ["#", "kind", "ISO 6520-1", "greatest (mm)", "width (mm)", "along weld (mm)", "across (mm)",
-            "area (mm²)", "confidence", "at edge/root", "review", "source"]
+    cols = ["#", "kind", "review", "greatest (mm)", "width (mm)", "along weld (mm)", "across (mm)",
+            "area (mm²)", "confidence", "at edge/root", "ISO 6520-1", "source"]
     return pd.DataFrame(out, columns=cols)
 
 
@@ -472,6 +504,9 @@ def _on_text(w, attr: str, wkey: str) -> None:
     setattr(w.review, attr, st.session_state[wkey] or "")
 
 
+_REVIEW_COLS = [2.6, 3.0, 1.7, 1.1, 1.1]
+
+
 def review_panel(w, auto: dict) -> None:
     rows = auto.get("imperfections") or []
     with st.container(border=True, key="step_review"):
@@ -479,14 +514,14 @@ def review_panel(w, auto: dict) -> None:
         st.caption("Confirm or dismiss each detection, change its kind or sizes, and add what the tool missed. "
                    "The verdict above is judged again at once from your list; the automatic result is kept.")
         if rows:
-            head = st.columns([2.4, 2.6, 1.8, 1.3, 1.3])
+            head = st.columns(_REVIEW_COLS)
             for col, text in zip(head, ("imperfection", "decision", "kind", "greatest (mm)", "width (mm)")):
                 col.markdown(f"**{text}**")
         for r in rows:
             rid = int(r["id"])
             e = w.review.edits.get(rid) or R.Edit()
             with st.container(key=f"rv_row_{rid}"):
-                c = st.columns([2.4, 2.6, 1.8, 1.3, 1.3], vertical_alignment="center")
+                c = st.columns(_REVIEW_COLS, vertical_alignment="center")
                 c[0].markdown(f"**{rid}** · {KIND_NAMES.get(r['kind'], r['kind'])} · "
                               f"{H.fmt_pm(r.get('greatest_mm'), r.get('greatest_u_mm'))} mm · "
                               f"confidence {float(r.get('confidence') or 0):.2f}")
@@ -543,7 +578,6 @@ def review_panel(w, auto: dict) -> None:
                         st.rerun()
         k1, k2 = st.columns([1, 2])
         k1.text_input("Reviewed by (your name)", key="reviewer")
-        w.review.reviewer = st.session_state.get("reviewer") or ""
         k = f"note_{w.key}"
         k2.text_area("Review note", value=w.review.note, key=k, height=80, on_change=_on_text, args=(w, "note", k))
 

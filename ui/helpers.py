@@ -85,28 +85,29 @@ def fmt_pm(v, u, nd: int = 2) -> str:
 
 
 def calibration_hints(calibration: dict) -> list[str]:
-    """Plain-language advice when the photo's scale is weak (in addition to the core's warnings).
+    """Plain-language advice when the photo's scale is weak, beyond the core's own warnings.
 
     Thresholds are the page's own rules of thumb (common practice for
-    photographing a target): a scale known to better than 1 %, a marker of
-    at least 10 px per square, a camera within 20 degrees of square-on.
+    photographing a target): a scale known to better than 1.5 %, a marker of
+    at least 10 px per square, a camera within 20 degrees of square-on.  A
+    topic the core already warned about is not repeated.
     """
     hints: list[str] = []
+    said = " ".join(calibration.get("warnings") or []).lower()
     method = calibration.get("method")
     if method in ("px-per-mm", "ruler"):
         hints.append("The scale was typed by hand: there is no perspective correction, so hold the camera "
                      "square to the face and keep the ruler or card on the face plane.")
         return hints
     unc = calibration.get("uncertainty_pct")
-    if unc is not None and unc > 1.0:
+    if unc is not None and unc > 1.5 and "uncertain" not in said:
         hints.append(f"The scale is uncertain by {unc:.1f} % (1 sigma): sizes near a limit will come out as "
                      "REVIEW. Put the card right beside the face and fill more of the frame with both.")
     markers = calibration.get("markers") or []
-    small = [m for m in markers if (m.get("module_px") or 99) < 10]
-    if small:
+    if any((m.get("module_px") or 99) < 10 for m in markers) and "too small" not in said:
         hints.append("The marker is small in the photo (under 10 px per square): move closer or print a bigger card.")
     tilt = calibration.get("tilt_deg")
-    if tilt is not None and tilt > 20:
+    if tilt is not None and tilt > 20 and "tilt" not in said:
         hints.append(f"The camera is about {tilt:.0f}° from square-on: hold it straight above the face.")
     return hints
 
@@ -155,15 +156,17 @@ def zoom_box(bbox_px, photo_wh: tuple[int, int], *, zoom: float) -> tuple[int, i
     return left, top, int(round(left + w)), int(round(top + h))
 
 
-def crop_overlay(overlay: np.ndarray, layout, box_px) -> np.ndarray:
-    """Cut ``box_px`` (photo px) out of an overlay drawn with ``layout`` (see report.overlay_layout)."""
-    x0, y0, x1, y1 = box_px
-    s, top = layout.scale, layout.top
-    c0, c1 = int(math.floor(x0 * s)), int(math.ceil(x1 * s))
-    r0, r1 = int(math.floor(y0 * s)) + top, int(math.ceil(y1 * s)) + top
-    r1 = min(r1, top + layout.photo_h)
-    c1 = min(c1, layout.photo_w)
-    return np.ascontiguousarray(overlay[max(r0, top):r1, max(c0, 0):c1])
+def margin_box(bbox_px, photo_wh: tuple[int, int], *, margin: float = 0.08,
+               min_aspect: float = 0.3) -> tuple[int, int, int, int]:
+    """``bbox_px`` grown by ``margin`` of its long side, at least ``min_aspect`` as tall (or wide) as long."""
+    W, H = photo_wh
+    x0, y0, x1, y1 = (float(v) for v in bbox_px)
+    w, h = max(x1 - x0, 1.0), max(y1 - y0, 1.0)
+    m = margin * max(w, h)
+    w2, h2 = max(w + 2 * m, min_aspect * (h + 2 * m)), max(h + 2 * m, min_aspect * (w + 2 * m))
+    cx, cy = (x0 + x1) / 2, (y0 + y1) / 2
+    left, top = max(0, int(cx - w2 / 2)), max(0, int(cy - h2 / 2))
+    return left, top, min(W, int(cx + w2 / 2)), min(H, int(cy + h2 / 2))
 
 
 def face_with_boxes(face_rgb: np.ndarray, records: list[dict], *, px_per_mm: float,
@@ -223,3 +226,56 @@ def fit_width(rgb: np.ndarray, *, max_w: int = 2400, min_h: int = 0) -> np.ndarr
         return rgb
     interp = cv2.INTER_AREA if s < 1 else cv2.INTER_NEAREST
     return cv2.resize(np.ascontiguousarray(rgb), (max(1, int(w * s)), max(1, int(h * s))), interpolation=interp)
+
+
+def zoomed_assessment(assessment: dict, *, left: float, top: float, factor: float) -> dict:
+    """The assessment with every photo-pixel coordinate moved into a crop scaled by ``factor``.
+
+    A photo pixel ``(x, y)`` lands at ``((x - left) * factor, (y - top) * factor)``;
+    the photo scale (px/mm) is multiplied by ``factor`` so the overlay's scale
+    bar stays true.  Used to draw the core's overlay sharply on a zoomed crop.
+    """
+    import copy
+
+    def move(pts):
+        if pts is None:
+            return None
+        a = np.asarray(pts, dtype=np.float64)
+        if a.size == 0:
+            return pts
+        flat = a.reshape(-1, 2)
+        flat = (flat - [left, top]) * factor
+        return flat.reshape(a.shape).tolist()
+
+    out = copy.deepcopy(assessment)
+    for r in out.get("imperfections") or []:
+        for k in ("outline_px", "centroid_px"):
+            if r.get(k) is not None:
+                r[k] = move(r[k])
+        if r.get("bbox_px") is not None:
+            r["bbox_px"] = move(np.asarray(r["bbox_px"], float).reshape(2, 2))
+            r["bbox_px"] = [v for p in r["bbox_px"] for v in p]
+    face = out.get("face") or {}
+    if face.get("polygon_px") is not None:
+        face["polygon_px"] = move(face["polygon_px"])
+    cal = out.get("calibration") or {}
+    for m in cal.get("markers") or []:
+        if m.get("corners_px") is not None:
+            m["corners_px"] = move(m["corners_px"])
+        for k in ("side_px", "module_px"):
+            if m.get(k) is not None:
+                m[k] = float(m[k]) * factor
+    if cal.get("px_per_mm") is not None:
+        cal["px_per_mm"] = float(cal["px_per_mm"]) * factor
+    return out
+
+
+def zoom_view(photo_rgb: np.ndarray, assessment: dict, box, *, render, long_side: int = 1600) -> np.ndarray:
+    """The crop ``box`` (photo px) enlarged to ``long_side`` with the overlay drawn on it by ``render``."""
+    x0, y0, x1, y1 = (int(v) for v in box)
+    crop = np.ascontiguousarray(photo_rgb[y0:y1, x0:x1])
+    h, w = crop.shape[:2]
+    factor = long_side / max(h, w, 1)
+    big = cv2.resize(crop, (max(1, round(w * factor)), max(1, round(h * factor))),
+                     interpolation=cv2.INTER_CUBIC if factor > 1 else cv2.INTER_AREA)
+    return render(big, zoomed_assessment(assessment, left=x0, top=y0, factor=factor))

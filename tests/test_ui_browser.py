@@ -1,0 +1,123 @@
+"""End to end in headless Chromium: upload, verdict, dismiss, re-judged verdict, save, PDF download.
+
+Needs ``/usr/bin/chromium`` (Debian) and the Python ``playwright`` package;
+skipped with the reason otherwise.  Screenshots go to ``$SURFACES_SCREENSHOTS``
+(or a temporary folder).
+"""
+
+from __future__ import annotations
+
+import json
+import re
+import shutil
+import subprocess
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from conftest import full_screenshot
+from test_ui_apptest import make_photos
+
+pytestmark = pytest.mark.browser
+ROOT = Path(__file__).resolve().parents[1]
+VERDICT = re.compile(r"ACCEPT|REJECT|REVIEW")
+
+
+def _photo(tmp_path_factory) -> Path:
+    demos = sorted(p for p in (ROOT / "demo_images").glob("*") if p.suffix.lower() in (".jpg", ".jpeg", ".png"))
+    if demos:
+        return demos[0]
+    return make_photos(tmp_path_factory.mktemp("browser_photos"))["good"]
+
+
+def _download(page, key: str) -> Path:
+    with page.expect_download() as info:
+        page.locator(f".st-key-{key} button").click()
+    return Path(info.value.path())
+
+
+def _deciding_ids(assessment: dict) -> list[int]:
+    ids = set()
+    for d in assessment["verdict"]["details"]:
+        if d["status"] in ("fail", "review"):
+            ids.update(int(i) for i in d.get("items") or [] if str(i).isdigit())
+    return sorted(ids)
+
+
+def test_upload_dismiss_save_and_download(page, tmp_path_factory, screenshot_dir, page_home):
+    from playwright.sync_api import expect
+
+    from surfaces import limits
+    from surfaces.records import Store
+
+    photo = _photo(tmp_path_factory)
+    expect(page.get_by_role("heading", name="Assess a coupon")).to_be_visible()
+    page.locator(".st-key-step_photo").get_by_text("Upload a photo", exact=True).click()
+    page.get_by_test_id("stFileUploaderDropzoneInput").set_input_files(str(photo))
+    verdict = page.locator(".st-key-verdict")
+    expect(verdict).to_contain_text(VERDICT, timeout=120_000)
+    page.get_by_label("Coupon id").fill("BT-0001")
+    page.get_by_label("Coupon id").press("Enter")
+    page.get_by_label("Welder id").fill("W-BT")
+    page.get_by_label("Welder id").press("Enter")
+    expect(page.get_by_test_id("stApp")).to_have_attribute("data-test-script-state", "notRunning")
+    full_screenshot(page, screenshot_dir / "1-after-upload.png")
+
+    # what the tool decided, from the JSON download (the CLI contract)
+    auto = json.loads(_download(page, "dl_json").read_text())
+    ids = _deciding_ids(auto)
+    assert auto["verdict"]["result"] != "accept" and ids, auto["verdict"]["reasons"]
+    word = auto["verdict"]["result"].upper()
+    expect(verdict).to_contain_text(word)
+
+    for rid in ids:
+        page.locator(f".st-key-rv_row_{rid}").get_by_text("dismiss", exact=True).click()
+    table = pd.DataFrame(auto["imperfections"])
+    table.loc[table["id"].isin(ids), "status"] = "dismissed"
+    ls = limits.load_limit_set(auto["settings"]["limits"])
+    ref = limits.judge(table, face=auto["face"], nominal=auto["nominal"], limit_set=ls, test=auto["test"])
+    assert ref.result.upper() != word
+    expect(verdict).to_contain_text("After your review")
+    expect(verdict).to_contain_text(ref.result.upper())
+    expect(page.locator(".st-key-verdict_auto")).to_contain_text(word)
+    page.get_by_label("Zoom on").click()
+    page.get_by_role("option", name=re.compile(rf"^{ids[0]} ·")).click()
+    expect(page.get_by_test_id("stImageCaption").first).to_contain_text(f"imperfection {ids[0]}")
+    full_screenshot(page, screenshot_dir / "2-after-dismiss.png")
+
+    page.get_by_label("Reviewed by (your name)").fill("A. Inspector")
+    page.get_by_label("Reviewed by (your name)").press("Enter")
+    page.locator(".st-key-save button").click()
+    expect(page.locator(".st-key-step_save")).to_contain_text("Saved as assessment", timeout=60_000)
+    full_screenshot(page, screenshot_dir / "3-after-save.png")
+
+    pdf = _download(page, "dl_pdf")
+    data = pdf.read_bytes()
+    assert data.startswith(b"%PDF-")
+    out = screenshot_dir / "report.pdf"
+    out.write_bytes(data)
+    if shutil.which("pdftoppm"):
+        subprocess.run(["pdftoppm", "-png", "-r", "60", "-f", "1", "-l", "2", str(out),
+                        str(screenshot_dir / "report")], check=True, timeout=60)
+
+    with Store(page_home / "records.sqlite3") as s:
+        a = s.get_assessment(s.assessment_ids()[-1])
+    assert a["record"]["reviewer"] == "A. Inspector"
+    assert a["verdict"]["result"] == ref.result
+    assert a["record"]["automatic_verdict"]["result"] == auto["verdict"]["result"]
+
+
+def test_other_views_render(page, screenshot_dir):
+    from playwright.sync_api import expect
+
+    sidebar = page.get_by_test_id("stSidebar")
+    for label, shot, last in (("Limit sets", "4-limit-sets.png", "Save as my own set"),
+                              ("Welder histories", "5-histories.png", None),
+                              ("Batch of photos", "6-batch.png", "Assess and save all")):
+        sidebar.get_by_text(label, exact=True).click()
+        expect(page.get_by_role("heading", name=label)).to_be_visible()
+        if last:
+            expect(page.get_by_role("button", name=re.compile(last))).to_be_visible()
+        expect(page.get_by_test_id("stException")).to_have_count(0)
+        full_screenshot(page, screenshot_dir / shot)
