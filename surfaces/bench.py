@@ -121,17 +121,18 @@ def _settings_for_truth(truth: dict):
     # coupon, the wall of a nick-break coupon (the face spans the wall)
     if isinstance(p.get("plate_thickness_mm"), (int, float)):
         nominal.setdefault("thickness_mm", round(float(p["plate_thickness_mm"]), 1))
-    if isinstance(p.get("thickness_mm"), (int, float)):
-        nominal.setdefault("thickness_mm", round(float(p["thickness_mm"]), 1))
-    if isinstance(width, (int, float)) and width > 0:
-        nominal.setdefault("throat_mm" if test == "fillet-break" else "wall_mm" if test == "nick-break"
-                           else "thickness_mm", round(float(width), 1))
+    for key in ("thickness_mm", "coupon_thickness_mm"):
+        if isinstance(p.get(key), (int, float)):
+            nominal.setdefault("thickness_mm", round(float(p[key]), 1))
+    if isinstance(width, (int, float)) and width > 0 and test in ("fillet-break", "nick-break"):
+        nominal.setdefault("throat_mm" if test == "fillet-break" else "wall_mm", round(float(width), 1))
     kw = {}
     if test == "bend":
-        for k in ("bend_angle_deg", "former_diameter_mm", "outer_radius_mm"):
-            v = p.get(k)
-            if isinstance(v, (int, float)) and v > 0:
-                kw[k] = float(v)
+        curv = truth.get("curvature") or {}
+        if curv.get("enabled") and isinstance(curv.get("radius_mm"), (int, float)):
+            kw["outer_radius_mm"] = round(float(curv["radius_mm"]), 1)
+        if curv.get("enabled") and isinstance(curv.get("former_radius_mm"), (int, float)):
+            kw["former_diameter_mm"] = round(2 * float(curv["former_radius_mm"]), 1)
     marker = truth.get("marker_mm")
     if isinstance(marker, (int, float)) and marker > 0:
         kw["marker_mm"] = float(marker)  # the printed marker side, as the user states it
