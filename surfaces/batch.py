@@ -428,6 +428,8 @@ def run_batch(
             _run_pool(pending, min(workers, len(pending)), assess_fn, record)
 
     summary = pd.DataFrame([j.row for j in jobs], columns=list(SUMMARY_COLUMNS))
+    for c in ("assessment_id", "n_imperfections"):
+        summary[c] = summary[c].astype("Int64")
     if summary_csv is not None or summary_pdf is not None:
         from . import report
 
