@@ -1,0 +1,919 @@
+"""Scale and perspective of a photo from the printed reference marker.
+
+:func:`calibrate` turns a photo into a :class:`~surfaces.model.Calibration`:
+a homography from photo pixels to the marker plane in mm, with a 1-sigma
+scale uncertainty, the camera tilt and any warnings.
+
+How the marker is measured
+--------------------------
+1. **Detection.**  OpenCV's ``ArucoDetector`` looks for DICT_4X4_50 markers
+   (any id) in the whole photo.  Large photos are searched on a copy whose
+   long side is ``DETECT_LONG_SIDE_PX``; when nothing is found there, the
+   search is repeated at full resolution (small markers) and at half that
+   size (big, blurred markers).
+2. **Sub-pixel outline.**  On the full-resolution grey image, grey-level
+   profiles are sampled across each of the four outer edges of the black
+   square (0.6 module either side of the edge, every pixel along it, the ends
+   near the corners left out).  The edge position on each profile is found
+   by the area (first-moment) rule: the distance from the profile's outer end
+   minus the integral of the normalised profile, which is unbiased for any
+   symmetric blur.  A straight line is fitted to each side's edge points
+   (total least squares, outliers beyond 3 robust sigma removed, e.g. glare)
+   and adjacent lines are intersected: the four corners.  This uses hundreds
+   of edge points per side instead of the few pixels a corner detector sees.
+3. **Homography.**  The four corners give the photo -> plane map of that
+   marker (plane origin at its top-left corner, X right, Y down, mm).  With
+   several markers, each one's scale is compared at a common point; when they
+   agree, all corners are fitted together (each marker's unknown position and
+   turn in the plane solved alternately with the shared homography).
+4. **Uncertainty** (1-sigma, percent) combines
+
+   * corner localisation: sigma_c per corner coordinate from the line-fit
+     residuals (``2 * rms / sqrt(n_eff)`` for a line of n points, n_eff
+     discounting correlated residuals such as glare trends) with a floor of
+     ``CORNER_FLOOR_PX`` plus ``CORNER_FLOOR_MODULE`` of a module (JPEG,
+     edge bleed, lens blur), propagated by a seeded Monte-Carlo of the whole
+     fit to the point where the scale is used (the face), so the growth of
+     the error with distance from the marker is included;
+   * the printing scale of the card: ``PRINT_SCALE_PCT`` (office printers at
+     100 % are typically within +/- 0.5 %, from memory; the card's 50 mm
+     check square catches worse prints).
+
+5. **Tilt.**  The angle between the camera axis and the marker plane's
+   normal, from the homography decomposed with an assumed camera: principal
+   point at the image centre and a diagonal field of view of
+   ``ASSUMED_DIAGONAL_FOV_DEG`` (a typical phone main camera; the true lens is
+   unknown).  Used for warnings and the record, not for the scale.
+
+Fallbacks when there is no marker: ``px_per_mm`` (a scale typed by hand) or
+``ruler`` (two points of a ruler seen in the photo and their distance).
+Neither corrects perspective; both say so in a warning.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from functools import lru_cache
+
+import cv2
+import numpy as np
+
+from .geometry import apply_h, fit_line_tls, intersect_lines, local_scale_px_per_mm
+from .model import Calibration, CalibrationError, MarkerHit, Photo, SurfacesError
+
+__all__ = [
+    "calibrate",
+    "detect_markers",
+    "scale_uncertainty_pct",
+    "corner_sigma_px",
+    "assumed_camera_matrix",
+    "tilt_from_homography",
+    "DEFAULT_MARKER_MM",
+    "PRINT_SCALE_PCT",
+    "MANUAL_SCALE_UNCERTAINTY_PCT",
+]
+
+#: Side of the card's marker (outer black square), mm.
+DEFAULT_MARKER_MM: float = 20.0
+MARKER_DICT = cv2.aruco.DICT_4X4_50
+MODULES = 6  # 4 data bits + 1 border module each side
+
+#: Long side of the reduced copy that the first detection pass searches.
+DETECT_LONG_SIDE_PX: int = 2000
+#: Smallest marker side (px in the searched image) the detector accepts.
+MIN_DETECT_SIDE_PX: float = 14.0
+
+#: 1-sigma printing scale tolerance of the card, percent (see module docstring).
+PRINT_SCALE_PCT: float = 0.3
+#: Floor of the corner localisation sigma (px), plus a fraction of a module.
+CORNER_FLOOR_PX: float = 0.05
+CORNER_FLOOR_MODULE: float = 0.003
+#: Stated uncertainty of a scale typed by hand, percent.
+MANUAL_SCALE_UNCERTAINTY_PCT: float = 2.0
+#: Click error of each ruler end, px.
+RULER_CLICK_PX: float = 1.0
+
+ASSUMED_DIAGONAL_FOV_DEG: float = 70.0
+TILT_WARN_DEG: float = 35.0
+MODULE_WARN_PX: float = 4.0
+CONSISTENCY_WARN_PCT: float = 2.0
+CONSISTENCY_ERROR_PCT: float = 10.0
+EXTRAPOLATION_WARN_PCT: float = 1.0
+
+_MC_SAMPLES = 200
+_MC_SEED = 20260
+_EDGE_HALF_MODULES = 0.6
+
+_RETAKE = (
+    "retake the photo with the card beside the face at the same height, the whole marker and its white "
+    "margin in the frame, the marker at least 60 px across and free of glare, or give --px-per-mm or --ruler"
+)
+
+
+# =========================================================================== public API
+
+
+def calibrate(
+    photo: Photo | np.ndarray,
+    *,
+    marker_mm: float | None = None,
+    px_per_mm: float | None = None,
+    ruler: tuple[float, float, float, float, float] | None = None,
+    face_hint_px: tuple[float, float] | None = None,
+) -> Calibration:
+    """Find the photo's scale (and perspective) from the reference marker or a fallback.
+
+    Parameters
+    ----------
+    photo : Photo or (H, W) uint8 ndarray
+        The photo (its ``gray`` is used) or a grey image.
+    marker_mm : float, optional
+        Printed side of the marker's outer black square; default
+        ``DEFAULT_MARKER_MM`` (the card's).
+    px_per_mm : float, optional
+        Scale typed by hand: skips the marker, no perspective correction.
+    ruler : (x0, y0, x1, y1, mm), optional
+        Two photo points on a ruler (px) and their distance (mm): skips the
+        marker, no perspective correction.
+    face_hint_px : (x, y), optional
+        Where the face is in the photo (px).  Picks the marker nearest to it
+        as the plane frame and is where the uncertainty is evaluated
+        (default: the photo centre).
+
+    Returns
+    -------
+    Calibration
+
+    Raises
+    ------
+    CalibrationError
+        No marker found and no fallback given, or markers that disagree.
+    SurfacesError
+        Invalid option values.
+    """
+    gray, name = _gray_of(photo)
+    h, w = gray.shape
+    hint = _check_point(face_hint_px, "face hint")
+    eval_pt = hint if hint is not None else ((w - 1) / 2.0, (h - 1) / 2.0)
+
+    if px_per_mm is not None and ruler is not None:
+        raise SurfacesError("both a typed scale (px_per_mm) and a ruler were given: give only one of them")
+    if px_per_mm is not None:
+        return _manual_scale(_positive(px_per_mm, "px_per_mm (photo pixels per mm)"))
+    if ruler is not None:
+        return _ruler_scale(ruler, w, h)
+
+    side_mm = DEFAULT_MARKER_MM if marker_mm is None else _positive(marker_mm, "marker size (mm)")
+    if not 1.0 <= side_mm <= 1000.0:
+        raise SurfacesError(f"marker size {side_mm:g} mm is not plausible: give the printed side in mm, e.g. 20")
+
+    hits, n_rejected = detect_markers(gray)
+    if not hits:
+        seen = (
+            f" ({n_rejected} square shape{'s' if n_rejected != 1 else ''} seen but none decoded as a marker)"
+            if n_rejected
+            else ""
+        )
+        raise CalibrationError(f"no reference marker found in photo '{name}'{seen}: {_RETAKE}")
+    return _calibrate_from_hits(hits, side_mm, eval_pt, hint, (w, h))
+
+
+def detect_markers(gray: np.ndarray) -> tuple[list[MarkerHit], int]:
+    """Detect DICT_4X4_50 markers and measure their outlines to sub-pixel accuracy.
+
+    Parameters
+    ----------
+    gray : (H, W) uint8 ndarray
+
+    Returns
+    -------
+    hits : list of MarkerHit
+        Corners in full-resolution photo pixels (x, y), OpenCV's order.
+    n_rejected : int
+        Square candidates the detector saw but could not decode (first pass).
+    """
+    h, w = gray.shape
+    long_side = max(h, w)
+    scales: list[float] = []
+    if long_side > DETECT_LONG_SIDE_PX:
+        scales.append(DETECT_LONG_SIDE_PX / long_side)
+    scales.append(1.0)
+    if long_side > DETECT_LONG_SIDE_PX // 2:
+        scales.append((DETECT_LONG_SIDE_PX // 2) / long_side)
+
+    n_rejected = -1
+    found: list[tuple[int, np.ndarray]] = []
+    for s in scales:
+        corners, ids, rejected = _detect_at_scale(gray, s)
+        if n_rejected < 0:
+            n_rejected = len(rejected)
+        if corners:
+            found = list(zip(ids, corners))
+            break
+    hits = [_measure_marker(gray, int(i), c) for i, c in found]
+    return hits, max(n_rejected, 0)
+
+
+def corner_sigma_px(hit: MarkerHit) -> float:
+    """1-sigma localisation error of each corner coordinate of ``hit`` (px).
+
+    From the edge fit (:class:`MeasuredMarker.sigma_fit_px`); for a bare :class:`MarkerHit` (e.g. read
+    back from a record) ``2 * rms / sqrt(n / 2)`` with ``n`` edge points
+    expected for its size.  Either way in quadrature with the floor
+    ``CORNER_FLOOR_PX + CORNER_FLOOR_MODULE * module``.
+    """
+    stat = float(getattr(hit, "sigma_fit_px", float("nan")))
+    if not math.isfinite(stat):
+        n = _edge_points_per_side(hit.side_px)
+        rms = hit.reproj_rms_px if math.isfinite(hit.reproj_rms_px) else 0.25 * hit.module_px
+        stat = 2.0 * rms / math.sqrt(n / 2.0)
+    floor = CORNER_FLOOR_PX + CORNER_FLOOR_MODULE * hit.module_px
+    return float(math.hypot(stat, floor))
+
+
+def scale_uncertainty_pct(
+    cal: Calibration, x: float, y: float, *, parts: bool = False
+) -> float | dict[str, float]:
+    """1-sigma relative scale uncertainty (percent) of ``cal`` at photo pixel ``(x, y)``.
+
+    For marker calibrations this repeats the seeded Monte-Carlo of the
+    corner errors at the given point (in quadrature with the printing
+    tolerance); for the fallbacks it returns the stated value.
+
+    With ``parts=True`` returns ``{"corners_pct", "print_pct", "total_pct"}``.
+    """
+    if not cal.markers or cal.marker_mm is None:
+        total = float(cal.uncertainty_pct)
+        return {"corners_pct": float("nan"), "print_pct": float("nan"), "total_pct": total} if parts else total
+    hits = list(cal.markers)
+    ref = _ref_index_from_h(hits, cal.H, cal.marker_mm)
+    joint = cal.method == "markers"
+    mc = _mc_scale_pct(hits, cal.marker_mm, ref, joint, (float(x), float(y)))
+    total = math.hypot(mc, PRINT_SCALE_PCT)
+    if parts:
+        return {"corners_pct": mc, "print_pct": PRINT_SCALE_PCT, "total_pct": total}
+    return total
+
+
+def assumed_camera_matrix(width: int, height: int) -> np.ndarray:
+    """3x3 camera matrix assumed for tilt: centred principal point, diagonal FOV of ``ASSUMED_DIAGONAL_FOV_DEG``."""
+    diag = math.hypot(width, height)
+    f = diag / (2.0 * math.tan(math.radians(ASSUMED_DIAGONAL_FOV_DEG) / 2.0))
+    return np.array([[f, 0.0, (width - 1) / 2.0], [0.0, f, (height - 1) / 2.0], [0.0, 0.0, 1.0]])
+
+
+def tilt_from_homography(H_px_to_mm: np.ndarray, K: np.ndarray) -> float:
+    """Angle (deg) between the camera axis and the plane normal.
+
+    The plane -> photo map is ``K [r1 r2 t]`` up to scale; r1 and r2 are the
+    normalised first two columns of ``K^-1 H^-1`` and the normal is their
+    cross product.
+    """
+    return float(_tilt_batch(np.asarray(H_px_to_mm, np.float64)[None], np.asarray(K, np.float64))[0])
+
+
+# =========================================================================== fallbacks
+
+
+def _manual_scale(px_per_mm: float) -> Calibration:
+    H = np.diag([1.0 / px_per_mm, 1.0 / px_per_mm, 1.0])
+    return Calibration(
+        method="px-per-mm",
+        H=H,
+        uncertainty_pct=MANUAL_SCALE_UNCERTAINTY_PCT,
+        tilt_deg=None,
+        marker_mm=None,
+        warnings=(
+            f"scale typed by hand ({px_per_mm:g} px/mm): no perspective correction, the photo must be square-on; "
+            f"uncertainty taken as {MANUAL_SCALE_UNCERTAINTY_PCT:g} %",
+        ),
+    )
+
+
+def _ruler_scale(ruler, w: int, h: int) -> Calibration:
+    try:
+        vals = [float(v) for v in ruler]
+    except (TypeError, ValueError):
+        raise SurfacesError(f"ruler {ruler!r} is not five numbers: give x0, y0, x1, y1 in px and the distance in mm") from None
+    if len(vals) != 5 or not all(math.isfinite(v) for v in vals):
+        raise SurfacesError(f"ruler {ruler!r} is not five finite numbers: give x0, y0, x1, y1 in px and the distance in mm")
+    x0, y0, x1, y1, mm = vals
+    if mm <= 0:
+        raise SurfacesError(f"ruler distance {mm:g} mm must be positive: give the mm between the two points")
+    length_px = math.hypot(x1 - x0, y1 - y0)
+    if length_px < 10:
+        raise SurfacesError(f"ruler points are only {length_px:.1f} px apart: pick two ruler marks far apart")
+    warnings = [
+        f"scale from a ruler ({mm:g} mm over {length_px:.0f} px): no perspective correction, "
+        "the ruler must lie on the face plane and the photo be square-on"
+    ]
+    for px, py in ((x0, y0), (x1, y1)):
+        if not (-0.5 <= px <= w - 0.5 and -0.5 <= py <= h - 0.5):
+            warnings.append(f"ruler point ({px:g}, {py:g}) lies outside the {w} x {h} photo: check the points")
+    s = length_px / mm
+    # each end placed to within RULER_CLICK_PX along the ruler -> sqrt(2) px on the length
+    unc = 100.0 * math.sqrt(2.0) * RULER_CLICK_PX / length_px
+    if length_px < 200:
+        warnings.append(
+            f"ruler span of {length_px:.0f} px is short: the scale is uncertain by {unc:.1f} %; pick marks farther apart"
+        )
+    return Calibration(
+        method="ruler",
+        H=np.diag([1.0 / s, 1.0 / s, 1.0]),
+        uncertainty_pct=unc,
+        tilt_deg=None,
+        marker_mm=None,
+        warnings=tuple(warnings),
+    )
+
+
+# =========================================================================== from markers
+
+
+def _calibrate_from_hits(hits, side_mm, eval_pt, hint, size) -> Calibration:
+    w, h = size
+    warnings: list[str] = []
+    centres = np.array([hit.corners_px.mean(axis=0) for hit in hits])
+    if hint is not None:
+        ref = int(np.argmin(np.hypot(*(centres - np.asarray(hint)).T)))
+    else:
+        ref = int(np.argmax([hit.side_px for hit in hits]))
+    singles = [_square_homography(hit.corners_px, side_mm) for hit in hits]
+
+    used = [ref]
+    consistency = None
+    if len(hits) > 1:
+        common = tuple(centres.mean(axis=0))
+        scales = np.array([local_scale_px_per_mm(Hk, *common) for Hk in singles])
+        sig = np.array([_mc_scale_pct([hit], side_mm, 0, False, common) for hit in hits])
+        consistency = float(100.0 * (scales.max() - scales.min()) / np.median(scales))
+        spread_sigma = float(np.sqrt((np.sort(sig)[-2:] ** 2).sum()))  # two least certain markers
+        limit = max(CONSISTENCY_WARN_PCT, 3.0 * spread_sigma)
+        i_hi, i_lo = int(np.argmax(scales)), int(np.argmin(scales))
+        pair = f"markers id {hits[i_hi].marker_id} and id {hits[i_lo].marker_id}"
+        if consistency > max(CONSISTENCY_ERROR_PCT, limit):
+            raise CalibrationError(
+                f"{pair} disagree by {consistency:.0f} % in scale: were they printed at different sizes? "
+                "cover every marker but one and give its printed side with --marker-mm, "
+                "or give --px-per-mm or --ruler"
+            )
+        if consistency > limit:
+            warnings.append(
+                f"{pair} disagree by {consistency:.1f} % in scale (printed at different sizes, or not on one plane?): "
+                f"used only marker id {hits[ref].marker_id}; cover the others or check the print"
+            )
+        else:
+            used = list(range(len(hits)))
+    used_hits = [hits[i] for i in used]
+    if len(used) > 1:
+        H = _joint_homography(used_hits, side_mm, used.index(ref))
+        method = "markers"
+    else:
+        H = singles[ref]
+        method = "marker"
+
+    K = assumed_camera_matrix(w, h)
+    mc, tilt_sd = _monte_carlo(used_hits, side_mm, used.index(ref), len(used) > 1, eval_pt, K)
+    unc = math.hypot(mc, PRINT_SCALE_PCT)
+    tilt = tilt_from_homography(H, K)
+
+    for hit in hits:
+        if hit.module_px < MODULE_WARN_PX:
+            warnings.append(
+                f"marker id {hit.marker_id} too small in the photo ({hit.side_px:.0f} px across, "
+                f"{hit.module_px:.1f} px per square): move closer or print a bigger marker"
+            )
+    if tilt - 2.0 * (tilt_sd if math.isfinite(tilt_sd) else 0.0) > TILT_WARN_DEG:
+        warnings.append(
+            f"camera tilted about {tilt:.0f} degrees from square-on (estimate assuming a typical phone lens): "
+            "the perspective correction is large; retake within 30 degrees of square-on"
+        )
+    if mc > EXTRAPOLATION_WARN_PCT:
+        warnings.append(
+            f"the face is far from the marker for the marker's size in the photo (scale uncertain by {mc:.1f} %): "
+            "put the marker closer to the face or use a bigger marker"
+        )
+    return Calibration(
+        method=method,
+        H=H,
+        uncertainty_pct=float(unc),
+        tilt_deg=float(tilt),
+        marker_mm=float(side_mm),
+        markers=tuple(hits),
+        consistency_pct=consistency,
+        warnings=tuple(warnings),
+    )
+
+
+def _square_plane(side_mm: float) -> np.ndarray:
+    return np.array([[0.0, 0.0], [side_mm, 0.0], [side_mm, side_mm], [0.0, side_mm]])
+
+
+def _dlt(src: np.ndarray, dst: np.ndarray) -> np.ndarray:
+    """Least-squares homographies ``src -> dst`` for a stack: (S, n, 2) -> (S, 3, 3), n >= 4.
+
+    Direct linear transform with Hartley normalisation (exact for n = 4).
+    """
+    src = np.asarray(src, np.float64)
+    dst = np.asarray(dst, np.float64)
+
+    def norm(p):
+        c = p.mean(axis=1, keepdims=True)
+        d = np.sqrt(((p - c) ** 2).sum(axis=2)).mean(axis=1)
+        k = math.sqrt(2.0) / np.maximum(d, 1e-12)
+        T = np.zeros((len(p), 3, 3))
+        T[:, 0, 0] = T[:, 1, 1] = k
+        T[:, 0, 2] = -k * c[:, 0, 0]
+        T[:, 1, 2] = -k * c[:, 0, 1]
+        T[:, 2, 2] = 1.0
+        return (p - c) * k[:, None, None], T
+
+    ps, Ts = norm(src)
+    pd, Td = norm(dst)
+    S, n = ps.shape[:2]
+    x, y = ps[..., 0], ps[..., 1]
+    X, Y = pd[..., 0], pd[..., 1]
+    one, zero = np.ones_like(x), np.zeros_like(x)
+    rows_a = np.stack([x, y, one, zero, zero, zero, -X * x, -X * y, -X], axis=-1)
+    rows_b = np.stack([zero, zero, zero, x, y, one, -Y * x, -Y * y, -Y], axis=-1)
+    A = np.concatenate([rows_a, rows_b], axis=1)  # (S, 2n, 9)
+    _, _, vt = np.linalg.svd(A)
+    Hn = vt[:, -1, :].reshape(S, 3, 3)
+    H = np.linalg.solve(Td, Hn @ Ts)  # Td^-1 Hn Ts
+    return H / H[:, 2:3, 2:3]
+
+
+def _square_homography(corners_px: np.ndarray, side_mm: float) -> np.ndarray:
+    """Photo px -> marker plane mm from the four corners (float64)."""
+    return _dlt(np.asarray(corners_px, np.float64)[None], _square_plane(side_mm)[None])[0]
+
+
+def _apply_batch(H: np.ndarray, pts: np.ndarray) -> np.ndarray:
+    """(S, 3, 3) homographies on (S, n, 2) points."""
+    q = pts @ H[:, :2, :2].transpose(0, 2, 1) + H[:, None, :2, 2]
+    w = pts @ H[:, 2, :2][:, :, None] + H[:, None, 2:3, 2]
+    return q / w
+
+
+def _rigid_batch(src: np.ndarray, dst: np.ndarray) -> np.ndarray:
+    """Rotation + translation (no scale, no mirror) taking ``src`` (n, 2) onto each ``dst`` (S, n, 2): (S, 3, 3)."""
+    cs = src.mean(axis=0)
+    cd = dst.mean(axis=1)
+    M = np.einsum("ni,snj->sij", src - cs, dst - cd[:, None, :])
+    U, _, Vt = np.linalg.svd(M)
+    d = np.sign(np.linalg.det(np.transpose(Vt, (0, 2, 1)) @ np.transpose(U, (0, 2, 1))))
+    d[d == 0] = 1.0
+    D = np.zeros((len(dst), 2, 2))
+    D[:, 0, 0] = 1.0
+    D[:, 1, 1] = d
+    R = np.transpose(Vt, (0, 2, 1)) @ D @ np.transpose(U, (0, 2, 1))
+    T = np.zeros((len(dst), 3, 3))
+    T[:, :2, :2] = R
+    T[:, :2, 2] = cd - np.einsum("sij,j->si", R, cs)
+    T[:, 2, 2] = 1.0
+    return T
+
+
+def _joint_batch(corners: np.ndarray, side_mm: float, ref: int, iterations: int = 4) -> np.ndarray:
+    """One homography per stack entry for all markers together.
+
+    ``corners`` is (S, M, 4, 2) photo px.  The reference marker's square
+    fixes the plane frame; every other marker's place and turn in that plane
+    is unknown and solved alternately with the shared homography (rigid fit
+    of its square to where the current homography puts it, then one
+    least-squares homography through all corners).
+    """
+    S, M = corners.shape[:2]
+    P = _square_plane(side_mm)
+    H = _dlt(corners[:, ref], np.broadcast_to(P, (S, 4, 2)))
+    src = corners.reshape(S, 4 * M, 2)
+    for _ in range(iterations):
+        dst = np.empty((S, M, 4, 2))
+        for k in range(M):
+            if k == ref:
+                dst[:, k] = P
+                continue
+            T = _rigid_batch(P, _apply_batch(H, corners[:, k]))
+            dst[:, k] = _apply_batch(T, np.broadcast_to(P, (S, 4, 2)))
+        H = _dlt(src, dst.reshape(S, 4 * M, 2))
+    return H
+
+
+def _joint_homography(hits, side_mm, ref, iterations: int = 4) -> np.ndarray:
+    corners = np.stack([np.asarray(h.corners_px, np.float64) for h in hits])[None]
+    return _joint_batch(corners, side_mm, ref, iterations)[0]
+
+
+def _scale_batch(H: np.ndarray, x: float, y: float) -> np.ndarray:
+    """sqrt|det J| of plane -> photo at photo (x, y) for (S, 3, 3) photo -> plane maps.
+
+    The photo -> plane Jacobian of a homography has det = det(H) / w^3 with
+    w = h31 x + h32 y + h33; the plane -> photo scale is its inverse root.
+    """
+    w = H[:, 2, 0] * x + H[:, 2, 1] * y + H[:, 2, 2]
+    return np.sqrt(np.abs(w**3 / np.linalg.det(H)))
+
+
+def _tilt_batch(H: np.ndarray, K: np.ndarray) -> np.ndarray:
+    G = np.linalg.inv(H)
+    M = np.linalg.solve(K[None], G)
+    r1 = M[:, :, 0] / np.linalg.norm(M[:, :, 0], axis=1, keepdims=True)
+    r2 = M[:, :, 1] / np.linalg.norm(M[:, :, 1], axis=1, keepdims=True)
+    n = np.cross(r1, r2)
+    n /= np.linalg.norm(n, axis=1, keepdims=True)
+    return np.degrees(np.arccos(np.clip(np.abs(n[:, 2]), 0.0, 1.0)))
+
+
+def _ref_index_from_h(hits, H, side_mm) -> int:
+    """Which marker's own frame ``H`` is (its corners land on the square)."""
+    P = _square_plane(side_mm)
+    err = [np.abs(apply_h(H, hit.corners_px) - P).max() for hit in hits]
+    return int(np.argmin(err))
+
+
+def _mc_scale_pct(hits, side_mm, ref, joint, pt) -> float:
+    """Relative std (percent) of the scale at ``pt`` when the corners move by their sigma."""
+    return _monte_carlo(hits, side_mm, ref, joint, pt)[0]
+
+
+def _monte_carlo(hits, side_mm, ref, joint, pt, K=None) -> tuple[float, float]:
+    """Seeded Monte-Carlo of the corner errors: (scale std in % at ``pt``, tilt std in deg or NaN)."""
+    rng = np.random.default_rng(_MC_SEED)
+    sig = np.array([corner_sigma_px(hit) for hit in hits])
+    corners = np.stack([np.asarray(h.corners_px, np.float64) for h in hits])  # (M, 4, 2)
+    moved = corners[None] + rng.normal(0.0, 1.0, (_MC_SAMPLES,) + corners.shape) * sig[None, :, None, None]
+    with np.errstate(all="ignore"):
+        if joint:
+            nominal = _joint_batch(corners[None], side_mm, ref)
+            Hs = _joint_batch(moved, side_mm, ref, iterations=3)
+        else:
+            P = _square_plane(side_mm)
+            nominal = _dlt(corners[ref][None], P[None])
+            Hs = _dlt(moved[:, ref], np.broadcast_to(P, (_MC_SAMPLES, 4, 2)))
+        s0 = float(_scale_batch(nominal, *pt)[0])
+        scale = _scale_batch(Hs, *pt)
+        tilt = _tilt_batch(Hs, K) if K is not None else np.full(_MC_SAMPLES, np.nan)
+    scale = scale[np.isfinite(scale)]
+    if len(scale) < _MC_SAMPLES // 2 or not math.isfinite(s0) or s0 <= 0:
+        return 100.0, float("nan")
+    tilt = tilt[np.isfinite(tilt)]
+    return float(100.0 * np.std(scale) / s0), float(np.std(tilt)) if len(tilt) > 2 else float("nan")
+
+
+# =========================================================================== detection
+
+
+def _detector(long_side: int) -> cv2.aruco.ArucoDetector:
+    p = cv2.aruco.DetectorParameters()
+    p.adaptiveThreshWinSizeMin = 3
+    p.adaptiveThreshWinSizeMax = 53
+    p.adaptiveThreshWinSizeStep = 10
+    p.adaptiveThreshConstant = 7
+    p.minMarkerPerimeterRate = min(0.03, 4.0 * MIN_DETECT_SIDE_PX / max(long_side, 1))
+    p.maxMarkerPerimeterRate = 4.0
+    p.polygonalApproxAccuracyRate = 0.05  # blurred / tilted outlines
+    p.minCornerDistanceRate = 0.05
+    p.minDistanceToBorder = 1
+    p.minMarkerDistanceRate = 0.05
+    p.perspectiveRemovePixelPerCell = 8
+    p.perspectiveRemoveIgnoredMarginPerCell = 0.2
+    p.maxErroneousBitsInBorderRate = 0.35
+    p.errorCorrectionRate = 0.6
+    p.minOtsuStdDev = 5.0
+    p.cornerRefinementMethod = cv2.aruco.CORNER_REFINE_NONE  # refined below on the full image
+    p.detectInvertedMarker = False
+    return cv2.aruco.ArucoDetector(cv2.aruco.getPredefinedDictionary(MARKER_DICT), p)
+
+
+def _detect_at_scale(gray: np.ndarray, s: float):
+    h, w = gray.shape
+    if s < 1.0:
+        ws, hs = max(1, round(w * s)), max(1, round(h * s))
+        img = cv2.resize(gray, (ws, hs), interpolation=cv2.INTER_AREA)
+        sx, sy = ws / w, hs / h
+    else:
+        img, sx, sy = gray, 1.0, 1.0
+    corners, ids, rejected = _detector(max(img.shape)).detectMarkers(img)
+    out = []
+    if ids is not None:
+        for c in corners:
+            c = np.asarray(c, np.float64).reshape(4, 2)
+            # pixel centres at integers in both images
+            c[:, 0] = (c[:, 0] + 0.5) / sx - 0.5
+            c[:, 1] = (c[:, 1] + 0.5) / sy - 0.5
+            out.append(c)
+        ids = [int(i) for i in np.asarray(ids).ravel()]
+    return out, ids or [], rejected if rejected is not None else []
+
+
+# =========================================================================== sub-pixel outline
+
+
+@dataclass
+class _SideFit:
+    point: np.ndarray
+    direction: np.ndarray
+    rms: float
+    n: int
+    n_eff: float  # independent points: n scaled by the residuals' von Neumann ratio
+    sigma_px: float  # 1-sigma position of the line at the side's ends (corners)
+
+
+@dataclass(frozen=True)
+class MeasuredMarker(MarkerHit):
+    """A :class:`MarkerHit` that also keeps the corner sigma of its edge fit (px).
+
+    ``sigma_fit_px`` is the largest over the four sides of
+    ``hypot(2 * rms / sqrt(n_eff), bend)``: ``n_eff`` counts the side's edge
+    points as independent only as far as their residuals look like white
+    noise (smooth trends from glare or shading count as few), and ``bend`` is
+    how far lines through each half of the side land from the whole side's
+    line at its ends.
+    """
+
+    sigma_fit_px: float = float("nan")
+
+
+def _edge_points_per_side(side_px: float) -> int:
+    module = side_px / MODULES
+    margin = max(0.5 * module, 2.0)
+    return int(np.clip(round(side_px - 2 * margin), 8, 400))
+
+
+def _measure_marker(gray: np.ndarray, marker_id: int, corners0: np.ndarray) -> MarkerHit:
+    """Refine one detected marker's corners on the full-resolution grey image."""
+    corners = np.asarray(corners0, np.float64).copy()
+    x0, y0 = np.floor(corners.min(axis=0)).astype(int)
+    x1, y1 = np.ceil(corners.max(axis=0)).astype(int)
+    side0 = float(np.mean(np.hypot(*(np.roll(corners, -1, axis=0) - corners).T)))
+    pad = int(math.ceil(side0 / MODULES * 1.5)) + 4
+    h, w = gray.shape
+    rx0, ry0 = max(0, x0 - pad), max(0, y0 - pad)
+    rx1, ry1 = min(w, x1 + pad + 1), min(h, y1 + pad + 1)
+    roi = gray[ry0:ry1, rx0:rx1].astype(np.float32)
+    offset = np.array([rx0, ry0], np.float64)
+
+    refined = None
+    rms = float("nan")
+    sigma_fit = float("nan")
+    local = corners - offset
+    for _ in range(3):  # re-centre the profiles on the fitted edges
+        fits = _fit_sides(roi, local, marker_id)
+        if fits is None:
+            break
+        new = np.array([intersect_lines(fits[i - 1].point, fits[i - 1].direction, fits[i].point, fits[i].direction)
+                        for i in range(4)])
+        if not np.all(np.isfinite(new)):
+            break
+        moved = np.abs(new - local).max()
+        local = new
+        refined = new
+        rms = float(np.sqrt(np.mean([f.rms**2 for f in fits])))
+        sigma_fit = max(f.sigma_px for f in fits)
+        if moved < 0.01:
+            break
+    module0 = side0 / MODULES
+    if refined is None or np.abs(refined + offset - corners).max() > max(3.0, 0.5 * module0) or not _convex(refined):
+        # edge fit failed (occlusion, no quiet zone): fall back to OpenCV's corner refinement
+        refined = _subpix_fallback(gray, corners, module0)
+        rms = 0.25 * module0  # no edge fit: a pessimistic stand-in for the residual
+        sigma_fit = 0.3 + 0.1 * module0  # pessimistic: OpenCV's corners are good to a fraction of a module
+    else:
+        refined = refined + offset
+    sides = np.hypot(*(np.roll(refined, -1, axis=0) - refined).T)
+    side_px = float(np.mean(sides))
+    return MeasuredMarker(
+        marker_id=marker_id,
+        corners_px=refined,
+        side_px=side_px,
+        module_px=side_px / MODULES,
+        reproj_rms_px=float(rms),
+        sigma_fit_px=float(sigma_fit),
+    )
+
+
+def _convex(q: np.ndarray) -> bool:
+    cr = []
+    for i in range(4):
+        a, b, c = q[i], q[(i + 1) % 4], q[(i + 2) % 4]
+        cr.append((b[0] - a[0]) * (c[1] - b[1]) - (b[1] - a[1]) * (c[0] - b[0]))
+    cr = np.array(cr)
+    return bool(np.all(cr > 0) or np.all(cr < 0))
+
+
+def _subpix_fallback(gray: np.ndarray, corners: np.ndarray, module: float) -> np.ndarray:
+    win = int(np.clip(round(0.4 * module), 2, 15))
+    pts = corners.astype(np.float32).reshape(-1, 1, 2).copy()
+    try:
+        cv2.cornerSubPix(gray, pts, (win, win), (-1, -1), (cv2.TERM_CRITERIA_EPS + cv2.TERM_CRITERIA_MAX_ITER, 40, 0.01))
+    except cv2.error:
+        return corners
+    out = pts.reshape(4, 2).astype(np.float64)
+    return out if np.abs(out - corners).max() <= max(2.0, 0.3 * module) else corners
+
+
+def _fit_sides(roi: np.ndarray, quad: np.ndarray, marker_id: int) -> list[_SideFit] | None:
+    centre = quad.mean(axis=0)
+    black = _marker_black(marker_id)
+    fits = []
+    for i in range(4):
+        a, b = quad[i], quad[(i + 1) % 4]
+        fit = _fit_one_side(roi, a, b, centre, _inner_black(black, i))
+        if fit is None:
+            return None
+        fits.append(fit)
+    return fits
+
+
+@lru_cache(maxsize=64)
+def _marker_black(marker_id: int) -> np.ndarray:
+    """(6, 6) bool, True where marker ``marker_id`` is black (OpenCV's own pattern)."""
+    img = cv2.aruco.generateImageMarker(cv2.aruco.getPredefinedDictionary(MARKER_DICT), marker_id, MODULES)
+    out = np.asarray(img) < 128
+    out.flags.writeable = False
+    return out
+
+
+def _inner_black(black: np.ndarray, side: int) -> np.ndarray:
+    """For side ``side`` (0 top TL->TR, 1 right, 2 bottom, 3 left, in corner order),
+    whether the module just inside the border is black, for each of the 6 modules along it."""
+    if side == 0:
+        return black[1, :].copy()
+    if side == 1:
+        return black[:, 4].copy()
+    if side == 2:
+        return black[4, ::-1].copy()
+    return black[::-1, 1].copy()
+
+
+def _fit_one_side(roi, a, b, centre, inner_black) -> _SideFit | None:
+    """Edge points across one side of the black square, and the line through them.
+
+    The edge on each profile across the side is placed by the area rule
+    ``e = u_max - integral(norm du)``, the profile normalised by its own end
+    levels (equivalently, the centroid of the grey-level gradient): unbiased
+    for any symmetric blur once the window is centred on the edge (the
+    caller re-centres).  The border is only one module wide, so where the
+    module inside it is white, blur brightens the inner end of the window
+    and pulls the edge outward; those profiles are used only when the edge
+    is sharp (blur sigma under a tenth of a module).
+    """
+    vec = b - a
+    length = float(np.hypot(*vec))
+    if length < 4:
+        return None
+    d = vec / length
+    n = np.array([d[1], -d[0]])
+    if np.dot(n, (a + b) / 2 - centre) < 0:
+        n = -n  # outward
+    module = length / MODULES
+    half = float(np.clip(_EDGE_HALF_MODULES * module, 1.5, 60.0))
+    margin = max(0.5 * module, 2.0)
+    ns = _edge_points_per_side(length)
+    t = np.linspace(margin, length - margin, ns)
+    nu = int(np.clip(round(2 * half / 0.25) + 1, 9, 41))  # 0.25 px steps, at most 41 samples
+    u = np.linspace(-half, half, nu)
+    base = a[None, :] + t[:, None] * d[None, :]
+    grid = base[:, None, :] + u[None, :, None] * n[None, None, :]
+    mx = np.ascontiguousarray(grid[..., 0], dtype=np.float32)
+    my = np.ascontiguousarray(grid[..., 1], dtype=np.float32)
+    prof = cv2.remap(roi, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=np.nan)
+    ok = np.all(np.isfinite(prof), axis=1)
+
+    # profiles whose inner neighbour is black over +/- 0.3 module along the side
+    pos = t / module
+    clean = np.ones(ns, bool)
+    for off in (-0.3, 0.0, 0.3):
+        j = np.clip(np.floor(pos + off).astype(int), 0, MODULES - 1)
+        clean &= inner_black[j]
+
+    k = max(2, nu // 8)
+    du = u[1] - u[0]
+
+    def edge_of(q):
+        lo = np.mean(q[:, :k], axis=1)
+        hi = np.mean(q[:, -k:], axis=1)
+        c = hi - lo
+        good = np.isfinite(c) & (c > 8.0)
+        norm = (q - lo[:, None]) / np.where(good, c, 1.0)[:, None]
+        area = du * (norm.sum(axis=1) - 0.5 * (norm[:, 0] + norm[:, -1]))  # trapezoid rule
+        return u[-1] - area, c, good, norm
+
+    e, contrast, good, norm = edge_of(prof)
+    ok &= good
+    if ok.sum() < 6:
+        return None
+    ref = ok & clean if (ok & clean).sum() >= 4 else ok
+    sigma = _quartile_width(u, np.nanmedian(norm[ref], axis=0)) / 1.349
+    if np.isfinite(sigma) and sigma > 0.05 * module and not clean.all():
+        # Blur carries light from white data modules just inside the one-module
+        # border into the window.  For a Gaussian blur the light of a square
+        # module is separable: (spread along the side) x (spread across it);
+        # subtract it and measure again (twice, as it depends on the edge).
+        white = np.nonzero(~inner_black)[0]
+        lateral = np.zeros(ns)
+        for j in white:
+            lateral += _phi((pos - j) * module / sigma) - _phi((pos - j - 1) * module / sigma)
+        for _ in range(2):
+            depth = (e[:, None] - u[None, :])  # distance inward from the edge
+            across = _phi((depth - module) / sigma) - _phi((depth - 2 * module) / sigma)
+            light = np.where(ok, contrast, 0.0)[:, None] * lateral[:, None] * across
+            e, contrast, good, _ = edge_of(prof - light)
+        ok &= good
+    use = ok.copy()
+    use &= np.abs(e) < half
+    pts = base[use] + e[use, None] * n[None, :]
+    if len(pts) < 6:
+        return None
+    fit = fit_line_tls(pts, robust=True)
+    if fit is None:
+        return None
+    point, direction, rms, n_in = fit
+    if n_in < max(6, 0.3 * len(pts)):
+        return None
+    normal = np.array([-direction[1], direction[0]])
+    r = (pts - point) @ normal  # in order along the side
+    tol = max(3.0 * 1.4826 * float(np.median(np.abs(r))), 0.15)
+    r = r[np.abs(r) <= tol]
+    ratio = float(np.mean(np.diff(r) ** 2) / (2.0 * np.mean(r**2))) if len(r) > 2 and np.mean(r**2) > 0 else 1.0
+    n_eff = float(np.clip(n_in * ratio, 2.0, n_in))
+    # A bent or partly shifted edge (glare, a nick in the print) can leave
+    # small residuals yet tilt the line: lines through each half of the side
+    # must agree with the whole at its ends, or the difference counts.
+    half_n = len(pts) // 2
+    bend = 0.0
+    for part, end in ((pts[:half_n], a), (pts[half_n:], b)):
+        sub = fit_line_tls(part, robust=True) if len(part) >= 4 else None
+        if sub is None:
+            bend = max(bend, 0.5 * half)
+            continue
+        on_full = point + np.dot(end - point, direction) * direction
+        bend = max(bend, abs(float(np.dot(on_full - sub[0], np.array([-sub[1][1], sub[1][0]])))))
+    expected = 2.0 * rms / math.sqrt(max(n_eff / 2.0, 1.0))  # what noise alone gives a half-side line
+    sigma = math.hypot(2.0 * rms / math.sqrt(n_eff), math.sqrt(max(bend**2 - expected**2, 0.0)))
+    return _SideFit(point=point, direction=direction, rms=rms, n=n_in, n_eff=n_eff, sigma_px=sigma)
+
+
+def _phi(x: np.ndarray) -> np.ndarray:
+    """Standard normal CDF (Abramowitz & Stegun 7.1.26 erf, |error| < 1.5e-7)."""
+    x = np.asarray(x, dtype=np.float64)
+    z = np.abs(x) / math.sqrt(2.0)
+    t = 1.0 / (1.0 + 0.3275911 * z)
+    poly = t * (0.254829592 + t * (-0.284496736 + t * (1.421413741 + t * (-1.453152027 + t * 1.061405429))))
+    erf = 1.0 - poly * np.exp(-z * z)
+    return 0.5 * (1.0 + np.sign(x) * erf)
+
+
+def _quartile_width(u: np.ndarray, prof: np.ndarray) -> float:
+    """Distance between the 25 % and 75 % crossings of a rising normalised profile."""
+    def cross(level):
+        above = np.nonzero(prof >= level)[0]
+        if len(above) == 0 or above[0] == 0:
+            return np.nan
+        i = above[0]
+        p0, p1 = prof[i - 1], prof[i]
+        return u[i - 1] + (level - p0) / (p1 - p0) * (u[i] - u[i - 1]) if p1 != p0 else u[i]
+    w = cross(0.75) - cross(0.25)
+    return float(w) if np.isfinite(w) else float("inf")
+
+
+# =========================================================================== input checks
+
+
+def _gray_of(photo) -> tuple[np.ndarray, str]:
+    if isinstance(photo, Photo):
+        return photo.gray, photo.name
+    arr = np.asarray(photo)
+    if arr.ndim == 3 and arr.shape[2] in (3, 4):
+        arr = cv2.cvtColor(np.ascontiguousarray(arr[..., :3]), cv2.COLOR_RGB2GRAY)
+    if arr.ndim != 2:
+        raise SurfacesError(f"calibrate needs a Photo or a 2-D grey image, got an array of shape {arr.shape}")
+    if arr.dtype != np.uint8:
+        if arr.dtype.kind in "iu" and arr.size and arr.max() <= 255 and arr.min() >= 0:
+            arr = arr.astype(np.uint8)
+        else:
+            raise SurfacesError(f"calibrate needs an 8-bit grey image, got dtype {arr.dtype}: load it with load_photo")
+    return np.ascontiguousarray(arr), "photo"
+
+
+def _positive(value, what: str) -> float:
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise SurfacesError(f"{what} {value!r} is not a number: give a positive number") from None
+    if not math.isfinite(v) or v <= 0:
+        raise SurfacesError(f"{what} {value!r} must be a positive finite number")
+    return v
+
+
+def _check_point(pt, what: str) -> tuple[float, float] | None:
+    if pt is None:
+        return None
+    try:
+        x, y = (float(v) for v in pt)
+    except (TypeError, ValueError):
+        raise SurfacesError(f"{what} {pt!r} is not an (x, y) pair of numbers") from None
+    if not (math.isfinite(x) and math.isfinite(y)):
+        raise SurfacesError(f"{what} {pt!r} is not finite: give (x, y) in photo pixels")
+    return x, y

@@ -1,0 +1,399 @@
+"""surfaces.calibrate against marker scenes whose geometry is known by construction.
+
+Scenes: OpenCV's own DICT_4X4_50 pattern (cv2.aruco.generateImageMarker) on
+a white quiet zone, mapped into the photo by a known homography with
+cv2.warpPerspective on a 4x supersampled grid and reduced with INTER_AREA
+(so every pixel holds its area-averaged grey level).  Ground truth is
+analytic: the corners are the homography applied to the square's corners,
+the scale is sqrt|det J| of the plane -> photo map (computed here by central
+differences, independently of surfaces.geometry), the tilt is the rotation
+used to build the homography.
+"""
+
+from __future__ import annotations
+
+import math
+
+import cv2
+import numpy as np
+import pytest
+
+from surfaces.calibrate import (
+    DEFAULT_MARKER_MM,
+    MANUAL_SCALE_UNCERTAINTY_PCT,
+    _square_homography,
+    assumed_camera_matrix,
+    calibrate,
+    corner_sigma_px,
+    scale_uncertainty_pct,
+    tilt_from_homography,
+)
+from surfaces.model import CalibrationError, SurfacesError
+
+DICT = cv2.aruco.getPredefinedDictionary(cv2.aruco.DICT_4X4_50)
+BLACK, WHITE = 25.0, 225.0
+
+
+# --------------------------------------------------------------------------- scene builder
+
+
+def camera_matrix(w, h, fov_diag_deg=70.0):
+    f = math.hypot(w, h) / (2 * math.tan(math.radians(fov_diag_deg) / 2))
+    return np.array([[f, 0, (w - 1) / 2], [0, f, (h - 1) / 2], [0, 0, 1.0]])
+
+
+def rotation(tilt_deg, tilt_axis_deg=0.0, spin_deg=0.0):
+    """Spin about the plane normal, then tilt about an axis in the image plane."""
+    a = math.radians(tilt_axis_deg)
+    r_tilt, _ = cv2.Rodrigues(np.array([math.cos(a), math.sin(a), 0.0]) * math.radians(tilt_deg))
+    r_spin, _ = cv2.Rodrigues(np.array([0.0, 0.0, math.radians(spin_deg)]))
+    return r_tilt @ r_spin
+
+
+def camera_homography(K, R, centre_px, px_per_mm, plane_point_mm=(10.0, 10.0)):
+    """Plane mm -> photo px of a pinhole camera K viewing a plane turned by R (pinhole model:
+    x ~ K [r1 r2 t] (X, Y, 1)); ``plane_point_mm`` is imaged at ``centre_px`` at about ``px_per_mm``."""
+    Z = K[0, 0] / px_per_mm
+    ray = np.linalg.solve(K, np.array([centre_px[0], centre_px[1], 1.0]))
+    t = Z * ray - R @ np.array([plane_point_mm[0], plane_point_mm[1], 0.0])
+    G = K @ np.column_stack([R[:, 0], R[:, 1], t])
+    return G / G[2, 2]
+
+
+def similarity(s, angle_deg, tx, ty):
+    c, si = math.cos(math.radians(angle_deg)), math.sin(math.radians(angle_deg))
+    return np.array([[s * c, -s * si, tx], [s * si, s * c, ty], [0, 0, 1.0]])
+
+
+def placed(G, ox, oy, angle_deg):
+    """A second marker on the same plane, at (ox, oy) mm and turned by angle_deg."""
+    c, s = math.cos(math.radians(angle_deg)), math.sin(math.radians(angle_deg))
+    return G @ np.array([[c, -s, ox], [s, c, oy], [0, 0, 1.0]])
+
+
+def apply(G, pts):
+    pts = np.asarray(pts, float).reshape(-1, 2)
+    q = np.c_[pts, np.ones(len(pts))] @ G.T
+    return q[:, :2] / q[:, 2:]
+
+
+def true_scale(G, X, Y, eps=1e-4):
+    """sqrt|det J| of plane -> photo at plane (X, Y), central differences."""
+    dx = (apply(G, [[X + eps, Y]]) - apply(G, [[X - eps, Y]]))[0] / (2 * eps)
+    dy = (apply(G, [[X, Y + eps]]) - apply(G, [[X, Y - eps]]))[0] / (2 * eps)
+    return math.sqrt(abs(dx[0] * dy[1] - dx[1] * dy[0]))
+
+
+def true_corners(G, side):
+    return apply(G, [[0, 0], [side, 0], [side, side], [0, side]])
+
+
+def render(size, markers, *, background=110.0, blur=0.0, noise=0.0, jpeg=None, seed=0, ss=4, quiet=2, pattern=True):
+    """Grey photo (h, w) uint8 with markers [(id, side_mm, G plane mm -> photo px)]."""
+    w, h = size
+    rng = np.random.default_rng(seed)
+    yy, xx = np.mgrid[0:h, 0:w].astype(np.float32)
+    img = background + 25 * np.sin(xx / 97.0) * np.cos(yy / 131.0)
+    for marker_id, side, G in markers:
+        m = side / 6.0
+        bits = cv2.aruco.generateImageMarker(DICT, int(marker_id), 6) if pattern else np.full((6, 6), 0, np.uint8)
+        if not pattern:
+            bits[2:4, 2:4] = 255  # a square with a hole: looks like a candidate, decodes as nothing
+        grid = np.where(np.pad(bits, quiet, constant_values=255) > 127, WHITE, BLACK).astype(np.float32)
+        quad = apply(G, [[-quiet * m, -quiet * m], [side + quiet * m, -quiet * m],
+                         [side + quiet * m, side + quiet * m], [-quiet * m, side + quiet * m]])
+        rx0, ry0 = np.maximum(np.floor(quad.min(0)).astype(int) - 2, 0)
+        rx1, ry1 = np.minimum(np.ceil(quad.max(0)).astype(int) + 3, [w, h])
+        if rx1 <= rx0 or ry1 <= ry0:
+            continue
+        module_px = float(np.mean(np.hypot(*(np.roll(quad, -1, 0) - quad).T))) / (6 + 2 * quiet)
+        k = ss if module_px * ss <= 400 else max(1, int(400 // module_px))
+        ppm = int(min(max(16, math.ceil(module_px * k)), 512))
+        tex = np.ascontiguousarray(np.repeat(np.repeat(grid, ppm, axis=0), ppm, axis=1))
+        # texture px (pixel centres at integers) -> plane mm; photo px -> supersampled ROI px
+        B = np.array([[m / ppm, 0, 0.5 * m / ppm - quiet * m], [0, m / ppm, 0.5 * m / ppm - quiet * m], [0, 0, 1]])
+        A = np.array([[k, 0, (0.5 - rx0) * k - 0.5], [0, k, (0.5 - ry0) * k - 0.5], [0, 0, 1.0]])
+        M = A @ G @ B
+        rw, rh = (rx1 - rx0) * k, (ry1 - ry0) * k
+        warped = cv2.warpPerspective(tex, M, (rw, rh), flags=cv2.INTER_LINEAR, borderValue=0)
+        mask = cv2.warpPerspective(np.ones_like(tex), M, (rw, rh), flags=cv2.INTER_LINEAR, borderValue=0)
+        if k > 1:
+            warped = cv2.resize(warped, (rx1 - rx0, ry1 - ry0), interpolation=cv2.INTER_AREA)
+            mask = cv2.resize(mask, (rx1 - rx0, ry1 - ry0), interpolation=cv2.INTER_AREA)
+        img[ry0:ry1, rx0:rx1] = img[ry0:ry1, rx0:rx1] * (1 - mask) + warped
+    if blur > 0:
+        img = cv2.GaussianBlur(img, (0, 0), blur)
+    if noise > 0:
+        img = img + rng.normal(0, noise, img.shape).astype(np.float32)
+    out = np.clip(np.rint(img), 0, 255).astype(np.uint8)
+    if jpeg:
+        _, buf = cv2.imencode(".jpg", out, [cv2.IMWRITE_JPEG_QUALITY, int(jpeg)])
+        out = cv2.imdecode(buf, cv2.IMREAD_GRAYSCALE)
+    return out
+
+
+W, H = 1600, 1200
+K = camera_matrix(W, H)
+
+
+def scale_error_pct(cal, G, X=10.0, Y=10.0):
+    p = apply(G, [[X, Y]])[0]
+    return 100.0 * (cal.px_per_mm_at(*p) / true_scale(G, X, Y) - 1.0), p
+
+
+# --------------------------------------------------------------------------- accuracy
+
+
+@pytest.mark.parametrize("s, angle", [(8.0, 0.0), (8.0, 33.0), (3.5, 71.0), (12.0, -150.0)])
+def test_similarity_scale_and_corners(s, angle):
+    G = similarity(s, angle, 700.3, 480.7)
+    side = DEFAULT_MARKER_MM
+    img = render((W, H), [(5, side, G)])
+    cal = calibrate(img)
+    assert cal.method == "marker" and cal.marker_mm == side
+    err, _ = scale_error_pct(cal, G)
+    assert abs(err) < 0.3  # analytic: the scale of a similarity is s everywhere
+    assert abs(cal.px_per_mm_at(100.0, 1000.0) / s - 1) < 0.003
+    hit = cal.markers[0]
+    assert hit.marker_id == 5
+    assert np.abs(hit.corners_px - true_corners(G, side)).max() < 0.2
+    assert cal.tilt_deg < 2.0
+
+
+@pytest.mark.parametrize("tilt", [0, 10, 20, 30, 40])
+def test_tilted_plane_scale_tilt_and_corners(tilt):
+    G = camera_homography(K, rotation(tilt, 30.0, 17.0), (720, 560), 7.0)
+    img = render((W, H), [(3, 20.0, G)])
+    cal = calibrate(img, face_hint_px=tuple(apply(G, [[10, 10]])[0]))
+    err, _ = scale_error_pct(cal, G)
+    assert abs(err) < 0.3
+    # the truth was built with the same camera model the tilt estimate assumes
+    assert abs(cal.tilt_deg - tilt) < 3.0
+    assert np.abs(cal.markers[0].corners_px - true_corners(G, 20.0)).max() < 0.2
+    far = abs(scale_error_pct(cal, G, 60.0, 30.0)[0])  # 50 mm away from the marker, still on its plane
+    assert far < 0.5
+    if tilt >= 40:
+        assert any("tilted" in w for w in cal.warnings)
+    else:
+        assert not any("tilted" in w for w in cal.warnings)
+
+
+@pytest.mark.parametrize("blur, noise, jpeg", [(1.0, 3.0, 90), (1.5, 5.0, 75), (0.0, 6.0, 80), (2.0, 2.0, None)])
+def test_blur_noise_jpeg(blur, noise, jpeg):
+    G = camera_homography(K, rotation(18, 120.0, 40.0), (800, 600), 4.0)
+    img = render((W, H), [(21, 20.0, G)], blur=blur, noise=noise, jpeg=jpeg, seed=7)
+    p = apply(G, [[10, 10]])[0]
+    cal = calibrate(img, face_hint_px=tuple(p))
+    err, _ = scale_error_pct(cal, G)
+    assert abs(err) < 0.5
+    assert abs(err) < 3 * cal.uncertainty_pct  # the error lies within its stated uncertainty
+    assert np.abs(cal.markers[0].corners_px - true_corners(G, 20.0)).max() < 0.5
+    assert math.isfinite(corner_sigma_px(cal.markers[0]))
+
+
+@pytest.mark.parametrize("marker_id", [0, 17, 49])
+def test_any_id(marker_id):
+    G = similarity(5.0, 10.0, 600, 500)
+    cal = calibrate(render((W, H), [(marker_id, 20.0, G)]))
+    assert [m.marker_id for m in cal.markers] == [marker_id]
+
+
+def test_printed_size_is_used():
+    G = similarity(5.0, 0.0, 600, 500)  # 35 mm marker at 5 px/mm
+    img = render((W, H), [(2, 35.0, G)])
+    assert abs(calibrate(img, marker_mm=35.0).px_per_mm_at(700, 600) / 5.0 - 1) < 0.003
+    # told the card default instead: the scale is off by exactly 35 / 20 (analytic)
+    assert abs(calibrate(img).px_per_mm_at(700, 600) / (5.0 * 35.0 / 20.0) - 1) < 0.003
+
+
+def test_large_photo_downscaled_search_and_small_marker_retry():
+    w, h = 4000, 3000
+    K4 = camera_matrix(w, h)
+    G = camera_homography(K4, rotation(15, 0, 5), (1400, 1800), 6.0)  # marker ~120 px: found on the reduced copy
+    cal = calibrate(render((w, h), [(9, 20.0, G)], noise=2, seed=1))
+    assert abs(scale_error_pct(cal, G)[0]) < 0.3
+    G = camera_homography(K4, rotation(10, 0, 5), (2400, 900), 2.0)  # ~40 px: too small for the reduced copy
+    cal = calibrate(render((w, h), [(9, 20.0, G)], noise=2, seed=1))
+    assert abs(scale_error_pct(cal, G)[0]) < 0.5
+    assert np.abs(cal.markers[0].corners_px - true_corners(G, 20.0)).max() < 0.3
+
+
+def test_photo_and_grey_array_agree(tmp_path):
+    from surfaces.photo import load_photo
+
+    G = similarity(6.0, 20.0, 700, 500)
+    gray = render((W, H), [(4, 20.0, G)], noise=2)
+    path = tmp_path / "scene.png"
+    cv2.imwrite(str(path), gray)
+    photo = load_photo(path)
+    a, b = calibrate(photo), calibrate(gray)
+    np.testing.assert_allclose(a.H, b.H, rtol=1e-9, atol=1e-12)
+    with pytest.raises(CalibrationError) as ei:
+        calibrate(load_photo(cv2.imencode(".png", np.full((300, 400), 128, np.uint8))[1].tobytes(), name="blank.png"))
+    assert "blank.png" in str(ei.value)
+
+
+# --------------------------------------------------------------------------- several markers
+
+
+def test_several_markers_on_one_plane():
+    G = camera_homography(K, rotation(25, 40, 10), (800, 600), 4.0, (60, 40))
+    Gs = [placed(G, 0, 0, 0), placed(G, 100, 0, 30), placed(G, 20, 70, -15)]
+    img = render((W + 800, H + 600), [(1, 20.0, Gs[0]), (2, 20.0, Gs[1]), (3, 20.0, Gs[2])], noise=3, blur=1.0, seed=2)
+    face = apply(G, [[60, 40]])[0]
+    cal = calibrate(img, face_hint_px=tuple(face))
+    assert cal.method == "markers" and len(cal.markers) == 3
+    assert cal.consistency_pct is not None and cal.consistency_pct < 2.0
+    err = 100 * (cal.px_per_mm_at(*face) / true_scale(G, 60, 40) - 1)
+    assert abs(err) < 1.0 and abs(err) < 3 * cal.uncertainty_pct
+    # the joint fit is more certain at the face than the best single marker alone
+    singles = [calibrate(render((W + 800, H + 600), [(i + 1, 20.0, Gs[i])], noise=3, blur=1.0, seed=2),
+                         face_hint_px=tuple(face)).uncertainty_pct for i in range(3)]
+    assert cal.uncertainty_pct < min(singles)
+
+
+def test_markers_printed_at_very_different_sizes_refused():
+    G = camera_homography(K, rotation(10, 0, 0), (600, 600), 5.0)
+    img = render((W, H), [(1, 20.0, G), (2, 27.0, placed(G, 90, 0, 0))])  # 27 mm printed where 20 mm was meant
+    with pytest.raises(CalibrationError) as ei:
+        calibrate(img)
+    msg = str(ei.value)
+    assert "disagree" in msg and "different sizes" in msg and "--marker-mm" in msg and "\n" not in msg
+
+
+def test_markers_a_few_percent_apart_warn_and_use_one():
+    G = similarity(10.0, 0.0, 300, 400)
+    img = render((W, H), [(1, 20.0, G), (2, 21.0, placed(G, 45, 0, 0))])  # 5 % apart, large and sharp
+    cal = calibrate(img, face_hint_px=tuple(apply(G, [[10, 10]])[0]))
+    assert cal.method == "marker"
+    assert cal.consistency_pct == pytest.approx(5.0, abs=0.5)  # analytic: 21 / 20 - 1
+    assert any("disagree" in w for w in cal.warnings)
+    assert abs(cal.px_per_mm_at(400, 500) / 10.0 - 1) < 0.003  # the marker nearest the hint (the 20 mm one)
+
+
+# --------------------------------------------------------------------------- warnings and failures
+
+
+def test_small_marker_warns():
+    G = similarity(1.1, 12.0, 600, 500)  # 22 px across, 3.7 px per module
+    cal = calibrate(render((W, H), [(6, 20.0, G)]))
+    assert any("too small" in w and "bigger marker" in w for w in cal.warnings)
+    assert abs(scale_error_pct(cal, G)[0]) < 1.0
+
+
+def _assert_how_to(msg: str):
+    assert "\n" not in msg
+    for needle in ("no reference marker", "same height", "white margin", "60 px", "glare", "--px-per-mm", "--ruler"):
+        assert needle in msg, needle
+
+
+def test_no_marker_tells_how_to_retake():
+    with pytest.raises(CalibrationError) as ei:
+        calibrate(render((W, H), []))
+    _assert_how_to(str(ei.value))
+
+
+def test_marker_half_out_of_frame():
+    G = similarity(5.0, 0.0, -50.0, 500.0)  # left half of the marker outside the photo
+    with pytest.raises(CalibrationError) as ei:
+        calibrate(render((W, H), [(1, 20.0, G)]))
+    _assert_how_to(str(ei.value))
+
+
+def test_undecodable_squares_are_counted():
+    G = similarity(6.0, 0.0, 600, 500)
+    with pytest.raises(CalibrationError) as ei:
+        calibrate(render((W, H), [(0, 20.0, G)], pattern=False))
+    assert "seen but none decoded" in str(ei.value)
+    _assert_how_to(str(ei.value))
+
+
+# --------------------------------------------------------------------------- uncertainty
+
+
+def test_uncertainty_grows_as_marker_shrinks():
+    values = []
+    for s in (10.0, 5.0, 2.5):
+        G = similarity(s, 5.0, 500, 400)
+        cal = calibrate(render((W, H), [(8, 20.0, G)], noise=3, seed=3))
+        far = apply(G, [[60.0, 10.0]])[0]  # 40 mm beyond the marker's far side
+        values.append(scale_uncertainty_pct(cal, *far, parts=True))
+    corners = [v["corners_pct"] for v in values]
+    assert corners[0] < corners[1] < corners[2]
+    assert all(v["total_pct"] >= v["print_pct"] for v in values)
+
+
+def test_uncertainty_grows_with_distance_from_marker():
+    G = camera_homography(K, rotation(20, 10, 0), (500, 500), 5.0)
+    img = render((W, H), [(8, 20.0, G)], noise=3, seed=3)
+    near = calibrate(img, face_hint_px=tuple(apply(G, [[10, 10]])[0]))
+    far = calibrate(img, face_hint_px=tuple(apply(G, [[150, 100]])[0]))
+    assert far.uncertainty_pct > near.uncertainty_pct
+    np.testing.assert_allclose(near.H, far.H)
+    # the stored uncertainty is the one scale_uncertainty_pct gives at the hint
+    assert scale_uncertainty_pct(near, *apply(G, [[150, 100]])[0]) == pytest.approx(far.uncertainty_pct, rel=1e-9)
+
+
+# --------------------------------------------------------------------------- fallbacks
+
+
+def test_px_per_mm_fallback():
+    gray = render((W, H), [])
+    cal = calibrate(gray, px_per_mm=7.5)
+    assert cal.method == "px-per-mm" and cal.tilt_deg is None and cal.marker_mm is None
+    assert cal.px_per_mm_at(10, 10) == pytest.approx(7.5) and cal.px_per_mm_at(1500, 1100) == pytest.approx(7.5)
+    assert cal.uncertainty_pct == MANUAL_SCALE_UNCERTAINTY_PCT
+    assert any("no perspective correction" in w for w in cal.warnings)
+    # 75 px in the photo is 10 mm on the plane (analytic)
+    np.testing.assert_allclose(np.diff((cal.H @ np.array([[100, 175], [0, 0], [1, 1]]))[0]), [10.0])
+
+
+def test_ruler_fallback():
+    cal = calibrate(render((W, H), []), ruler=(100.0, 200.0, 700.0, 200.0, 50.0))
+    assert cal.method == "ruler"
+    assert cal.px_per_mm_at(800, 900) == pytest.approx(600.0 / 50.0)
+    # each end clicked to within 1 px: sqrt(2) px on 600 px (analytic)
+    assert cal.uncertainty_pct == pytest.approx(100 * math.sqrt(2) / 600.0)
+    assert any("ruler" in w and "no perspective correction" in w for w in cal.warnings)
+    short = calibrate(render((W, H), []), ruler=(0, 0, 60, 80, 10))  # 100 px
+    assert short.px_per_mm_at(0, 0) == pytest.approx(10.0)
+    assert any("short" in w for w in short.warnings)
+
+
+@pytest.mark.parametrize("kw", [
+    {"px_per_mm": 0}, {"px_per_mm": -3}, {"px_per_mm": float("nan")}, {"px_per_mm": "ten"},
+    {"ruler": (0, 0, 100, 0)}, {"ruler": (0, 0, 100, 0, -5)}, {"ruler": (0, 0, 1, 1, 5)}, {"ruler": "a ruler"},
+    {"px_per_mm": 5, "ruler": (0, 0, 100, 0, 10)}, {"marker_mm": -20}, {"marker_mm": 0.1},
+    {"face_hint_px": (1, float("inf"))}, {"face_hint_px": "centre"},
+])
+def test_bad_options(kw):
+    with pytest.raises(SurfacesError) as ei:
+        calibrate(render((400, 300), []), **kw)
+    assert "\n" not in str(ei.value)
+
+
+def test_bad_image_arguments():
+    with pytest.raises(SurfacesError):
+        calibrate(np.zeros((10, 10, 10)))
+    with pytest.raises(SurfacesError):
+        calibrate(np.zeros((300, 300), np.float32) + 0.5)
+
+
+# --------------------------------------------------------------------------- helpers against references
+
+
+def test_square_homography_matches_opencv():
+    rng = np.random.default_rng(4)
+    corners = np.array([[100, 100], [300, 120], [290, 330], [90, 310]], float) + rng.normal(0, 5, (4, 2))
+    ours = _square_homography(corners, 20.0)
+    plane = np.array([[0, 0], [20, 0], [20, 20], [0, 20]], np.float32)
+    ref = cv2.getPerspectiveTransform(corners.astype(np.float32), plane).astype(float)  # reference: OpenCV
+    np.testing.assert_allclose(ours / ours[2, 2], ref / ref[2, 2], rtol=1e-4, atol=1e-7)
+
+
+@pytest.mark.parametrize("tilt", [0.0, 12.0, 35.0, 60.0])
+def test_tilt_from_homography_analytic(tilt):
+    Kc = assumed_camera_matrix(4000, 3000)
+    G = camera_homography(Kc, rotation(tilt, 70.0, 25.0), (1700, 1300), 9.0)
+    assert tilt_from_homography(np.linalg.inv(G), Kc) == pytest.approx(tilt, abs=1e-6)
+    np.testing.assert_allclose(Kc, camera_matrix(4000, 3000))  # the documented 70 deg diagonal field of view
