@@ -61,6 +61,7 @@ __all__ = [
     "match",
     "photo_scores",
     "scores",
+    "truth_band",
     "truth_table",
     "truth_verdict",
 ]
@@ -362,71 +363,70 @@ def photo_scores(assessment: dict, truth: dict) -> dict:
 # --------------------------------------------------------------------------- truth verdict
 
 
-def _face_axes(truth: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray, float, float]:
-    """Origin, unit x (along), unit y (across) of the truth face in the plane, and L, W.
+def _to_face_mm(truth: dict):
+    """A function mapping plane mm (N, 2) to face mm (x along, y across), and the face's L, W.
 
-    The face polygon's first vertex is taken as the face origin and its
-    longer adjacent side as the x axis (a rectangle in plane mm).
+    Uses the truth face's ``A_face_to_plane`` (face mm -> plane mm) when
+    present; otherwise the face polygon's first vertex is the origin and its
+    longer adjacent side the x axis (a rectangle in plane mm).
     """
     tf = truth.get("face") or {}
+    L, W = _num(tf.get("length_mm")), _num(tf.get("width_mm"))
+    A = tf.get("A_face_to_plane")
+    if A is not None:
+        Ainv = np.linalg.inv(np.asarray(A, dtype=np.float64))
+        return (lambda pts: apply_h(Ainv, pts)), L, W
     P = np.asarray(tf.get("polygon_mm") or [], dtype=np.float64).reshape(-1, 2)
     if len(P) < 3:
-        raise TruthError("the truth face has no polygon_mm: cannot place imperfections in face axes")
-    ax = tf.get("axes_mm")
-    if isinstance(ax, dict) and {"origin", "x", "y"} <= set(ax):
-        o = np.asarray(ax["origin"], float)
-        ux = np.asarray(ax["x"], float)
-        uy = np.asarray(ax["y"], float)
-    else:
-        o = P[0]
-        a, b = P[1] - P[0], P[-1] - P[0]
-        if np.hypot(*b) > np.hypot(*a):
-            a, b = b, a
-        ux = a / np.hypot(*a)
-        uy = b / np.hypot(*b)
-    L = _num(tf.get("length_mm"))
-    W = _num(tf.get("width_mm"))
+        raise TruthError("the truth face has neither A_face_to_plane nor polygon_mm: cannot use face axes")
+    o = P[0]
+    a, b = P[1] - P[0], P[-1] - P[0]
+    if np.hypot(*b) > np.hypot(*a):
+        a, b = b, a
+    ux, uy = a / np.hypot(*a), b / np.hypot(*b)
     rel = P - o
     if not math.isfinite(L):
         L = float(np.ptp(rel @ ux))
     if not math.isfinite(W):
         W = float(np.ptp(rel @ uy))
-    return o, ux / np.hypot(*ux), uy / np.hypot(*uy), L, W
+    return (lambda pts: np.c_[(np.asarray(pts, float) - o) @ ux, (np.asarray(pts, float) - o) @ uy]), L, W
 
 
 def truth_table(truth: dict, *, root_side: str | None = None) -> pd.DataFrame:
     """The truth imperfections as an imperfection table (contract columns, uncertainties 0).
 
-    Face-axes extents are the truth centroid +/- half the truth ``along_mm`` /
-    ``across_mm``; ``at_edge`` is the truth ``starts_at_edge`` (or the 0.5 mm
-    band when it is absent); ``confidence`` is 1 and ``status`` ``confirmed``.
-    ``root_side`` (``y0``/``y1``) defaults to the truth face's ``root_side``.
+    Face-axes extents come from the truth's ``face_mm`` (exact, written by
+    the generator); without it, the centroid is mapped into face axes and
+    the extents are the centroid +/- half ``along_mm`` / ``across_mm``.
+    ``at_edge`` is the truth ``starts_at_edge`` or, when that is false or
+    absent, the same 0.5 mm band the measurement uses; ``confidence`` is 1
+    and ``status`` ``confirmed``.  ``root_side`` (``y0``/``y1``) defaults to
+    the truth face's ``root_side``.
     """
     from .measure import EDGE_BAND_MM, TABLE_COLUMNS, empty_table
 
     tru = list(truth.get("imperfections") or [])
     if not tru:
         return empty_table()
-    o, ux, uy, L, W = _face_axes(truth)
+    to_face, L, W = _to_face_mm(truth)
     root = root_side or (truth.get("face") or {}).get("root_side") or "unknown"
     rows = []
     for i, t in enumerate(tru, start=1):
         kind = str(t.get("kind") or "")
         if kind not in KINDS:
             raise TruthError(f"truth imperfection {i} has kind {kind!r}: expected one of {', '.join(KINDS)}")
-        c = np.asarray(t.get("centroid_mm"), float) - o
-        cx, cy = float(c @ ux), float(c @ uy)
         along, across = _num(t.get("along_mm")), _num(t.get("across_mm"))
-        x0, x1 = cx - along / 2, cx + along / 2
-        y0, y1 = cy - across / 2, cy + across / 2
-        if "x0_mm" in t:  # exact face-axes extents, when the generator gives them
-            x0, x1, y0, y1 = (_num(t.get(k)) for k in ("x0_mm", "x1_mm", "y0_mm", "y1_mm"))
+        fm = t.get("face_mm")
+        if isinstance(fm, dict) and {"cx", "cy", "x0", "x1", "y0", "y1"} <= set(fm):
+            cx, cy, x0, x1, y0, y1 = (_num(fm[k]) for k in ("cx", "cy", "x0", "x1", "y0", "y1"))
+        else:
+            cx, cy = (float(v) for v in to_face([t.get("centroid_mm")])[0])
+            x0, x1 = cx - along / 2, cx + along / 2
+            y0, y1 = cy - across / 2, cy + across / 2
         dist_end = min(x0, L - x1)
         dist_edge = min(y0, W - y1)
         dist_root = y0 if root == "y0" else (W - y1 if root == "y1" else float("nan"))
-        at_edge = t.get("starts_at_edge")
-        if at_edge is None:
-            at_edge = dist_edge <= EDGE_BAND_MM or dist_end <= EDGE_BAND_MM
+        at_edge = bool(t.get("starts_at_edge")) or dist_edge <= EDGE_BAND_MM or dist_end <= EDGE_BAND_MM
         at_root = dist_root <= EDGE_BAND_MM if root in ("y0", "y1") else dist_edge <= EDGE_BAND_MM
         row = {c: None for c in TABLE_COLUMNS}
         row.update(
@@ -453,3 +453,47 @@ def truth_verdict(truth: dict, *, limit_set, test: str, nominal: dict | None = N
     face = {k: _num(tf.get(k)) for k in ("length_mm", "width_mm", "area_mm2")}
     v = judge(truth_table(truth), face=face, nominal=dict(nominal or {}), limit_set=limit_set, test=test)
     return v.to_dict()
+
+
+def _scaled_truth_table(truth: dict, sign: int) -> pd.DataFrame:
+    """Truth table with every size moved by ``sign`` x max(0.15 mm, 5 %)."""
+    tab = truth_table(truth)
+    if not len(tab):
+        return tab
+    tab = tab.copy()
+    ratio = {}
+    for col in ("greatest_mm", "width_mm", "along_mm", "across_mm"):
+        v = pd.to_numeric(tab[col], errors="coerce").astype(float)
+        tol = np.maximum(GREATEST_TOL_MM, GREATEST_TOL_REL * v)
+        new = np.maximum(v + sign * tol, 0.0)
+        ratio[col] = np.where(v > 0, new / v.where(v > 0, 1.0), 1.0)
+        tab[col] = new
+    a = pd.to_numeric(tab["area_mm2"], errors="coerce").astype(float)
+    tab["area_mm2"] = a * ratio["greatest_mm"] * ratio["width_mm"]
+    return tab
+
+
+def truth_band(truth: dict, *, limit_set, test: str, nominal: dict | None = None) -> dict:
+    """The truth verdict and whether it sits within measuring tolerance of a limit.
+
+    The truth table is judged as it is, with every size shrunk by
+    max(0.15 mm, 5 %) and with every size grown by as much.  When those
+    verdicts differ the coupon is *borderline*: a tool measuring to that
+    tolerance cannot decide it from the photo, and should say ``review``.
+
+    Returns
+    -------
+    dict
+        ``result`` (the truth verdict), ``low`` and ``high`` (verdicts of the
+        shrunk and grown tables), ``borderline`` (bool), ``reasons``.
+    """
+    from .limits import judge
+
+    tf = truth.get("face") or {}
+    face = {k: _num(tf.get(k)) for k in ("length_mm", "width_mm", "area_mm2")}
+    kw = {"face": face, "nominal": dict(nominal or {}), "limit_set": limit_set, "test": test}
+    mid = judge(truth_table(truth), **kw)
+    low = judge(_scaled_truth_table(truth, -1), **kw)
+    high = judge(_scaled_truth_table(truth, +1), **kw)
+    return {"result": mid.result, "low": low.result, "high": high.result,
+            "borderline": len({low.result, mid.result, high.result}) > 1, "reasons": list(mid.reasons)}

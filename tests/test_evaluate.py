@@ -193,3 +193,38 @@ def test_truth_table_face_axes_and_verdict():
     assert ev.truth_verdict(truth, limit_set=ls, test="fillet-break")["result"] == "accept"
     truth["imperfections"] = []
     assert ev.truth_verdict(truth, limit_set=ls, test="fillet-break")["result"] == "accept"
+
+
+def test_truth_table_uses_face_transform_and_exact_extents():
+    # analytic geometry: A maps face mm to plane mm (rotation 90 degrees + shift)
+    A = [[0.0, -1.0, 50.0], [1.0, 0.0, 10.0], [0.0, 0.0, 1.0]]
+    c_plane = [50.0 - 3.0, 10.0 + 20.0]  # face (x, y) = (20, 3)
+    truth = _truth([_t("inclusion", *c_plane, 2.0, along=2.0, across=0.6)])
+    truth["face"]["A_face_to_plane"] = A
+    truth["face"]["root_side"] = "y0"
+    r = ev.truth_table(truth).iloc[0]
+    assert (r["cx_mm"], r["cy_mm"]) == pytest.approx((20.0, 3.0))
+    assert r["y0_mm"] == pytest.approx(2.7) and r["dist_root_mm"] == pytest.approx(2.7)
+    assert not r["at_root"]
+    # exact extents given by the generator win over centroid +/- half sizes
+    truth["imperfections"][0]["face_mm"] = {"cx": 20.0, "cy": 3.0, "x0": 19.5, "x1": 21.5, "y0": 0.2, "y1": 0.8}
+    r = ev.truth_table(truth).iloc[0]
+    assert r["x0_mm"] == 19.5 and r["y0_mm"] == 0.2 and r["at_root"] and r["at_edge"]
+
+
+@pytest.mark.parametrize(
+    "d_mm, result, border",
+    [
+        (1.0, "accept", False),
+        (2.30, "accept", True),  # 2.30 + 0.15 > 2.38
+        (2.42, "reject", True),  # 2.42 - 0.15 < 2.38
+        (3.6, "reject", False),  # 3.6 - 5 % = 3.42 > 2.38
+    ],
+)
+def test_truth_band_marks_sizes_within_tolerance_of_a_limit(d_mm, result, border):
+    # REFERENCES.md, AWS D1.1 fillet break: no pore over 3/32 in (2.38 mm exactly)
+    from surfaces.limits import load_limit_set
+
+    truth = _truth([_t("pore", 40, 5, d_mm, starts_at_edge=False)])
+    b = ev.truth_band(truth, limit_set=load_limit_set("aws-d1.1-fillet-break"), test="fillet-break")
+    assert b["result"] == result and b["borderline"] is border
