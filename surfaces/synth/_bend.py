@@ -87,10 +87,11 @@ class BendBuilder:
             Rf = max(R - T, 0.0)
         if not (5.0 <= Wc <= 80.0 and R > 0):
             raise SynthError(f"coupon width {Wc:g} mm is out of range (use 10..40 mm)")
-        lmax = 150.0
+        lmax, lmin = 150.0, 40.0
         if self.curved:
             lmax = min(lmax, 2 * R * 1.25)  # half angle up to about 72 deg
-        L = float(self.fixed_L or max(20.0, rng.uniform(40.0, max(40.0, lmax)) * shrink))
+            lmin = min(lmin, 0.8 * lmax)  # a tight bend shows a shorter convex arc
+        L = float(self.fixed_L or max(lmin, rng.uniform(lmin, max(lmin, lmax)) * shrink))
         if self.curved and L / (2 * R) >= math.pi / 2:
             raise SynthError(f"bend arc {L:g} mm is more than half the circumference of radius {R:g} mm; shorten it")
         self.L, self.R, self.T, self.Rf, self.Wc = L, R, T, Rf, Wc
@@ -283,11 +284,16 @@ class BendBuilder:
         h, w = shape
         g = rng.uniform(0.5, 0.75)
         base = np.array([g, g * rng.uniform(0.98, 1.01), g * rng.uniform(0.98, 1.04)], np.float32)
-        marks = _noise.fractal(rng, shape, rng.uniform(15, 40) * r, cell_y=max(rng.uniform(0.04, 0.15) * r, 0.6), angle_deg=float(rng.normal(0, 2)), octaves=3)
+        marks = _noise.fractal(
+            rng, shape, rng.uniform(15, 40) * r, cell_y=max(rng.uniform(0.03, 0.1) * r, 0.6), angle_deg=float(rng.normal(0, 1.5)), octaves=2
+        )
+        coarse = _noise.value(rng, shape, rng.uniform(30, 60) * r, cell_y=max(rng.uniform(0.3, 0.8) * r, 0.8))
         peel_cell = rng.uniform(0.25, 0.8)
-        peel_h = _noise.fractal(rng, shape, 1.5 * peel_cell * r, cell_y=peel_cell * r, octaves=3) * np.float32(rng.uniform(0.1, 0.3) * r)
+        peel_h = _noise.fractal(rng, shape, 1.5 * peel_cell * r, cell_y=peel_cell * r, octaves=3)
+        peel_h *= np.float32(rng.uniform(0.015, 0.06) * r)
         peel = _noise.shade(peel_h, ctx.light.azimuth_deg, strength=0.5)
-        lum = 1.0 + np.float32(rng.uniform(0.03, 0.09)) * marks + peel + 0.03 * _noise.fractal(rng, shape, 10 * r)
+        lum = 1.0 + np.float32(rng.uniform(0.04, 0.1)) * marks + np.float32(rng.uniform(0.02, 0.06)) * coarse + peel
+        lum += 0.03 * _noise.fractal(rng, shape, 10 * r)
         # the weld zone across the coupon: a slightly different tone between two fusion lines
         X = (np.arange(w, dtype=np.float32) + 0.5) / np.float32(r) + np.float32(A[0, 2] - 0.5 / r)
         wz = rng.uniform(6, 25)

@@ -54,10 +54,10 @@ class FractureBuilder:
     def geometry(self, rng, *, shrink: float = 1.0) -> Geometry:
         fillet = self.test == "fillet-break"
         if fillet:
-            L = self.fixed_length or max(20.0, rng.uniform(60.0, 160.0) * shrink)
+            L = self.fixed_length or max(60.0, rng.uniform(60.0, 160.0) * shrink)
             W = self.fixed_width or rng.uniform(4.0, 12.0)
         else:
-            L = self.fixed_length or max(12.0, rng.uniform(20.0, 30.0) * min(1.0, shrink * 1.5))
+            L = self.fixed_length or max(20.0, rng.uniform(20.0, 30.0) * shrink)
             W = self.fixed_width or rng.uniform(6.0, 20.0)
         if not (3.0 <= L <= 400.0 and 1.0 <= W <= 60.0):
             raise SynthError(f"face {L:g} x {W:g} mm is out of range (length 3..400, width 1..60 mm)")
@@ -218,7 +218,9 @@ class FractureBuilder:
                 iso = "4011"
             else:
                 raise SynthError(f"unfused side {side!r} is unknown (use 'root' or 'wall')")
-            rgb = (np.array(TINTS[tint]) * rng.uniform(0.85, 1.15)).clip(0, 1).tolist()
+            # heat tints on a real face are muted: mix towards the face's grey
+            mix = rng.uniform(0.35, 0.7)
+            rgb = ((mix * np.array(TINTS[tint]) + (1 - mix) * 0.5) * rng.uniform(0.85, 1.15)).clip(0, 1).tolist()
             sh = {"shape": "band", "side": side, "x0_mm": x0, "length_mm": length, "nominal_width_mm": wid, "tint": tint, "tint_rgb": rgb}
             return Defect("unfused", iso, poly, None, sh, {"at_root": side == "root"})
         # crack
@@ -293,15 +295,17 @@ class FractureBuilder:
             inb = np.clip((1 - v * v) * endfall, 0, 1)
             prof = np.sqrt(inb)
             pitch = rng.uniform(0.7, 2.0)
-            ripple = np.sin((X - np.float32(rng.uniform(0.5, 2.0)) * v * v * bead / 2) * np.float32(2 * math.pi / pitch))
-            hgt = prof * np.float32(0.4 * bead * r) + ripple * np.float32(0.04 * r) * prof
+            phase = _noise.value(rng, (h, w), 6 * r) * np.float32(0.6)
+            ripple = np.sin((X - np.float32(rng.uniform(0.5, 2.0)) * v * v * bead / 2) * np.float32(2 * math.pi / pitch) + phase)
+            ripple *= np.float32(rng.uniform(0.2, 0.6))
+            hgt = prof * np.float32(0.4 * bead * r) + ripple * np.float32(0.02 * r) * prof
             shade = _noise.shade(hgt.astype(np.float32), ctx.light.azimuth_deg, strength=0.5)
-            bead_lum = 0.55 + 0.1 * ripple * prof + shade + 0.05 * _noise.fractal(rng, (h, w), 2.0 * r)
+            bead_lum = 0.55 + 0.06 * ripple * prof + shade + 0.06 * _noise.fractal(rng, (h, w), 2.0 * r)
             bead_col = np.array(rng.choice([[0.42, 0.42, 0.45], [0.36, 0.34, 0.33], [0.48, 0.46, 0.42]]), np.float32)
             bead_rgb = bead_lum[..., None] * bead_col
             # glassy silicate islands on the bead
-            isl = _noise.blotches(rng, (h, w), 1.5 * r, rng.uniform(0.0, 0.06)) * (prof > 0.3)
-            bead_rgb = bead_rgb * (1 - isl[..., None]) + isl[..., None] * np.array([0.3, 0.22, 0.12], np.float32)
+            isl = _noise.blotches(rng, (h, w), 1.5 * r, rng.uniform(0.0, 0.04), edge=0.5) * (prof > 0.3)
+            bead_rgb = bead_rgb * (1 - isl[..., None]) + isl[..., None] * np.array([0.22, 0.17, 0.11], np.float32)
             a_b = np.clip(inb * 4, 0, 1)[..., None]
             # heat tint on the plate beside the bead
             dist = np.abs(v) - 1
@@ -318,7 +322,7 @@ class FractureBuilder:
             for _ in range(int(rng.integers(0, 25))):
                 sx = rng.uniform(lo[0], hi[0])
                 sy = yc + rng.normal(0, 1.5 * bead)
-                paint_speck(rgb, A, sx, sy, rng.uniform(0.3, 1.2), float(rng.uniform(0.4, 0.8)))
+                paint_speck(rgb, A, sx, sy, rng.uniform(0.3, 1.0), float(rng.uniform(0.25, 0.45)))
             alpha = fill_alpha((h, w), [to_px(A, _jag(rng, sp))])
         else:
             rgb, rust = _textures.plate(rng, (h, w), r, kind)
@@ -337,8 +341,8 @@ class FractureBuilder:
                 lum = 0.5 - 0.25 * slope + 0.05 * _noise.fractal(rng, (h, w), 1.0 * r)
                 rgb = rgb * (1 - inside[..., None]) + inside[..., None] * (lum[..., None] * np.array([0.8, 0.8, 0.85], np.float32))
             alpha = fill_alpha((h, w), [to_px(A, _jag(rng, sp, amp=0.15))])
-        if placed is not None and rust.max() > 0.5:
-            n, lab, stats, cents = cv2.connectedComponentsWithStats((rust > 0.5).astype(np.uint8))
+        if placed is not None and rust.max() > 0.3:
+            n, lab, stats, cents = cv2.connectedComponentsWithStats((rust > 0.3).astype(np.uint8))
             order = np.argsort(-stats[1:, cv2.CC_STAT_AREA])[:5] + 1
             for k in order:
                 if stats[k, cv2.CC_STAT_AREA] > (1.0 * r) ** 2:

@@ -92,19 +92,25 @@ def paint_defect(rgb: np.ndarray, A: np.ndarray, d: Defect, rng: np.random.Gener
         depth = _pore_depth(d, A, x0, y0, shp)
         size_px = r * max(d.analytic["width_mm"] if d.analytic else 1.0, 0.3)
         lam, spec = _lit_cavity(depth, 0.6 * size_px, light, gloss=float(rng.uniform(60, 400)))
-        base = np.float32(rng.uniform(0.05, 0.16))
-        wall = np.float32(rng.uniform(0.25, 0.5))
-        tone = base + wall * lam**2 * (1 - 0.6 * depth)
-        tone += np.float32(rng.uniform(0.5, 1.0)) * spec
+        base = np.float32(rng.uniform(0.03, 0.1))
+        wall = np.float32(rng.uniform(0.25, 0.55))
+        # only the wall facing the light catches it; the bottom and the near wall stay dark
+        L = light.vec()
+        yy, xx = np.mgrid[0 : shp[0], 0 : shp[1]].astype(np.float32)
+        cxp, cyp = (apply_h(np.linalg.inv(A), [[d.shape["cx_mm"], d.shape["cy_mm"]]])[0] - [x0, y0]).astype(np.float32)
+        toward = ((xx - cxp) * L[0] + (yy - cyp) * L[1]) / np.float32(max(0.5 * size_px, 1.0))
+        far = np.clip(-toward, 0, 1)  # far side from the light is lit
+        tone = base + wall * lam**2 * (1 - depth) ** 1.5 * (0.35 + 0.65 * far)
+        tone += np.float32(rng.uniform(0.3, 0.8)) * spec * (1 - depth) * far
         tint = np.array([1.0, 0.98, 0.95], np.float32) * np.float32(rng.uniform(0.9, 1.1))
         col = tone[..., None] * tint
         # faint bright lip where the cavity meets the face
-        lip = np.clip(1.0 - depth * 6.0, 0, 1) * np.float32(rng.uniform(0.0, 0.25))
+        lip = np.clip(1.0 - depth * 6.0, 0, 1) * np.float32(rng.uniform(0.0, 0.15)) * far
         col += lip[..., None]
     elif d.kind == "inclusion":
         depth = _depth_from_mask(alpha)
         brown = np.array(
-            [[0.2, 0.17, 0.13], [0.16, 0.16, 0.17], [0.24, 0.19, 0.14], [0.13, 0.12, 0.12]][int(rng.integers(0, 4))],
+            [[0.16, 0.13, 0.1], [0.12, 0.12, 0.13], [0.19, 0.15, 0.11], [0.1, 0.09, 0.09]][int(rng.integers(0, 4))],
             np.float32,
         )
         mott = 1.0 + 0.25 * _noise.fractal(rng, shp, max(2.0, 0.4 * r), octaves=3)

@@ -243,10 +243,11 @@ def render_scene(
     if ruler is None:
         ruler = bool(rs["card"].random() < 0.4)
 
-    # ---- geometry + card placement, shrinking until the scene fits the photo
+    # ---- geometry + card placement, shrinking a long face until it fits the wanted scale
+    ppm_want = float(px_per_mm) if px_per_mm is not None else float(rs["camera"].uniform(8.0, 25.0))
     card_rng_state = rs["card"].bit_generator.state
-    shrink = 1.0
-    for attempt in range(30):
+    shrink, last_len = 1.0, None
+    for attempt in range(40):
         geo_rng = np.random.default_rng([int(seed), attempt, 31])
         geo = builder.geometry(geo_rng, shrink=shrink)
         rs["card"].bit_generator.state = card_rng_state
@@ -258,20 +259,21 @@ def render_scene(
         must = np.r_[geo.face_poly, card_poly]
         ext = np.ptp(must, axis=0)
         fit_ppm = 0.82 * min(long_px / max(ext), short_px / max(min(ext), 1.0)) / (1 + 0.6 * math.sin(math.radians(tilt_deg)))
-        if px_per_mm is None:
-            if fit_ppm >= 8.5 or shrink < 0.3:
-                break
-        elif fit_ppm >= px_per_mm:
+        if fit_ppm >= ppm_want or (last_len is not None and abs(geo.length_mm - last_len) < 1e-9):
             break
+        last_len = geo.length_mm
         shrink *= 0.9
-    else:  # pragma: no cover - the shrink floor ends the loop first
-        pass
-    if px_per_mm is not None and fit_ppm < px_per_mm * 0.98:
-        raise SynthError(
-            f"px_per_mm={px_per_mm} does not fit the face and card in a {W}x{H} photo; "
-            f"lower px_per_mm (below {fit_ppm:.1f}) or raise megapixels"
-        )
-    ppm_goal = float(px_per_mm) if px_per_mm is not None else float(rs["camera"].uniform(8.0, min(25.0, max(fit_ppm, 8.0))))
+    if px_per_mm is not None:
+        if fit_ppm < px_per_mm * 0.98:
+            raise SynthError(
+                f"px_per_mm={px_per_mm} does not fit the face and card in a {W}x{H} photo; "
+                f"lower px_per_mm (below {fit_ppm:.1f}) or raise megapixels"
+            )
+        ppm_goal = float(px_per_mm)
+    else:
+        # an inspector fills much of the frame: between half and nearly all of what fits
+        ppm_goal = float(np.clip(fit_ppm * rs["camera"].uniform(0.6, 0.97), 8.0, 25.0))
+        ppm_goal = min(ppm_goal, fit_ppm)
 
     card = make_card(rs["card"], marker_mm=marker_mm, ids=ids, ruler=ruler, px_per_mm=1.6 * ppm_goal)
     card_poly = apply_h(T_card, _rect(0, 0, *card.size_mm))

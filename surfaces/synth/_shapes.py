@@ -166,7 +166,7 @@ def band(rng, x0: float, x1: float, y_edge: float, width: float, *, sign: float 
     taper = np.sqrt(1 - (1 - taper) ** 2)  # quarter-ellipse ends
     wav = np.ones_like(x)
     for k in range(1, 6):
-        wav += rng.normal(0, 0.07) * np.sin(2 * np.pi * k * (x - x0) / L * rng.uniform(0.7, 1.3) + rng.uniform(0, 6.3))
+        wav += rng.normal(0, 0.12 / k) * np.sin(2 * np.pi * k * (x - x0) / max(L, 4 * width) + rng.uniform(0, 6.3))
     free = y_edge + sign * width * taper * np.clip(wav, 0.6, 1.4)
     edge = np.full_like(x, y_edge)
     return np.r_[np.c_[x, free], np.c_[x[::-1], edge[::-1]]]

@@ -95,8 +95,8 @@ def plate(rng: np.random.Generator, shape: tuple[int, int], r: float, kind: str)
         col = np.array([g * 0.97, g, g * 1.05])
     img = _rgb(np.asarray(lum, np.float32), col)
     if kind == "rusty" or rng.random() < 0.35:
-        cover = rng.uniform(0.05, 0.4 if kind == "rusty" else 0.15)
-        rust = _noise.blotches(rng, shape, rng.uniform(4, 15) * r, cover, edge=0.8) * np.float32(rng.uniform(0.5, 0.85))
+        cover = rng.uniform(0.05, 0.3 if kind == "rusty" else 0.12)
+        rust = _noise.blotches(rng, shape, rng.uniform(3, 10) * r, cover, edge=0.6) * np.float32(rng.uniform(0.4, 0.8))
         rc = np.array([0.44, 0.28, 0.17], np.float32) * np.float32(rng.uniform(0.7, 1.15))
         rl = (0.8 + 0.3 * _noise.fractal(rng, shape, 1.5 * r, octaves=3))[..., None]
         img = img * (1 - rust[..., None]) + rc * rl * rust[..., None]
@@ -114,13 +114,13 @@ def fracture(rng: np.random.Generator, shape: tuple[int, int], r: float, light_a
     fib_ang = float(rng.normal(90.0, 25.0))  # fibres mostly run across the weld
     level, tilt = _noise.facets(rng, shape, max(grain * r, 1.2), grids=2)
     sparkle_p = rng.uniform(0.02, 0.08)
-    cryst = 0.42 + 0.22 * level + 0.55 * tilt
-    cryst += np.float32(0.45) * np.clip((level - (1 - sparkle_p)) / sparkle_p, 0, 1)
+    cryst = 0.45 + 0.18 * level + 0.35 * tilt
+    cryst += np.float32(rng.uniform(0.2, 0.45)) * np.clip((level - (1 - sparkle_p)) / sparkle_p, 0, 1)
     fib = _noise.fractal(rng, shape, 1.5 * r, cell_y=max(0.07 * r, 0.6), angle_deg=fib_ang, octaves=3)
     fibrous = 0.5 + 0.1 * fib
     fine = _noise.value(rng, shape, max(0.05 * r, 0.6))
-    relief = _noise.fractal(rng, shape, rng.uniform(1.5, 4.0) * r, octaves=4) * np.float32(0.35 * r)
-    shade = _noise.shade(relief, light_az, strength=0.5)
+    relief = _noise.fractal(rng, shape, rng.uniform(1.5, 4.0) * r, octaves=4) * np.float32(rng.uniform(0.08, 0.35) * r)
+    shade = _noise.shade(relief, light_az, strength=0.4)
     lum = (1 - fib_mix) * cryst + fib_mix * fibrous + 0.05 * fine + shade
     lum = np.maximum(lum.astype(np.float32), np.float32(0.05))
     g = rng.uniform(0.8, 1.15)
