@@ -483,3 +483,54 @@ def _run_pool(pending: list[_Job], workers: int, assess_fn, record) -> None:
         pool.shutdown(wait=not broken, cancel_futures=True)
         if not broken:
             break
+
+
+# --------------------------------------------------------------------------- command line
+
+
+def add_commands(sub) -> None:
+    """``surfaces batch``: hooked into :mod:`surfaces.cli`."""
+    from .cli import _add_photo_args
+
+    p = sub.add_parser("batch", help="assess a folder of photos into the records store (resumable)")
+    p.add_argument("inputs", nargs="+", metavar="FOLDER_OR_PHOTO", help="a folder of photos, or photo files")
+    _add_photo_args(p)
+    p.add_argument("--db", help="records database (default $SURFACES_DB or the user data folder)")
+    p.add_argument("--manifest", metavar="CSV", help="CSV mapping photos to coupon ids and welders")
+    p.add_argument("--workers", type=int, default=None, help="worker processes (default: one per core)")
+    p.add_argument("--batch-name", help="batch name stored with each coupon (default: the folder name)")
+    p.add_argument("--summary-csv", metavar="OUT.csv", help="write the summary table")
+    p.add_argument("--summary-pdf", metavar="OUT.pdf", help="write the summary report")
+    p.add_argument("--actor", default=os.environ.get("USER") or "batch", help="who runs the batch (recorded)")
+    p.add_argument("--force", action="store_true", help="replace existing summary files")
+    p.add_argument("--quiet", action="store_true", help="no progress bar or table")
+    p.set_defaults(func=cmd_batch)
+
+
+def cmd_batch(a) -> int:
+    from .cli import settings_from_args
+
+    settings = settings_from_args(a)
+    inputs = a.inputs[0] if len(a.inputs) == 1 and Path(a.inputs[0]).is_dir() else a.inputs
+    out = run_batch(
+        inputs, settings=settings, db=a.db, manifest=a.manifest, workers=a.workers,
+        progress=None if a.quiet else TextProgress(), batch=a.batch_name, actor=a.actor,
+        summary_csv=a.summary_csv, summary_pdf=a.summary_pdf, force=a.force,
+    )
+    if not a.quiet:
+        print(summary_text(out))
+    return 0
+
+
+def summary_text(out: pd.DataFrame) -> str:
+    """A few lines for the terminal: counts, then one line per photo."""
+    counts = out["status"].value_counts().to_dict()
+    results = out["result"].value_counts().to_dict()
+    head = (f"{len(out)} photo(s): " + ", ".join(f"{k} {v}" for k, v in sorted(counts.items()))
+            + ("  |  " + ", ".join(f"{k} {v}" for k, v in sorted(results.items())) if results else ""))
+    lines = [head]
+    for r in out.itertuples():
+        what = r.error if r.status == "error" else f"{r.result}  {r.first_reason or ''}".rstrip()
+        aid = "" if pd.isna(r.assessment_id) else f"#{r.assessment_id}"
+        lines.append(f"  {r.photo:<28} {r.coupon_id or '':<16} {r.status:<8} {aid:>6}  {what}")
+    return "\n".join(lines)

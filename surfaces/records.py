@@ -731,3 +731,130 @@ def _judge(assessment: dict, limit_set: Any) -> dict:
 
     out = limits.judge_assessment(assessment, limit_set)
     return jsonable(out["verdict"])
+
+
+# -- command line ------------------------------------------------------------
+
+
+def add_commands(sub) -> None:
+    """``surfaces records ...``: hooked into :mod:`surfaces.cli`."""
+    rec = sub.add_parser("records", help="look into the records store: history, show, rejudge, stats, log, check")
+    rs = rec.add_subparsers(dest="records_cmd", metavar="COMMAND")
+    rec.set_defaults(func=lambda a: (rec.print_help(), 2)[1])
+
+    def with_db(p):
+        p.add_argument("--db", help="records database (default $SURFACES_DB or the user data folder)")
+        return p
+
+    p = with_db(rs.add_parser("history", help="one line per assessment, newest first"))
+    p.add_argument("--welder", help="only this welder's coupons")
+    p.add_argument("--csv", metavar="OUT.csv", help="write the table as CSV instead")
+    p.add_argument("--force", action="store_true")
+    p.set_defaults(func=_cmd_history)
+
+    p = with_db(rs.add_parser("show", help="re-open an assessment and write its reports"))
+    p.add_argument("id", type=int)
+    for opt in ("json", "csv", "overlay", "pdf"):
+        p.add_argument(f"--{opt}", metavar=f"OUT.{'png' if opt == 'overlay' else opt}")
+    p.add_argument("--force", action="store_true", help="replace existing files")
+    p.set_defaults(func=_cmd_show)
+
+    p = with_db(rs.add_parser("rejudge", help="judge a stored assessment again (its own limit set by default)"))
+    p.add_argument("id", type=int)
+    p.add_argument("--limits", help="another limit set: a preset name or a .toml file")
+    p.set_defaults(func=_cmd_rejudge)
+
+    p = with_db(rs.add_parser("stats", help="reject rates and top reasons by batch, procedure, position..."))
+    p.add_argument("--by", default="batch,procedure,position", help="comma-separated coupon fields")
+    p.set_defaults(func=_cmd_stats)
+
+    p = with_db(rs.add_parser("log", help="the append-only log (of one assessment)"))
+    p.add_argument("id", type=int, nargs="?")
+    p.set_defaults(func=_cmd_log)
+
+    p = with_db(rs.add_parser("check", help="database integrity and every photo copy's SHA-256"))
+    p.set_defaults(func=_cmd_check)
+
+
+def _print_table(df: pd.DataFrame) -> None:
+    with pd.option_context("display.width", 200, "display.max_columns", 30, "display.max_colwidth", 60):
+        print(df.to_string(index=False) if len(df) else "(none)")
+
+
+def _cmd_history(a) -> int:
+    from .atomic import write_text_atomic
+
+    with Store(a.db) as s:
+        h = s.history(welder=a.welder)
+    if a.csv:
+        write_text_atomic(a.csv, h.to_csv(index=False, lineterminator="\n"), force=a.force)
+        return 0
+    _print_table(h[["assessment_id", "created_at", "coupon_id", "welder", "test", "result", "automatic_result",
+                    "n_imperfections", "reviewer", "first_reason"]])
+    return 0
+
+
+def _cmd_show(a) -> int:
+    from . import report
+    from .photo import load_photo
+
+    with Store(a.db) as s:
+        rec = s.get_assessment(a.id)
+        need_photo = a.overlay or a.pdf
+        photo = load_photo(s.photo_bytes(rec["photo"]["sha256"]), name=rec["photo"].get("name")) if need_photo else None
+    if a.json:
+        report.write_json(a.json, rec, force=a.force)
+    if a.csv:
+        report.write_csv(a.csv, rec, force=a.force)
+    if a.overlay:
+        report.write_overlay_png(a.overlay, photo.rgb, rec, force=a.force)
+    if a.pdf:
+        report.write_pdf(a.pdf, rec, photo.rgb, force=a.force)
+    r = rec["record"]
+    v = rec["verdict"]
+    print(f"assessment {r['id']}  coupon {(r['coupon'] or {}).get('id', '-')}  photo {rec['photo'].get('name')}")
+    print(f"verdict    {v['result'].upper()}" + (f"  (automatic: {r['automatic_verdict']['result']})"
+                                                 if r["reviewer"] else "  (not reviewed)"))
+    for reason in v.get("reasons") or []:
+        print(f"  - {reason}")
+    if r["reviewer"]:
+        print(f"reviewed   by {r['reviewer']} at {r['reviewed_at']}" + (f": {r['review_note']}" if r["review_note"] else ""))
+    return 0
+
+
+def _cmd_rejudge(a) -> int:
+    with Store(a.db) as s:
+        before = s.get_assessment(a.id)["verdict"]
+        v = s.rejudge(a.id, a.limits)
+    print(f"stored     {before['result'].upper()}")
+    print(f"re-judged  {v['result'].upper()}" + ("" if a.limits else "  (its own limit set)"))
+    for reason in v.get("reasons") or []:
+        print(f"  - {reason}")
+    return 0
+
+
+def _cmd_stats(a) -> int:
+    by = tuple(x.strip() for x in a.by.split(",") if x.strip())
+    with Store(a.db) as s:
+        _print_table(s.stats(by=by))
+    return 0
+
+
+def _cmd_log(a) -> int:
+    with Store(a.db) as s:
+        log = s.log(a.id)
+    log = log.assign(payload=log["payload"].map(lambda p: json.dumps(p, ensure_ascii=False)[:100]))
+    _print_table(log)
+    return 0
+
+
+def _cmd_check(a) -> int:
+    with Store(a.db) as s:
+        problems = s.check()
+        n = len(s.assessment_ids())
+    if problems:
+        for p in problems:
+            print(p)
+        raise StoreError(f"{len(problems)} problem(s) in {s.path}; restore the named files from a backup")
+    print(f"ok: {n} assessment(s), database intact, every photo copy matches its SHA-256")
+    return 0

@@ -388,3 +388,37 @@ def test_end_to_end_with_the_pipeline(synth_folder, tmp_path):
                     manifest=synth_folder / "manifest.csv", workers=1)
     cols = ["photo", "coupon_id", "status", "result", "first_reason", "n_imperfections", "photo_sha256", "error"]
     assert _rows(one, cols) == _rows(out, cols)
+
+
+def test_batch_command_line_refuses_bad_input(tmp_path, capsys):
+    from surfaces.cli import main
+
+    make_photos(tmp_path / "in", ["a.png"])
+    (tmp_path / "s.csv").write_text("old")
+    assert main(["batch", str(tmp_path / "in"), "--test", "fillet-break", "--db", str(tmp_path / "r.sqlite3"),
+                 "--summary-csv", str(tmp_path / "s.csv")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "pass --force" in err
+    assert main(["batch", str(tmp_path / "in"), "--test", "fillet-break", "--db", str(tmp_path / "r.sqlite3"),
+                 "--workers", "0"]) == 2
+    assert "--workers 0" in capsys.readouterr().err
+    (tmp_path / "in" / "m.csv").write_text("photo,coupon_id\n../s.csv,C-1\n")
+    assert main(["batch", str(tmp_path / "in"), "--test", "fillet-break", "--db", str(tmp_path / "r.sqlite3"),
+                 "--manifest", str(tmp_path / "in" / "m.csv")]) == 2
+    assert "row 2" in capsys.readouterr().err
+    assert not (tmp_path / "r.sqlite3").exists()
+
+
+def test_summary_text_lines():
+    from surfaces.batch import summary_text
+
+    df = pd.DataFrame([
+        {"photo": "a.png", "coupon_id": "C-1", "welder": None, "status": "done", "result": "reject",
+         "first_reason": "crack 1", "n_imperfections": 1, "assessment_id": 4, "photo_sha256": "x", "error": None},
+        {"photo": "b.png", "coupon_id": "C-2", "welder": None, "status": "error", "result": None,
+         "first_reason": "", "n_imperfections": None, "assessment_id": None, "photo_sha256": "y",
+         "error": "b.png is not a photo"},
+    ]).astype({"assessment_id": "Int64", "n_imperfections": "Int64"})
+    lines = summary_text(df).splitlines()
+    assert lines[0] == "2 photo(s): done 1, error 1  |  reject 1"
+    assert "#4  reject  crack 1" in lines[1] and lines[2].endswith("b.png is not a photo")

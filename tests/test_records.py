@@ -335,3 +335,40 @@ def test_two_processes_writing_at_once_do_not_corrupt(tmp_path):
         log = s.log()
         assert (log["action"] == "assessed").sum() == 2 * n
         assert log["seq"].is_monotonic_increasing and log["seq"].is_unique
+
+
+def test_records_command_line(tmp_path, limit_file, capsys):
+    from surfaces.cli import main
+
+    db = tmp_path / "r.sqlite3"
+    a, data = judged(limit_file)
+    with Store(db) as s:
+        aid = s.save_assessment(a, data, coupon={"id": "CPN-7", "welder": "W-9", "batch": "B7"}, actor="ana")
+    assert main(["records", "history", "--db", str(db)]) == 0
+    out = capsys.readouterr().out
+    assert "CPN-7" in out and "W-9" in out and "reject" in out
+    outs = {k: tmp_path / f"r.{k}" for k in ("json", "csv", "png", "pdf")}
+    assert main(["records", "show", str(aid), "--db", str(db), "--json", str(outs["json"]), "--csv", str(outs["csv"]),
+                 "--overlay", str(outs["png"]), "--pdf", str(outs["pdf"])]) == 0
+    assert "REJECT" in capsys.readouterr().out
+    assert json.loads(outs["json"].read_text())["verdict"] == a["verdict"]
+    assert outs["png"].read_bytes()[:4] == b"\x89PNG" and outs["pdf"].read_bytes()[:4] == b"%PDF"
+    # writing again without --force is refused with one line, exit 2
+    assert main(["records", "show", str(aid), "--db", str(db), "--json", str(outs["json"])]) == 2
+    assert "pass --force" in capsys.readouterr().err
+    assert main(["records", "rejudge", str(aid), "--db", str(db)]) == 0
+    out = capsys.readouterr().out
+    assert "re-judged  REJECT  (its own limit set)" in out and "no-cracks: crack 4: not permitted" in out
+    assert main(["records", "stats", "--db", str(db), "--by", "batch"]) == 0
+    assert "B7" in capsys.readouterr().out
+    assert main(["records", "log", str(aid), "--db", str(db)]) == 0
+    assert "assessed" in capsys.readouterr().out
+    assert main(["records", "check", "--db", str(db)]) == 0
+    assert capsys.readouterr().out.startswith("ok: 1 assessment(s)")
+    with Store(db) as s:
+        s.photo_path(a["photo"]["sha256"]).write_bytes(b"damaged")
+    assert main(["records", "check", "--db", str(db)]) == 2
+    cap = capsys.readouterr()
+    assert "does not match its SHA-256" in cap.out and "1 problem(s)" in cap.err
+    assert main(["records", "show", "999", "--db", str(db)]) == 2
+    assert "no assessment 999" in capsys.readouterr().err
