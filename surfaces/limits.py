@@ -1057,7 +1057,13 @@ def _table_items(table: pd.DataFrame, ls: LimitSet) -> tuple[list[_Item], int, l
     if len(table) and "kind" not in table.columns:
         raise LimitsError("the imperfection table has no 'kind' column: it cannot be judged")
     items, dismissed, seen = [], 0, set()
-    for n, row in enumerate(table.to_dict("records")):
+    if table.columns.duplicated().any():
+        dup = table.columns[table.columns.duplicated()][0]
+        raise LimitsError(f"the imperfection table has the column {dup!r} twice: keep one")
+    cols = [str(c) for c in table.columns]
+    # column-wise tolist() is much faster than to_dict("records") and gives Python scalars
+    records = [dict(zip(cols, vals)) for vals in zip(*(table[c].tolist() for c in table.columns))]
+    for n, row in enumerate(records):
         status = _text(row.get("status")).lower() or "auto"
         if status == "dismissed":
             dismissed += 1
