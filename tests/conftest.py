@@ -119,7 +119,11 @@ def screenshot_dir(tmp_path_factory) -> Path:
 
 
 def full_screenshot(page, path: Path, width: int = 1400) -> None:
-    """Screenshot of the whole page: the main area scrolls, not the document."""
+    """Screenshot of the whole page once the run is over: the main area scrolls, not the document."""
+    from playwright.sync_api import expect
+
+    expect(page.get_by_test_id("stApp")).to_have_attribute("data-test-script-state", "notRunning")
+    expect(page.locator('[data-stale="true"]')).to_have_count(0)
     h = page.evaluate("document.querySelector('[data-testid=stMain]').scrollHeight")
     page.set_viewport_size({"width": width, "height": max(600, min(int(h) + 40, 16000))})
     page.screenshot(path=str(path))

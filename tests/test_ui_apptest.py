@@ -65,6 +65,7 @@ def at(tmp_path, monkeypatch):
     monkeypatch.setenv("SURFACES_DB", str(tmp_path / "records.sqlite3"))
     monkeypatch.setenv("SURFACES_HOME", str(tmp_path))
     app = AppTest.from_file(APP, default_timeout=180)
+    app.session_state["src"] = "Upload a photo"  # start without the demo photo
     app.run()
     assert not app.exception, app.exception
     return app
@@ -116,6 +117,23 @@ def test_calibration_feedback_found_marker(at, photos):
     assert metrics["Scale uncertainty (1σ)"].startswith("± ")
     assert not errors(at)
     assert verdict_words(at)[0] in ("ACCEPT", "REJECT", "REVIEW")
+
+
+def test_demo_photo_is_a_worked_example(tmp_path, monkeypatch):
+    from surfaces.demo import read_manifest
+
+    rows = read_manifest(ROOT / "demo_images")
+    monkeypatch.setenv("SURFACES_DB", str(tmp_path / "records.sqlite3"))
+    at = AppTest.from_file(APP, default_timeout=180).run()
+    assert not at.exception, at.exception
+    assert at.radio(key="src").value == "Demo photo"
+    first = next(r for r in rows if r["photo"] == at.selectbox(key="demo").value)
+    assert at.text_input(key="c_id").value == first["coupon_id"]  # coupon details come with the photo
+    assert at.selectbox(key="c_test").value == first["test"]
+    assert verdict_words(at)[0] in ("ACCEPT", "REJECT", "REVIEW")
+    # leaving the demo clears its coupon id, so a real coupon is never filed under it
+    at.radio(key="src").set_value("Upload a photo").run()
+    assert at.text_input(key="c_id").value == ""
 
 
 def test_no_marker_gives_advice_and_the_typed_scale_works(at, photos):

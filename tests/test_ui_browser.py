@@ -24,10 +24,33 @@ ROOT = Path(__file__).resolve().parents[1]
 VERDICT = re.compile(r"ACCEPT|REJECT|REVIEW")
 
 
+def _deciding(path: Path, settings) -> bool:
+    """True when the core's automatic verdict on ``path`` rests on at least one detection."""
+    from surfaces.limits import load_limit_set
+    from surfaces.pipeline import assess_path
+
+    try:
+        a = assess_path(path, settings).assessment
+    except Exception:  # a photo the core cannot read is no use for this test
+        return False
+    return a["verdict"]["result"] != "accept" and bool(_deciding_ids(a))
+
+
 def _photo(tmp_path_factory) -> Path:
-    demos = sorted(p for p in (ROOT / "demo_images").glob("*") if p.suffix.lower() in (".jpg", ".jpeg", ".png"))
-    if demos:
-        return demos[0]
+    """A demo photo of a fillet-break coupon whose verdict a detection decides, else a synthetic one."""
+    from surfaces.model import Settings
+
+    try:
+        from surfaces.demo import read_manifest, settings_for
+
+        rows = [r for r in read_manifest(ROOT / "demo_images") if r["test"] == "fillet-break"]
+    except Exception:
+        rows = []
+    for r in rows:
+        s = settings_for(r)
+        if s.limits in (None, "aws-d1.1-fillet-break") and _deciding(ROOT / "demo_images" / r["photo"],
+                                                                      Settings(test="fillet-break")):
+            return ROOT / "demo_images" / r["photo"]
     return make_photos(tmp_path_factory.mktemp("browser_photos"))["good"]
 
 
@@ -113,7 +136,7 @@ def test_other_views_render(page, screenshot_dir):
 
     sidebar = page.get_by_test_id("stSidebar")
     for label, shot, last in (("Limit sets", "4-limit-sets.png", "Save as my own set"),
-                              ("Welder histories", "5-histories.png", None),
+                              ("Welder histories", "5-histories.png", "Open it"),
                               ("Batch of photos", "6-batch.png", "Assess and save all")):
         sidebar.get_by_text(label, exact=True).click()
         expect(page.get_by_role("heading", name=label)).to_be_visible()

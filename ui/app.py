@@ -50,10 +50,34 @@ SOURCES = ("Upload a photo", "Take a photo", "Demo photo")
 # =========================================================================== small pieces
 
 
-def demo_photos() -> list[Path]:
-    if not DEMO_DIR.is_dir():
+def demo_rows() -> list[dict]:
+    """The demo photos with their coupon details (``demo_images/manifest.csv``), or [] when not installed."""
+    try:
+        from surfaces.demo import read_manifest
+
+        return read_manifest(DEMO_DIR)
+    except (ImportError, SurfacesError):
         return []
-    return sorted(p for p in DEMO_DIR.iterdir() if p.suffix.lower().lstrip(".") in H.PHOTO_TYPES)
+
+
+def apply_demo(row: dict) -> None:
+    """Fill the coupon widgets with a demo row's details (before those widgets are drawn)."""
+    from surfaces.demo import settings_for
+
+    s = settings_for(row)
+    ss = st.session_state
+    for key, field in (("c_id", "coupon_id"), ("c_welder", "welder"), ("c_procedure", "procedure"),
+                       ("c_process", "process"), ("c_position", "position"), ("c_material", "material")):
+        ss[key] = row.get(field) or ""
+    ss["c_test"] = s.test
+    if s.limits:
+        ss[f"c_limits_{s.test}"] = s.limits
+    for key, field in (("c_thickness", "thickness_mm"), ("c_throat", "throat_mm"), ("c_wall", "wall_mm"),
+                       ("c_length", "length_mm")):
+        ss[key] = (s.nominal or {}).get(field)
+    ss["c_bend_angle"], ss["c_former"] = s.bend_angle_deg, s.former_diameter_mm
+    if s.marker_mm:
+        ss["marker_mm"] = float(s.marker_mm)
 
 
 def limit_sets_for(test: str) -> list:
@@ -113,12 +137,25 @@ def cautions_box(assessment: dict | None = None) -> None:
 # =========================================================================== inputs
 
 
+_DEMO_KEYS = ("c_id", "c_welder", "c_procedure", "c_process", "c_position", "c_material", "c_thickness",
+              "c_throat", "c_wall", "c_length", "c_bend_angle", "c_former")
+
+
+def _left_demo() -> None:
+    """Leaving the demo: clear the coupon fields it filled, so a real coupon never gets a demo id."""
+    if st.session_state.get("src") != SOURCES[2] and st.session_state.pop("_demo_applied", None):
+        for key in _DEMO_KEYS:
+            st.session_state[key] = None if key in ("c_thickness", "c_throat", "c_wall", "c_length",
+                                                     "c_bend_angle", "c_former") else ""
+        st.session_state["marker_mm"] = 20.0
+
+
 def photo_input() -> tuple[bytes, str, str] | None:
     """The chosen photo as (bytes, safe name, origin) or None."""
-    demos = demo_photos()
+    demos = demo_rows()
     if "src" not in st.session_state:
         st.session_state["src"] = SOURCES[2] if demos else SOURCES[0]
-    src = st.radio("Where is the photo?", SOURCES, horizontal=True, key="src")
+    src = st.radio("Where is the photo?", SOURCES, horizontal=True, key="src", on_change=_left_demo)
     if src == SOURCES[0]:
         up = st.file_uploader(
             f"Photo of the test face beside the reference card (JPEG, PNG or TIFF, up to {H.MAX_UPLOAD_MB} MB)",
@@ -132,9 +169,17 @@ def photo_input() -> tuple[bytes, str, str] | None:
             return None
         return cam.getvalue(), "camera.jpg", "camera"
     if not demos:
-        st.info("No demo photos are installed. Run `surfaces demo` once, or upload a photo.")
+        st.info("No demo photos are installed here. Upload a photo instead.")
         return None
-    pick = st.selectbox("Demo photo (invented coupons, for trying the page)", [p.name for p in demos], key="demo")
+    by_name = {r["photo"]: r for r in demos}
+    pick = st.selectbox("Demo photo (an invented shop's coupons, synthetic photos)", list(by_name), key="demo",
+                        format_func=lambda n: f"{by_name[n]['coupon_id']} · {TEST_NAMES.get(by_name[n]['test'])}"
+                                              f" · {by_name[n]['date']}")
+    row = by_name[pick]
+    if st.session_state.get("_demo_applied") != pick:  # fill the coupon fields once per chosen photo
+        apply_demo(row)
+        st.session_state["_demo_applied"] = pick
+    st.caption(f"What the demo shows: {row.get('note') or '-'}")
     path = DEMO_DIR / H.safe_name(pick)
     if path.parent != DEMO_DIR or not path.is_file():
         return None
@@ -442,7 +487,7 @@ def pictures_panel(w, auto: dict, reviewed: dict) -> None:
                     st.info("The rectified face is not kept in the records; run the photo again to see it.")
         st.markdown(f"**Imperfections:** {sum(r.get('status') != 'dismissed' for r in rows)} judged, "
                     f"{sum(r.get('status') == 'dismissed' for r in rows)} dismissed. Sizes in mm on the face "
-                    "plane, ± one standard uncertainty.")
+                    "plane, ± one standard uncertainty; a number with m was added by the inspector.")
         st.dataframe(imperfection_frame(rows), hide_index=True, width="stretch", key=f"table_{w.key}")
 
 
@@ -475,10 +520,9 @@ def imperfection_frame(rows: list[dict]) -> pd.DataFrame:
             "at edge/root": ", ".join(k for k in ("edge", "root") if r.get(f"at_{k}")) or "-",
             "review": {"auto": "as found", "confirmed": "confirmed", "dismissed": "DISMISSED",
                        "edited": "edited"}.get(r.get("status"), r.get("status")),
-            "source": "added by inspector" if r.get("source") == "manual" else "found by tool",
         })
     cols = ["#", "kind", "review", "greatest (mm)", "width (mm)", "along weld (mm)", "across (mm)",
-            "area (mm²)", "confidence", "at edge/root", "ISO 6520-1", "source"]
+            "area (mm²)", "confidence", "at edge/root", "ISO 6520-1"]
     return pd.DataFrame(out, columns=cols)
 
 
@@ -709,8 +753,15 @@ def view_histories() -> None:
         return
     st.caption(f"Records: {S.db_path()}")
     if hist.empty:
-        st.info("No saved assessments yet. Save one from 'Assess a coupon'"
-                + (", or fill the records with invented demo coupons: `surfaces demo`." ))
+        st.info("No saved assessments yet. Save one from 'Assess a coupon', or load the demo shop's "
+                "coupons (invented welders, synthetic photos) into these records.")
+        if demo_rows() and st.button("Load the demo coupons", key="load_demo", icon=":material/download:"):
+            from surfaces.demo import ensure_demo
+
+            bar = st.progress(0.0, text="assessing the demo photos")
+            ensure_demo(S.db_path(), progress=lambda done, total, cid: bar.progress(
+                min(done / max(total, 1), 1.0), text=f"{done}/{total} {cid or ''}"))
+            st.rerun()
         return
     welders = sorted(w for w in hist["welder"].dropna().unique() if w)
     tab_w, tab_g = st.tabs(["Per welder", "Reject rates by batch, procedure, position"])
@@ -814,6 +865,52 @@ def _open_cb(aid: int) -> None:
         flash("error", f"Cannot open assessment {aid}: {err}", where="page")
 
 
+def run_uploaded_batch(ups, *, test: str, limits: str, batch: str, common: dict) -> pd.DataFrame:
+    """Write the uploads (sanitised names) and a manifest to a temporary folder and run the core's batch."""
+    import csv
+    import os
+    import tempfile
+
+    from surfaces.batch import MANIFEST_COLUMNS, run_batch
+
+    with tempfile.TemporaryDirectory(prefix="surfaces-batch-") as tmp:
+        folder = Path(tmp)
+        used, refused = set(), []
+        for up in ups:
+            name = H.safe_name(up.name)
+            stem_, suffix = Path(name).stem, Path(name).suffix
+            k = 1
+            while name.lower() in used:
+                k += 1
+                name = f"{stem_}-{k}{suffix}"
+            data = up.getvalue()
+            try:
+                H.check_upload(data, name)
+            except SurfacesError as err:
+                refused.append({"photo": name, "status": "error", "error": str(err)})
+                continue
+            used.add(name.lower())
+            (folder / name).write_bytes(data)
+        with open(folder / "manifest.csv", "w", newline="", encoding="utf-8") as fh:
+            wr = csv.DictWriter(fh, fieldnames=list(MANIFEST_COLUMNS))
+            wr.writeheader()
+            for name in sorted(used):
+                wr.writerow({"photo": name, "coupon_id": H.stem(name),
+                             **{k: v for k, v in common.items() if k in MANIFEST_COLUMNS and v}})
+        bar = st.progress(0.0, text=f"0 of {len(used)} photos")
+
+        def say(done: int, total: int, row: dict) -> None:
+            bar.progress(min(done / max(total, 1), 1.0), text=f"{done} of {total}: {row.get('photo', '')}")
+
+        df = run_batch(folder, settings=Settings(test=test, limits=limits), db=S.db_path(),
+                       manifest=folder / "manifest.csv", workers=max(1, min(2, os.cpu_count() or 1)),
+                       progress=say, batch=batch or None, actor="page batch")
+        bar.progress(1.0, text=f"done: {len(used)} photo(s)")
+    if refused:
+        df = pd.concat([df, pd.DataFrame(refused)], ignore_index=True)
+    return df
+
+
 def view_batch() -> None:
     st.header("Batch of photos")
     st.caption("Assess many photos with the same coupon details; every result is saved to the records "
@@ -830,39 +927,11 @@ def view_batch() -> None:
     position = c3.text_input("Position (all photos)", key="b_position")
     st.caption("Each photo's coupon id is taken from its file name (without the suffix).")
     if st.button("Assess and save all", key="b_run", type="primary", disabled=not ups, icon=":material/play_arrow:"):
-        settings = Settings(test=test, limits=pick)
-        limit_set = next(s for s in sets if s.name == pick)
-        rows = []
-        bar = st.progress(0.0, text="starting")
-        for i, up in enumerate(ups):
-            name = H.safe_name(up.name)
-            bar.progress(i / len(ups), text=f"{i + 1} of {len(ups)}: {name}")
-            row = {"photo": name, "coupon_id": H.stem(name), "welder": welder or None, "status": "done",
-                   "result": None, "first_reason": "", "n_imperfections": None, "assessment_id": None, "error": ""}
-            try:
-                data = up.getvalue()
-                H.check_upload(data, name)
-                photo = load_photo(data, name=name)
-                res = S.analyse(photo, settings)
-                w = S.Work(key=S.work_key(photo.sha256, settings), name=name, sha256=photo.sha256, data=None,
-                           photo=None, result=None, auto_base=res.assessment, settings=settings)
-                auto = w.auto(settings, limit_set)
-                coupon = {"id": H.stem(name), "welder": welder, "procedure": procedure, "position": position,
-                          "batch": batch_id, "test": test}
-                with S.store() as s:
-                    aid = s.save_assessment(auto, data, coupon={k: v for k, v in coupon.items() if v},
-                                            actor="batch")
-                row.update(result=auto["verdict"]["result"], assessment_id=aid,
-                           first_reason=(auto["verdict"]["reasons"] or [""])[0],
-                           n_imperfections=len(auto.get("imperfections") or []))
-            except SurfacesError as err:
-                row.update(status="error", error=str(err))
-            rows.append(row)
-        bar.progress(1.0, text=f"done: {len(ups)} photo(s)")
-        st.session_state["batch_rows"] = rows
-    rows = st.session_state.get("batch_rows")
-    if rows:
-        df = pd.DataFrame(rows)
+        st.session_state["batch_rows"] = run_uploaded_batch(ups, test=test, limits=pick, batch=batch_id,
+                                                            common={"welder": welder, "procedure": procedure,
+                                                                    "position": position})
+    df = st.session_state.get("batch_rows")
+    if df is not None and len(df):
         c = st.columns(4)
         for col, res in zip(c, ("accept", "reject", "review")):
             col.metric(H.VERDICT_LOOK[res][0], int((df["result"] == res).sum()))

@@ -1,0 +1,84 @@
+"""How long the page takes to answer one review action on a large photo (a measurement, not a test).
+
+Usage::
+
+    .venv/bin/python -m ui.bench_review [--megapixels 12] [--repeat 7]
+
+Renders a seeded synthetic fillet-break photo (:mod:`surfaces.synth`), opens
+the page under Streamlit's AppTest, uploads the photo (one analysis), then
+times complete script reruns after single review actions (dismiss, then back
+to "as found", alternately) and prints the median and the worst.  It also
+checks that no review action ran the analysis again.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import statistics
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def main(argv: list[str] | None = None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    p.add_argument("--megapixels", type=float, default=12.0)
+    p.add_argument("--repeat", type=int, default=7)
+    p.add_argument("--seed", type=int, default=11)
+    a = p.parse_args(argv)
+    sys.path.insert(0, str(ROOT))
+    from streamlit.testing.v1 import AppTest
+
+    import surfaces.pipeline as pipeline
+    from surfaces.synth import render_fracture
+
+    tmp = Path(tempfile.mkdtemp(prefix="surfaces-bench-"))
+    os.environ["SURFACES_DB"] = str(tmp / "records.sqlite3")
+    os.environ["SURFACES_HOME"] = str(tmp)
+    sp = render_fracture(a.seed, megapixels=a.megapixels, tilt_deg=3, marker_mm=20, length_mm=120, width_mm=10,
+                         defects=[{"kind": "pore", "d_mm": 3.0, "x_mm": 30, "y_mm": 5},
+                                  {"kind": "pore", "d_mm": 1.5, "x_mm": 70, "y_mm": 4}])
+    data = sp.jpeg_bytes()
+    h, w = sp.rgb.shape[:2]
+    calls = []
+    real = pipeline.assess
+    pipeline.assess = lambda *x, **k: (calls.append(1), real(*x, **k))[1]
+
+    at = AppTest.from_file(str(ROOT / "ui" / "app.py"), default_timeout=600)
+    at.run()
+    at.radio(key="src").set_value("Upload a photo").run()
+    at.file_uploader(key="upload").set_value(("bench.jpg", data, "image/jpeg"))
+    t0 = time.perf_counter()
+    at.run()
+    first = time.perf_counter() - t0
+    if at.exception:
+        print(at.exception)
+        return 1
+    ws = at.session_state["works"]
+    work = ws[at.session_state["current"]]
+    rows = work.auto_base["imperfections"]
+    print(f"photo {w}x{h} ({w * h / 1e6:.1f} MP, {len(data) / 2**20:.1f} MB JPEG); "
+          f"upload + analysis + first page: {first:.2f} s; {len(rows)} detection(s)")
+    if not rows:
+        print("no detection to review on this photo; try another --seed")
+        return 1
+    rid = int(rows[0]["id"])
+    key = f"rv_{work.key}_{rid}_dec"
+    n0 = len(calls)
+    times = []
+    for i in range(a.repeat):
+        at.radio(key=key).set_value("dismiss" if i % 2 == 0 else "as found")
+        t0 = time.perf_counter()
+        at.run()
+        times.append(time.perf_counter() - t0)
+    print(f"rerun after one review action: median {statistics.median(times):.3f} s, worst {max(times):.3f} s "
+          f"over {a.repeat} actions; analysis runs during the review: {len(calls) - n0}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
