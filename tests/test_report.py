@@ -5,6 +5,7 @@ from __future__ import annotations
 import copy
 import hashlib
 import json
+import re
 import math
 import shutil
 import subprocess
@@ -320,11 +321,15 @@ def test_coupon_pdf_long_table_breaks_pages_and_keeps_cautions(tmp_path):
     pdf = report.coupon_pdf(make_assessment(rows=rows), synthetic_photo())
     n = _pdf_pages(pdf, tmp_path)
     assert n >= 3
+    if shutil.which("pdfinfo"):  # the page count poppler reads from the file itself
+        info = subprocess.run(["pdfinfo", str(tmp_path / "pages.pdf")], capture_output=True, text=True).stdout
+        assert re.search(r"^Pages:\s+(\d+)$", info, flags=re.M).group(1) == str(n)
     text = _pdf_text(pdf, tmp_path)
     pages = text.split("\f")[:n]
     # the caution footer is on every page (as text: pdftotext, poppler)
     assert all("qualified" in " ".join(p.split()) for p in pages)
-    ids = {int(t) for t in __import__("re").findall(r"^\s*(\d+)\s+pore\s+2011", text, flags=__import__("re").M)}
+    assert all(f"page {i}/{n}" in p for i, p in enumerate(pages, start=1))
+    ids = {int(t) for t in re.findall(r"^\s*(\d+)\s+pore\s+2011", text, flags=re.M)}
     assert ids == set(range(1, 91))
 
 
