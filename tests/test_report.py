@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import copy
 import hashlib
+import io
 import json
 import re
 import math
@@ -259,7 +260,7 @@ def test_csv_one_row_per_imperfection_with_units(tmp_path):
 
     a = make_assessment()
     text = report.table_csv(a)
-    df = pd.read_csv(__import__("io").StringIO(text))
+    df = pd.read_csv(io.StringIO(text))
     assert len(df) == len(a["imperfections"])
     assert {"greatest_mm", "greatest_u_mm", "area_mm2", "centroid_x_px"} <= set(df.columns)
     unitless = {"id", "kind", "iso6520", "status", "source", "confidence", "at_edge", "at_root", "cause", "photo_sha256"}
@@ -358,7 +359,7 @@ def test_batch_summary_pdf_and_csv(tmp_path):
     flat = " ".join(text.split())
     assert "C-1" in flat and "b.jpg is not an image" in flat and "reject 1" in flat and "error 1" in flat
     assert "qualified personnel" in flat
-    back = pd.read_csv(__import__("io").StringIO(report.batch_csv(rows)))
+    back = pd.read_csv(io.StringIO(report.batch_csv(rows)))
     assert back["coupon_id"].tolist() == ["C-1", "C-2"] and back.loc[1, "error"] == "b.jpg is not an image"
 
 
