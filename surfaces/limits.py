@@ -294,12 +294,7 @@ class Rule:
             word = "up to" if self.ignore_up_to else "below"
             tail = "; larger: replacement specimen" if self.beyond == "retest" else ""
             return f"ignored {word} {q.label()}{tail}"
-        parts = []
-        if self.max_fraction is not None:
-            parts.append(f"{_fmt(self.max_fraction)} x {self.of}")
-        if self.max is not None:
-            parts.append(self.max.label())
-        text = ", at most ".join(parts) if len(parts) == 2 else parts[0]
+        text = self.bound_text()
         if self.check == "band_sum":
             text = f"sum of sizes over {self.above.label()} up to {self.up_to.label()}: at most {text}"
         elif self.check == "max_sum":
@@ -309,6 +304,15 @@ class Rule:
         else:
             text = f"at most {text}"
         return text
+
+    def bound_text(self) -> str:
+        """The maximum alone: ``3/32 in (2.38 mm)``, ``0.2 x throat, at most 3 mm``."""
+        parts = []
+        if self.max_fraction is not None:
+            parts.append(f"{_fmt(self.max_fraction)} x {self.of}")
+        if self.max is not None:
+            parts.append(self.max.label())
+        return ", at most ".join(parts)
 
     def to_toml_dict(self) -> dict[str, Any]:
         d: dict[str, Any] = {"id": self.id, "check": self.check, "kinds": list(self.kinds)}
@@ -1187,9 +1191,9 @@ def _limit_text(rule: Rule, ctx: _Ctx, limit: float | None) -> str:
     if rule.max_fraction is None:
         return rule.max.label()
     if limit is None:
-        return rule.limit_label()
+        return rule.bound_text()
     nom = _num(ctx.nominal.get(f"{rule.of}_mm"))
-    return f"{rule.limit_label()} = {_fmt(limit)} mm for {rule.of} {_fmt(nom)} mm"
+    return f"{rule.bound_text()} = {_fmt(limit)} mm for {rule.of} {_fmt(nom)} mm"
 
 
 _DIM_WORDS = {"thickness": "plate thickness", "throat": "throat", "wall": "wall thickness",
@@ -1339,7 +1343,7 @@ def _eval_max_sum(rule, possible, sure, why, ctx, out, *, band=False):
         limit, cap, missing = _limit(rule, ctx)
         clip = None
         what = f"sum of {measure}"
-        lim_text = _limit_text(rule, ctx, limit) if limit is not None else rule.limit_label()
+        lim_text = _limit_text(rule, ctx, limit)
     col, ucol = MEASURES[measure]
     out.items = [it.id for it in possible]
     if not possible:
