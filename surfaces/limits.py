@@ -50,6 +50,41 @@ Every rule returns ``pass``, ``fail`` or ``review`` and the verdict is
   has an absolute cap and a value exceeds the cap, it fails anyway (the limit
   is the smaller of the two).
 
+Schema (``surfaces.limits/1``)
+------------------------------
+Top level: ``schema``, ``name`` (letters, digits, ``.``, ``_``, ``-``),
+``title``, ``version``, ``tests`` (any of ``fillet-break``, ``nick-break``,
+``bend``), ``source``, ``clause``, ``edition``, ``note``,
+``min_confidence`` (0..1, default 0.5) and one ``[[rule]]`` table per rule.
+
+Every rule has ``id``, ``check``, ``kinds`` (``pore``, ``inclusion``,
+``unfused``, ``crack`` or ``any``) and may have ``where`` (``{ at_root =
+true }``, ``{ cause = [...] }``, ``{ iso6520 = ["2017"] }``), ``measure``
+(``greatest`` default, ``width``, ``along``, ``across``), ``min_size`` (the
+smallest size that counts; smaller is ignored by this rule), ``outcome``
+(``reject`` default, or ``review`` for a rule that may only send the coupon
+to a person), ``clause``, ``confidence`` (``found``, ``memory``, ``added``
+for our own safety additions, ``user``) and ``note``.  The checks:
+
+=================  ==========================================================
+``not_permitted``  any counted imperfection fails
+``max_size``       ``max`` and/or ``max_fraction`` x ``of`` (``thickness``,
+                   ``throat``, ``wall``, ``length``): the limit is the smaller
+``max_count``      ``max_count`` (a whole number)
+``max_sum``        sum of ``measure`` at most ``max`` (or fraction); with
+                   ``window`` in any window of that length along the weld
+``max_area``       total area at most ``max`` (``"2 %"``) of the face area
+``min_separation`` gaps along the weld at least ``min``
+``band_sum``       sum of sizes over ``above`` (up to ``up_to``; larger ones
+                   count as ``up_to``) at most ``max``
+``corner``         imperfections at a coupon edge (``at_edge``, or
+                   ``dist_edge_mm <= edge_within``): ``ignore_up_to`` /
+                   ``ignore_below`` / ``ignore_any_size = true``; ``beyond =
+                   "count"`` (the other rules then apply) or ``"retest"``
+                   (review: replacement specimen); never ignored when
+                   ``cause`` is in ``unless_cause``.  One per set.
+=================  ==========================================================
+
 Units
 -----
 Lengths are written with their unit as the standard states it:

@@ -539,3 +539,21 @@ def test_exact_fraction_parse_is_exact():
     assert L._parse_number("3/32") == Fraction(3, 32)
     assert L._parse_number("1-1/2") == Fraction(3, 2)
     assert L._parse_number("1/0") is None and L._parse_number("abc") is None
+
+
+def test_limits_judges_a_table_without_opencv():
+    import subprocess
+    import sys
+
+    code = "import sys, surfaces.limits, surfaces.limits_cli; sys.exit('cv2' in sys.modules)"
+    assert subprocess.run([sys.executable, "-c", code], cwd=str(L.PRESET_DIR.parent.parent)).returncode == 0
+
+
+def test_summary_for_the_assessment_json():
+    ls = L.load_limit_set("api-1104-break")
+    s = ls.summary()
+    assert s == L.limits_summary(ls)
+    assert (s["name"], s["origin"], s["coverage_k"]) == ("api-1104-break", "preset", 2.0)
+    assert [r["id"] for r in s["rules"]] == [r.id for r in ls.rules]
+    assert s["rules"][4]["limit"] == "at most 0.5 x wall, at most 1/8 in (3 mm)"
+    json.dumps(s, allow_nan=False)
