@@ -5,9 +5,37 @@ package.
 
 render_fracture   fillet-weld break or nick-break fracture face beside the card
 render_bend       guided-bend coupon (optionally curved) beside the card
-generate_set      many photos + truth JSON + manifest.csv
+generate_set      many photos + truth JSON + manifest.csv (also ``python -m surfaces.synth``)
 marker_image      the DICT_4X4_50 marker as OpenCV draws it
-SynthPhoto        rendered photo (``rgb``) and its ``truth`` dict
+SynthPhoto        rendered photo (``rgb``) and its ``truth`` dict; ``save(path)``
+
+Truth (``surfaces.truth/1``), all mm on the card's plane unless named ``_px``
+------------------------------------------------------------------------------
+* plane frame = the first marker's own: origin at its top-left outer corner,
+  X along its top edge, Y along its left edge, so ``markers[0].corners_mm`` is
+  ``[[0, 0], [S, 0], [S, S], [0, S]]``.
+* ``H_plane_to_photo`` (3x3) maps plane (X, Y) to photo pixels (x, y), pixel
+  centres at integers; ``px_per_mm_face`` = sqrt|det J| of it at
+  ``face.centroid_mm``.
+* ``face``: ``polygon_mm`` / ``polygon_px``, ``length_mm`` (along the weld;
+  true arc length on a bend coupon), ``width_mm``, ``area_mm2`` (true),
+  ``axis_deg`` (direction of face +x in the plane), ``root_side`` (y0, y1,
+  unknown), ``A_face_to_plane`` (face axes -> plane; projected face axes on a
+  curved coupon).
+* ``imperfections``: ``kind``, ``iso6520``, ``centroid_mm``/``_px``,
+  ``bbox_px``, ``greatest_mm`` (max Feret), ``width_mm`` (min Feret),
+  ``along_mm``, ``across_mm``, ``area_mm2`` (analytic for circles, ellipses,
+  capsules; from a fine outline otherwise), ``face_mm`` (centroid and extent in
+  face axes), ``starts_at_edge``, ``polygon_mm``/``_px``, ``shape``
+  (construction parameters); on bend coupons also ``cause`` and
+  ``projected`` sizes (as seen in the plane).
+* ``distractors``: ``type`` (speck, smudge, bright_facet, edge_shadow, rust,
+  grinding_mark) and ``centroid_mm``/``_px`` - things that are not
+  imperfections.
+* ``curvature`` (bend): ``enabled``, ``radius_mm``, ``arc_length_mm``,
+  ``projected_length_mm``, ``half_angle_deg``, mapping
+  ``x = Lp/2 + R sin((s - L/2)/R)``.
+* ``look``, ``camera``, ``light``, ``table``, ``params``: how it was made.
 """
 
 from __future__ import annotations

@@ -275,7 +275,7 @@ class FractureBuilder:
         g = self.geo
         sp = g.specimen_poly
         lo, hi = sp.min(0) - 0.5, sp.max(0) + 0.5
-        r = layer_res(ctx, float(np.prod(hi - lo)), 1.15)
+        r = layer_res(ctx, float(np.prod(hi - lo)), 1.0)
         h, w = int(math.ceil((hi[1] - lo[1]) * r)), int(math.ceil((hi[0] - lo[0]) * r))
         A = grid_A(lo[0], lo[1], r)
         yy, xx = np.mgrid[0:h, 0:w].astype(np.float32)
@@ -358,8 +358,8 @@ class FractureBuilder:
     def _face_layer(self, rng, ctx: Context, placed: Placed) -> Layer:
         g = self.geo
         lo, hi = g.face_poly.min(0) - 0.6, g.face_poly.max(0) + 0.6
-        r = layer_res(ctx, float(np.prod(hi - lo)), 1.8)
-        r = max(r, ctx.px_per_mm)
+        r = layer_res(ctx, float(np.prod(hi - lo)), 1.7)
+        r = max(r, 1.2 * ctx.px_per_mm)
         h, w = int(math.ceil((hi[1] - lo[1]) * r)), int(math.ceil((hi[0] - lo[0]) * r))
         A = grid_A(lo[0], lo[1], r)
         rgb, desc = _textures.fracture(rng, (h, w), r, ctx.light.azimuth_deg)

@@ -148,7 +148,7 @@ class Context:
     px_per_mm: float
     light: Light
     H_layout_to_photo: np.ndarray
-    max_canvas_px: float = 6e6
+    max_canvas_px: float = 4.5e6
 
 
 def layer_res(ctx: Context, area_mm2: float, factor: float) -> float:

@@ -44,7 +44,7 @@ def table(rng: np.random.Generator, shape: tuple[int, int], r: float, kind: str)
         ang = rng.uniform(0, 180)
         brushed = _noise.value(rng, shape, 30 * r, cell_y=max(0.3 * r, 0.6), angle_deg=ang)
         stains = _noise.blotches(rng, shape, 40 * r, rng.uniform(0.05, 0.3))
-        lum = 0.9 + 0.06 * brushed - 0.25 * stains + 0.05 * _noise.fractal(rng, shape, 80 * r)
+        lum = 0.9 + 0.06 * brushed - rng.uniform(0.05, 0.2) * stains + 0.05 * _noise.fractal(rng, shape, 80 * r)
         g = rng.uniform(0.28, 0.45)
         col = np.array([g, g, g * 1.04])
     elif kind == "cloth":
