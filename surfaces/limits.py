@@ -209,12 +209,22 @@ class LimitsError(SurfacesError):
 # --------------------------------------------------------------------------- values
 
 
-def _fmt(x: float) -> str:
-    """Two decimals, trailing zeros kept short (``3``, ``2.38``, ``12.7``)."""
+def _fmt(x: float, nd: int = 2) -> str:
+    """``nd`` decimals, trailing zeros dropped (``3``, ``2.38``, ``12.7``)."""
     if x is None or not math.isfinite(x):
         return "?"
-    s = f"{x:.2f}"
+    s = f"{x:.{nd}f}"
     return s.rstrip("0").rstrip(".") if "." in s else s
+
+
+def _fmt_near(x: float, limit: float | None) -> str:
+    """A measured value with as many decimals as it takes to sit on the right side of the limit shown."""
+    nd = 2
+    if limit is not None and math.isfinite(x) and math.isfinite(limit) and x != limit:
+        shown = float(_fmt(limit, 3))
+        while nd < 6 and (float(_fmt(x, nd)) <= shown) != (x <= limit):
+            nd += 1
+    return _fmt(x, nd)
 
 
 @dataclass(frozen=True)
@@ -262,7 +272,8 @@ class Quantity:
             return "exact" if self.unit == "in" else "as stated"
         used = "printed" if self.mm == self.printed_mm and self.mm != self.exact_mm else "exact"
         why = {"safer": "the safer reading", "stated": "chosen: stated", "printed": "chosen: printed"}
-        return f"{used} ({why[self.use]}; exact {_fmt(self.exact_mm)} mm, printed {_fmt(self.printed_mm)} mm)"
+        return (f"{used} ({why[self.use]}; exact {_fmt(self.exact_mm, 4)} mm, "
+                f"printed {_fmt(self.printed_mm, 3)} mm)")
 
     def label(self) -> str:
         """``3/32 in (2.38 mm)``, ``3 mm``, ``2 %``."""
@@ -270,7 +281,7 @@ class Quantity:
             return f"{self.stated} %"
         if self.unit == "mm" and self.printed_mm is None:
             return f"{self.stated} mm"
-        return f"{self.stated} {self.unit} ({_fmt(self.mm)} mm)"
+        return f"{self.stated} {self.unit} ({_fmt(self.mm, 3)} mm)"
 
     def to_toml_value(self) -> Any:
         text = f"{self.stated} {self.unit}"
@@ -341,13 +352,13 @@ class Rule:
         return text
 
     def bound_text(self) -> str:
-        """The maximum alone: ``3/32 in (2.38 mm)``, ``0.2 x throat, at most 3 mm``."""
+        """The maximum alone: ``3/32 in (2.38 mm)``, ``the smaller of 0.2 x throat and 3 mm``."""
         parts = []
         if self.max_fraction is not None:
             parts.append(f"{_fmt(self.max_fraction)} x {self.of}")
         if self.max is not None:
             parts.append(self.max.label())
-        return ", at most ".join(parts)
+        return f"the smaller of {parts[0]} and {parts[1]}" if len(parts) == 2 else parts[0]
 
     def to_toml_dict(self) -> dict[str, Any]:
         d: dict[str, Any] = {"id": self.id, "check": self.check, "kinds": list(self.kinds)}
@@ -1228,7 +1239,7 @@ def _limit_text(rule: Rule, ctx: _Ctx, limit: float | None) -> str:
     if limit is None:
         return rule.bound_text()
     nom = _num(ctx.nominal.get(f"{rule.of}_mm"))
-    return f"{rule.bound_text()} = {_fmt(limit)} mm for {rule.of} {_fmt(nom)} mm"
+    return f"{rule.bound_text()} = {_fmt(limit, 3)} mm for {rule.of} {_fmt(nom, 3)} mm"
 
 
 _DIM_WORDS = {"thickness": "plate thickness", "throat": "throat", "wall": "wall thickness",
@@ -1266,8 +1277,8 @@ def _eval_max_size(rule, possible, sure, why, ctx, out):
         if not math.isfinite(v):
             out.add("review", f"{head}unknown ({col} missing): measure it")
             continue
-        meas = f"{_fmt(v)} +/- {_fmt(U)} mm"
         lim = limit if limit is not None else cap
+        meas = f"{_fmt_near(v, lim)} +/- {_fmt(U)} mm"
         if lim is not None and v - U > lim:
             text = f"{head}{meas} > {_limit_text(rule, ctx, limit) if limit is not None else rule.max.label()}"
             if it in sure and known:
@@ -1281,7 +1292,7 @@ def _eval_max_size(rule, possible, sure, why, ctx, out):
             out.add("review", f"{head}{meas} is within its uncertainty of "
                               f"{_limit_text(rule, ctx, limit)}")
         elif not known:
-            out.add("review", f"{head}{_fmt(v)} mm <= {_limit_text(rule, ctx, limit)}"
+            out.add("review", f"{head}{_fmt_near(v, limit)} mm <= {_limit_text(rule, ctx, limit)}"
                               f"{_uncertain_tail(True, ucol)}")
         out.items.append(it.id)
 
@@ -1413,7 +1424,7 @@ def _eval_max_sum(rule, possible, sure, why, ctx, out, *, band=False):
             if cap is not None and lo > cap:
                 _decide_upper(rule, out, lo=lo, lo_known=k_lo, hi=hi, limit=cap,
                               text_fail=f"{rule.id}: {_items_label(sur)}{win}: {what} "
-                                        f"{_fmt(S_lo)} +/- {_fmt(U_lo)} mm > {rule.max.label()}",
+                                        f"{_fmt_near(S_lo, cap)} +/- {_fmt(U_lo)} mm > {rule.max.label()}",
                               text_review="", text_unknown=_uncertain_tail(not k_lo, ucol))
             else:
                 out.add("review", f"{rule.id}: {_items_label(pos)}{win}: {what} {_fmt(S_hi)} "
@@ -1422,9 +1433,9 @@ def _eval_max_sum(rule, possible, sure, why, ctx, out, *, band=False):
         out.limit_mm = limit
         _decide_upper(
             rule, out, lo=lo, lo_known=k_lo, hi=hi, limit=limit,
-            text_fail=f"{rule.id}: {_items_label(sur)}{win}: {what} {_fmt(S_lo)} +/- {_fmt(U_lo)} mm "
+            text_fail=f"{rule.id}: {_items_label(sur)}{win}: {what} {_fmt_near(S_lo, limit)} +/- {_fmt(U_lo)} mm "
                       f"> {lim_text}",
-            text_review=f"{rule.id}: {_items_label(pos)}{win}: {what} {_fmt(S_hi)} +/- {_fmt(U_hi)} mm "
+            text_review=f"{rule.id}: {_items_label(pos)}{win}: {what} {_fmt_near(S_hi, limit)} +/- {_fmt(U_hi)} mm "
                         f"{_compare_word(S_hi, limit)} {lim_text}{_low_tail(pos, sur, why)}",
             text_unknown=_uncertain_tail(not k_hi, ucol))
 
@@ -1452,7 +1463,7 @@ def _eval_max_area(rule, possible, sure, why, ctx, out):
     out.value, out.u, out.limit_mm = pct(S_hi), pct(U_hi), limit
 
     def text(items, S, U):
-        return (f"{rule.id}: {_items_label(items)}: total area {_fmt(pct(S))} +/- {_fmt(pct(U))} % "
+        return (f"{rule.id}: {_items_label(items)}: total area {_fmt_near(pct(S), limit)} +/- {_fmt(pct(U))} % "
                 f"of the face ({_fmt(S)} of {_fmt(area)} mm2)")
     hi, lo = pct(S_hi + U_hi), (pct(S_lo - U_lo) if sure else -math.inf)
     _decide_upper(rule, out, lo=lo, lo_known=k_lo, hi=hi, limit=limit,
@@ -1486,7 +1497,7 @@ def _eval_min_separation(rule, possible, sure, why, ctx, out):
     for i, a in enumerate(possible):
         for b in possible[i + 1:]:
             g, U, known = _gap(a, b)
-            text = (f"{rule.id}: {a.label()} and {b.label()}: {_fmt(g)} +/- {_fmt(U)} mm apart")
+            text = f"{rule.id}: {a.label()} and {b.label()}: {_fmt_near(g, need)} +/- {_fmt(U)} mm apart"
             if g + U < need:
                 if a in sure and b in sure and known:
                     out.add("fail", f"{text} < {rule.min.label()}")

@@ -90,7 +90,7 @@ def test_inch_values_convert_exactly():
     assert ls.rules[0].max.mm == 2.38125
     assert one_rule(check="max_size", kinds=["pore"], max="1-1/2 in").rules[0].max.mm == pytest.approx(38.1)
     assert one_rule(check="max_size", kinds=["pore"], max="1 1/2 in").rules[0].max.mm == pytest.approx(38.1)
-    assert ls.rules[0].max.label() == "3/32 in (2.38 mm)"
+    assert ls.rules[0].max.label() == "3/32 in (2.381 mm)"
 
 
 def test_table_form_with_number_and_unit():
@@ -233,7 +233,7 @@ def test_within_expanded_uncertainty_is_review_with_k2():
 def test_reason_format_with_inch_limit():
     ls = one_rule(check="max_size", kinds=["pore"], max="3/32 in")
     v = verdict(ls, imp(3, "pore", 2.7, u=0.05))
-    assert v.reasons == ("r: pore 3: greatest 2.7 +/- 0.1 mm > 3/32 in (2.38 mm)",)
+    assert v.reasons == ("r: pore 3: greatest 2.7 +/- 0.1 mm > 3/32 in (2.381 mm)",)
 
 
 def test_unknown_uncertainty_gives_review_when_deciding():
@@ -555,5 +555,13 @@ def test_summary_for_the_assessment_json():
     assert s == L.limits_summary(ls)
     assert (s["name"], s["origin"], s["coverage_k"]) == ("api-1104-break", "preset", 2.0)
     assert [r["id"] for r in s["rules"]] == [r.id for r in ls.rules]
-    assert s["rules"][4]["limit"] == "at most 0.5 x wall, at most 1/8 in (3 mm)"
+    assert s["rules"][4]["limit"] == "at most the smaller of 0.5 x wall and 1/8 in (3 mm)"
     json.dumps(s, allow_nan=False)
+
+
+def test_values_just_over_a_limit_show_enough_decimals():
+    # a reason must never read "2.38 > 2.381": the value gets the decimals it needs
+    ls = one_rule(check="max_size", kinds=["pore"], max="3/32 in")
+    assert verdict(ls, imp(1, "pore", 2.3813)).reasons == (
+        "r: pore 1: greatest 2.3813 +/- 0 mm > 3/32 in (2.381 mm)",)
+    assert verdict(ls, imp(1, "pore", 2.5)).reasons == ("r: pore 1: greatest 2.5 +/- 0 mm > 3/32 in (2.381 mm)",)

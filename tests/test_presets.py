@@ -77,7 +77,7 @@ def test_aws_fillet_break_single_pore_3_32_in():
     assert verdict(ls, imp(3, "pore", 2.37)).result == "accept"
     v = verdict(ls, imp(3, "pore", 2.40))
     assert v.result == "reject" and v.reasons == (
-        "single-size: pore 3: greatest 2.4 +/- 0 mm > 3/32 in (2.38 mm)",)
+        "single-size: pore 3: greatest 2.4 +/- 0 mm > 3/32 in (2.381 mm)",)
     assert verdict(ls, imp(3, "inclusion", 2.45)).result == "reject"  # under printed 2.5, over exact
     # a user may choose the printed reading in their own copy
     mine = L.parse_limit_set(ls.text.replace('printed = "2.5 mm", use = "safer" }\nclause',
