@@ -46,11 +46,14 @@ from skimage.filters import apply_hysteresis_threshold, sato
 from . import face as _face
 from .geometry import apply_h
 from .model import WORK_PX_PER_MM, Calibration, Face, FaceError, Settings, SurfacesError
-from .segment import ISO6520, Detection, _classify_dark, _robust_sigma, _trace_dark, background, texture_energy
+from skimage import measure as skm
+
+from .segment import ISO6520, Detection, background
 from .shapes import polygon_features
 
 __all__ = ["find_coupon", "detect", "outer_radius", "arc_length_map", "STEEP_SLOPE_DEG"]
 
+_DEBUG: dict = {}
 COARSE_PX_PER_MM = 4.0
 EDGE_PX_PER_MM = 8.0  # resolution of the pass that places the long edges
 WIDTH_RANGE_MM = (5.0, 70.0)  # coupons accepted (typical 10-40 mm)
@@ -62,13 +65,21 @@ STEEP_SLOPE_DEG = 60.0
 #: the former tightly make the real radius larger (common practice).
 RADIUS_REL_U_DERIVED = 0.05
 RADIUS_REL_U_MEASURED = 0.02  # a measured outer radius (from memory: gauge reading)
-APEX_U_MM = 2.0  # 1-sigma of the apex position when taken as the face centre
+#: 1-sigma of the apex position taken as the face centre when the visible
+#: extent cannot be checked against the bend's (straight legs in view).
+APEX_U_MM = 2.0
+APEX_U_MIN_MM = 0.5  # the two visible ends each placed to about 0.5 mm
 #: Camera distance assumed when the surface lies below the marker plane
 #: (typical hand-held photo of a coupon, from memory: 250-400 mm).
 CAMERA_DISTANCE_MM = 300.0
-EDGE_BG_MM = 2.0  # band along each long edge where the background is taken along x
+COLUMN_MEDIAN_MM = 1.5  # running median of the shading profile along the coupon
+ROW_MEDIAN_MM = 16.0  # running median along x of the profile across (edge bands, grinding marks)
 EDGE_IGNORE_MM = 0.12  # the outermost strip of the face (edge blur) never seeds a detection
-CRACK_SIGMAS_MM = (0.05, 0.09, 0.15)  # ridge filter scales
+#: The ends of the visible surface are where it turns away steepest and meets the
+#: table; nothing starts within this distance of them.
+END_IGNORE_MM = 1.0
+END_ZONE_MM = 2.5  # an opening wholly this close to an end, touching the ignored strip, is not trusted
+BACKGROUND_MM = 6.0  # window of the local background median
 SCRATCH_ALIGN_DEG = 12.0
 
 
@@ -217,15 +228,76 @@ def _lab(rgb: np.ndarray) -> np.ndarray:
     return cv2.cvtColor(rgb, cv2.COLOR_RGB2LAB).astype(np.float32)
 
 
-def _table_ref(lab: np.ndarray, allowed: np.ndarray, ring: np.ndarray) -> np.ndarray:
-    sel = allowed & ring
-    if sel.sum() < 50:
-        sel = allowed
-    return np.median(lab[sel], axis=0)
+LAB_WEIGHTS = np.array([1.0, 1.6, 1.6], np.float32)  # chroma differences count more than shading
+SHADOW_WEIGHT = 0.45
+
+
+def _features(plane_rgb: np.ndarray, *, px_per_mm: float) -> np.ndarray:
+    """Per-pixel features for coupon vs table: Lab (smoothed) and log texture energy, (h, w, 4) float32."""
+    lab = cv2.GaussianBlur(_lab(plane_rgb), (0, 0), 0.5 * px_per_mm)
+    g = cv2.cvtColor(plane_rgb, cv2.COLOR_RGB2GRAY)
+    tex = _face._texture_energy(g, px_per_mm=px_per_mm, fine_mm=0.3, window_mm=1.0)
+    # texture relative to brightness (a shadow keeps the table's texture contrast)
+    rel = np.log((tex + 1.0) / (lab[..., 0] * 0.1 + 4.0))
+    return np.dstack([lab, rel.astype(np.float32)])
+
+
+def _difference(feat: np.ndarray, ref: np.ndarray) -> np.ndarray:
+    """Distance of each pixel's features from the (local) table reference."""
+    dl = (feat[..., :3] - ref[..., :3]) * LAB_WEIGHTS
+    # darker than the table counts less: shadows are darker table, same colour and texture
+    dl[..., 0] = np.where(dl[..., 0] < 0, SHADOW_WEIGHT * dl[..., 0], dl[..., 0])
+    dt = (feat[..., 3] - ref[..., 3]) * 18.0
+    return np.sqrt((dl**2).sum(-1) + dt**2)
+
+
+def _local_reference(feat: np.ndarray, table: np.ndarray, *, px_per_mm: float, sigma_mm: float = 12.0) -> np.ndarray:
+    """Table features interpolated under the coupon: normalised convolution over table pixels.
+
+    Done at 1 px/mm (the table varies slowly), then brought back to the grid.
+    """
+    h, w = table.shape
+    f = min(1.0, 1.0 / px_per_mm)
+    sz = (max(1, int(round(w * f))), max(1, int(round(h * f))))
+    wt = cv2.resize(table.astype(np.float32), sz, interpolation=cv2.INTER_AREA)
+    sig = sigma_mm * px_per_mm * f
+    den = cv2.GaussianBlur(wt, (0, 0), sig) + 1e-6
+    out = np.empty((sz[1], sz[0], feat.shape[2]), np.float32)
+    for c in range(feat.shape[2]):
+        fc = cv2.resize(feat[..., c] * table, sz, interpolation=cv2.INTER_AREA)
+        out[..., c] = cv2.GaussianBlur(fc, (0, 0), sig) / den
+    far = den < 0.02  # no table nearby: fall back to the global table median
+    if far.any() and table.any():
+        out[far] = np.median(feat[table], axis=0)
+    return cv2.resize(out, (w, h), interpolation=cv2.INTER_LINEAR)
+
+
+def _card_mask(lab_l, sat, calib, to_px, shape) -> np.ndarray:
+    """The reference card: the marker and its quiet zone, and the bright, unsaturated paper
+    joined to the quiet zone, within a few marker sides of the marker."""
+    card = np.zeros(shape, np.uint8)
+    near = np.zeros(shape, np.uint8)
+    seeds = []
+    for m in calib.markers:
+        c = apply_h(calib.H, m.corners_px)
+        ctr = c.mean(axis=0)
+        cv2.fillPoly(card, [to_px(ctr + (c - ctr) * 1.6)], 1)  # marker + quiet zone (2 modules a side)
+        cv2.fillPoly(near, [to_px(ctr + (c - ctr) * 4.0)], 1)
+        seeds.append(to_px(ctr + (c - ctr) * 1.35))
+    if seeds:
+        bright = (lab_l > np.percentile(lab_l, 60)) & (sat < 45) & (near > 0)
+        n, lab = cv2.connectedComponents(bright.astype(np.uint8), connectivity=4)
+        for ring_pts in seeds:
+            ring = np.zeros(shape, np.uint8)
+            cv2.polylines(ring, [ring_pts], True, 1, 2)
+            ids = np.unique(lab[(ring > 0) & bright])
+            for i in ids[ids > 0]:
+                card[lab == i] = 1
+    return cv2.dilate(card, np.ones((13, 13), np.uint8)) > 0  # 1.5 mm at 4 px/mm: the paper's edge
 
 
 def _coarse_coupon(rgb, gray, calib: Calibration, roi_poly):
-    """Centre (plane mm), axis (deg), length, width (mm) and the table colour of the best coupon candidate."""
+    """Centre (plane mm), axis (deg), length and width (mm) of the best coupon-like strip."""
     poly_mm, _ = _face._search_box(calib, gray.shape, roi_poly)
     lo, hi = poly_mm.min(axis=0), poly_mm.max(axis=0)
     if calib.markers:
@@ -246,37 +318,46 @@ def _coarse_coupon(rgb, gray, calib: Calibration, roi_poly):
         small, Hs = rgb, calib.H
     M = np.linalg.inv(Hs) @ A
     flags = cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP
-    plane = cv2.warpPerspective(small, M, (W, Hh), flags=flags, borderMode=cv2.BORDER_CONSTANT, borderValue=0)
+    plane = cv2.warpPerspective(small, M, (W, Hh), flags=flags, borderMode=cv2.BORDER_REPLICATE)
     valid = cv2.warpPerspective(np.ones(small.shape[:2], np.uint8), M, (W, Hh), flags=cv2.INTER_NEAREST | cv2.WARP_INVERSE_MAP) > 0
     valid = cv2.erode(valid.astype(np.uint8), np.ones((5, 5), np.uint8)) > 0
     to_px = lambda p: ((np.asarray(p) - lo) * s - 0.5).astype(np.int32)  # noqa: E731
     allowed = np.zeros((Hh, W), np.uint8)
     cv2.fillPoly(allowed, [to_px(poly_mm)], 1)
-    card = np.zeros((Hh, W), np.uint8)
-    for ex in _face._card_exclusion(calib):
-        cv2.fillPoly(card, [to_px(ex)], 1)
-    allowed = (allowed > 0) & valid & (card == 0)
+    allowed = (allowed > 0) & valid
+    feat = _features(plane, px_per_mm=s)
+    sat = cv2.cvtColor(plane, cv2.COLOR_RGB2HSV)[..., 1].astype(np.float32)
+    card = _card_mask(feat[..., 0], sat, calib, to_px, (Hh, W))
+    allowed &= ~card
     if allowed.sum() < 100:
         raise FaceError("no room for a coupon beside the reference card: give --roi around the coupon")
-    lab = cv2.GaussianBlur(_lab(plane), (0, 0), 0.6 * s)
-    # the table: what lies along the border of the searched region
+    # the table: first what lies along the border of the searched region, then everywhere
+    # that does not differ from it, interpolated under the coupon
     dist_in = cv2.distanceTransform(allowed.astype(np.uint8), cv2.DIST_L2, 3) / s
-    ring = (dist_in > 0) & (dist_in < max(6.0, 0.06 * min(hi - lo)))
-    ref = _table_ref(lab, allowed, ring)
-    d = np.sqrt((((lab - ref) * np.array([1.0, 1.5, 1.5], np.float32)) ** 2).sum(-1))
-    # texture differs too (ground metal vs wood, cloth, painted steel)
-    g = lab[..., 0]
-    tex = _face._texture_energy(cv2.cvtColor(plane, cv2.COLOR_RGB2GRAY), px_per_mm=s, fine_mm=0.3, window_mm=1.0)
-    tref = float(np.median(tex[allowed & ring])) if (allowed & ring).any() else float(np.median(tex[allowed]))
-    dt = np.abs(np.log((tex + 1.0) / (tref + 1.0))) * 25.0
-    score = np.hypot(d, 0.5 * dt)
-    score[~allowed] = 0
-    thr = _face._otsu(score[allowed])
-    thr = max(thr, 12.0)
-    cand = ((score > thr) & allowed).astype(np.uint8)
+    ring = allowed & (dist_in < max(6.0, 0.06 * float(min(hi - lo))))
+    if ring.sum() < 50:
+        ring = allowed
+    ref = np.broadcast_to(np.median(feat[ring], axis=0), feat.shape)
+    table = ring
+    for _ in range(2):
+        d = _difference(feat, ref)
+        dt = d[table]
+        thr = max(10.0, float(np.median(dt) + 6.0 * 1.4826 * np.median(np.abs(dt - np.median(dt)))))
+        cand = (d > thr) & allowed
+        grown = cv2.dilate(cand.astype(np.uint8), np.ones((int(6 * s) | 1,) * 2, np.uint8)) > 0
+        table = allowed & ~grown
+        if table.sum() < 100:
+            table = ring
+        ref = _local_reference(feat, table, px_per_mm=s)
+    d = _difference(feat, ref)
+    dt = d[table]
+    thr = max(10.0, float(np.median(dt) + 5.0 * 1.4826 * np.median(np.abs(dt - np.median(dt)))))
+    cand = apply_hysteresis_threshold(np.where(allowed, d, 0), 0.6 * thr, thr)
+    cand = (ndi.binary_fill_holes(cand) & allowed).astype(np.uint8)
     k = max(1, int(round(1.0 * s)))
     cand = cv2.morphologyEx(cand, cv2.MORPH_OPEN, np.ones((2 * k + 1, 2 * k + 1), np.uint8))
     cand = cv2.morphologyEx(cand, cv2.MORPH_CLOSE, np.ones((2 * k + 1, 2 * k + 1), np.uint8))
+    _DEBUG.update(plane=plane, d=d, cand=cand, thr=thr, table=table, card=card)
     n, lab_cc, stats, _ = cv2.connectedComponentsWithStats(cand, connectivity=8)
     best, best_score = None, 0.0
     for i in range(1, n):
@@ -289,36 +370,170 @@ def _coarse_coupon(rgb, gray, calib: Calibration, roi_poly):
         L, Wd = max(rw, rh) / s, max(min(rw, rh), 1) / s
         fill = area / max(L * Wd, 1e-6)
         ok_size = WIDTH_RANGE_MM[0] <= Wd <= WIDTH_RANGE_MM[1] and LENGTH_RANGE_MM[0] <= L <= LENGTH_RANGE_MM[1]
-        elong = L / Wd
-        sc = area * fill**2 * (1.0 if ok_size else 0.05) * (1.0 if elong >= 1.3 else 0.2)
+        contrast = float(np.median(d[lab_cc == i])) / thr
+        sc = area * fill**3 * (1.0 if ok_size else 0.05) * min(contrast, 3.0)
         if sc > best_score:
-            best_score, best = sc, (cx, cy, rw, rh, ang)
+            best_score, best = sc, (cx, cy, rw, rh, ang, i)
     if best is None:
         raise FaceError(
             "could not find the bend coupon: give --roi X0,Y0,X1,Y1 (a box around the coupon in photo pixels)"
         )
-    cx, cy, rw, rh, ang = best
-    if rw < rh:
-        ang += 90.0
-        rw, rh = rh, rw
+    comp = lab_cc == best[5]
+    strip = _straight_strip(plane, comp, allowed, px_per_mm=s)
+    if strip is not None:
+        theta, mid_px, Wd, x0p, x1p = strip
+        ang = math.degrees(theta)
+        ux = np.array([math.cos(theta), math.sin(theta)])
+        uy = np.array([-math.sin(theta), math.cos(theta)])
+        c_px = ux * 0.5 * (x0p + x1p) + uy * mid_px
+        L = (x1p - x0p) / s
+        Wd = Wd / s
+    else:
+        # no pair of straight edges: the component's own rectangle
+        cx, cy, rw, rh, ang = best[:5]
+        if rw < rh:
+            ang += 90.0
+            rw, rh = rh, rw
+        c_px = np.array([cx, cy])
+        L, Wd = rw / s, rh / s
     ang = (ang + 90.0) % 180.0 - 90.0  # x runs left to right in the plane
-    centre = lo + (np.array([cx, cy]) + 0.5) / s
-    return centre, float(ang), rw / s, rh / s, ref, float(thr)
+    centre = lo + (c_px + 0.5) / s
+    return centre, float(ang), float(L), float(Wd)
 
 
-def _edge_in_profile(p: np.ndarray, lo: int, hi: int, sign: float) -> float | None:
-    """Sub-pixel index of the strongest step of ``p`` within ``[lo, hi)`` of the given sign."""
-    gp = np.gradient(p) * sign
-    lo, hi = max(lo, 1), min(hi, len(p) - 1)
-    if hi - lo < 3:
+def _straight_strip(plane: np.ndarray, comp: np.ndarray, allowed: np.ndarray, *, px_per_mm: float):
+    """The coupon's two long edges near a candidate region, from straight-line sums of the gradient.
+
+    For each direction, the brightness gradient across it is summed along
+    lines in that direction (a Radon transform of the signed directional
+    derivative): a long straight step adds up, texture of random sign does
+    not.  The coupon is the pair of opposite steps 5-70 mm apart with the
+    largest weaker step.  Returns ``(theta_rad, offset_px, width_px, x0_px,
+    x1_px)`` in the plane image's pixel axes (offset and extent along the
+    rotated axes through the origin), or None.
+    """
+    s = px_per_mm
+    k = int(8 * s) | 1
+    near = cv2.dilate(comp.astype(np.uint8), np.ones((k, k), np.uint8)) > 0
+    near &= cv2.erode(allowed.astype(np.uint8), np.ones((5, 5), np.uint8)) > 0
+    ys, xs = np.nonzero(near)
+    if len(xs) < 100:
         return None
-    j = lo + int(np.argmax(gp[lo:hi]))
-    if gp[j] <= 0:
+    r0, r1, c0, c1 = ys.min(), ys.max() + 1, xs.min(), xs.max() + 1
+    L = cv2.GaussianBlur(_lab(plane[r0:r1, c0:c1])[..., 0], (0, 0), 1.0)
+    gx = cv2.Sobel(L, cv2.CV_32F, 1, 0, ksize=3) / 8
+    gy = cv2.Sobel(L, cv2.CV_32F, 0, 1, ksize=3) / 8
+    m = near[r0:r1, c0:c1].astype(np.float32)
+    gx *= m
+    gy *= m
+    h, w = L.shape
+    diag = int(math.ceil(math.hypot(h, w))) + 2
+    cx, cy = (w - 1) / 2, (h - 1) / 2
+    wmin, wmax = WIDTH_RANGE_MM[0] * s, WIDTH_RANGE_MM[1] * s
+
+    def profile(theta):
+        # rotate so that direction theta runs along the columns; sum each row
+        n = (-math.sin(theta), math.cos(theta))
+        gn = gx * n[0] + gy * n[1]
+        R = cv2.getRotationMatrix2D((cx, cy), math.degrees(theta), 1.0)
+        R[0, 2] += (diag - 1) / 2 - cx
+        R[1, 2] += (diag - 1) / 2 - cy
+        rot = cv2.warpAffine(gn, R, (diag, diag), flags=cv2.INTER_LINEAR, borderValue=0)
+        p = cv2.reduce(rot, 1, cv2.REDUCE_SUM).ravel()
+        return np.convolve(p, [0.25, 0.5, 0.25], mode="same"), rot
+
+    def best_pair(p):
+        inner = p[1:-1]
+        is_pk = (inner >= p[:-2]) & (inner >= p[2:]) & (inner > 0)
+        is_nk = (inner <= p[:-2]) & (inner <= p[2:]) & (inner < 0)
+        pk = np.nonzero(is_pk)[0] + 1
+        nk = np.nonzero(is_nk)[0] + 1
+        if pk.size == 0 or nk.size == 0:
+            return 0.0, None
+        pk = pk[np.argsort(-p[pk])[:12]]
+        nk = nk[np.argsort(p[nk])[:12]]
+        sep = np.abs(pk[:, None] - nk[None, :])
+        sc = np.minimum(p[pk][:, None], -p[nk][None, :])
+        sc = np.where((sep >= wmin) & (sep <= wmax), sc, 0.0)
+        a, b = np.unravel_index(int(np.argmax(sc)), sc.shape)
+        if sc[a, b] <= 0:
+            return 0.0, None
+        return float(sc[a, b]), (int(pk[a]), int(nk[b]))
+
+    def refine(deg):
+        best = (0.0, float(deg), None)
+        for d in np.arange(deg - 2.0, deg + 2.01, 0.25):
+            sc2, pair2 = best_pair(profile(math.radians(d))[0])
+            if pair2 is not None and sc2 > best[0]:
+                best = (sc2, float(d), pair2)
+        return best
+
+    scores = []
+    for deg in range(0, 180, 2):
+        sc, pair = best_pair(profile(math.radians(deg))[0])
+        scores.append((sc, deg, pair))
+    sc, deg, pair = max(scores, key=lambda t: t[0])
+    if pair is None or sc <= 0:
         return None
-    a, b, c = gp[j - 1], gp[j], gp[min(j + 1, len(gp) - 1)]
-    den = a - 2 * b + c
-    off = 0.5 * (a - c) / den if abs(den) > 1e-9 else 0.0
-    return j + float(np.clip(off, -0.5, 0.5))
+    first = refine(deg)
+    other = refine((deg + 90) % 180)
+    chosen = first
+    if other[2] is not None and other[0] > 0.25 * first[0]:
+        # a closed rectangle: which pair are the long edges?  the longer sides, or, for a
+        # near-square view of a bend, the pair along which the shading does not change
+        a = abs(first[2][0] - first[2][1])  # separation of the first pair = its width
+        b = abs(other[2][0] - other[2][1])
+        if max(a, b) / max(min(a, b), 1) > 1.4:
+            chosen = first if a < b else other
+        else:
+            va = _shading_variation(L, comp[r0:r1, c0:c1], math.radians(first[1]))
+            vb = _shading_variation(L, comp[r0:r1, c0:c1], math.radians(other[1]))
+            chosen = first if va >= vb else other
+    sc, deg, (i, j) = chosen
+    theta = math.radians(deg)
+    lo_r, hi_r = sorted((i, j))
+    # extent along the strip: where the region lies between the two edges
+    R = cv2.getRotationMatrix2D((cx, cy), deg, 1.0)
+    R[0, 2] += (diag - 1) / 2 - cx
+    R[1, 2] += (diag - 1) / 2 - cy
+    cm = cv2.warpAffine(comp[r0:r1, c0:c1].astype(np.uint8), R, (diag, diag), flags=cv2.INTER_NEAREST)
+    band = cm[lo_r : hi_r + 1].sum(axis=0)
+    cols = np.nonzero(band > 0.3 * (hi_r - lo_r + 1))[0]
+    if cols.size < 2:
+        return None
+    # back to plane-image pixels: rotated (u, v) -> original (x, y)
+    Rinv = cv2.invertAffineTransform(R)
+
+    def back(u, v):
+        x = Rinv[0, 0] * u + Rinv[0, 1] * v + Rinv[0, 2] + c0
+        y = Rinv[1, 0] * u + Rinv[1, 1] * v + Rinv[1, 2] + r0
+        return np.array([x, y])
+
+    pa, pb = back(cols[0], 0.5 * (lo_r + hi_r)), back(cols[-1], 0.5 * (lo_r + hi_r))
+    d = pb - pa
+    th = math.atan2(d[1], d[0])
+    ux = np.array([math.cos(th), math.sin(th)])
+    uy = np.array([-math.sin(th), math.cos(th)])
+    mid = 0.5 * (pa + pb)
+    return th, float(mid @ uy), float(hi_r - lo_r), float(pa @ ux), float(pb @ ux)
+
+
+def _shading_variation(L: np.ndarray, region: np.ndarray, theta: float) -> float:
+    """Spread of the mean brightness profile along direction ``theta`` over ``region``.
+
+    A bend's curvature shades it along the coupon (across the bend axis);
+    across the coupon the brightness stays the same.
+    """
+    ys, xs = np.nonzero(region)
+    if len(xs) < 50:
+        return 0.0
+    t = xs * math.cos(theta) + ys * math.sin(theta)
+    v = L[ys, xs]
+    lo, hi = np.percentile(t, [10, 90])
+    bins = np.linspace(lo, hi, 13)
+    k = np.digitize(t, bins)
+    means = [float(np.median(v[k == i])) for i in range(1, len(bins)) if (k == i).sum() > 5]
+    return float(np.std(means)) if len(means) > 3 else 0.0
 
 
 def _robust_line(x: np.ndarray, y: np.ndarray) -> tuple[float, float, np.ndarray] | None:
@@ -375,39 +590,30 @@ def find_coupon(
     roi_poly = _face._roi_polygon(roi, gray.shape) if roi is not None else None
     method = "auto" if roi is None else ("roi-box" if len(roi) == 4 else "roi-corners")
     warnings: list[str] = []
-    centre, axis, L, Wd, table_lab, thr = _coarse_coupon(rgb, gray, calib, roi_poly)
+    centre, axis, L, Wd = _coarse_coupon(rgb, gray, calib, roi_poly)
 
     # fine pass at EDGE_PX_PER_MM: straight long edges from brightness steps across the coupon
     e = EDGE_PX_PER_MM
-    m_y = max(5.0, 0.5 * Wd)
-    m_x = max(6.0, 0.15 * L)
+    m_y = max(6.0, 0.5 * Wd)
+    m_x = max(8.0, 0.2 * L)
     ox, oy = -L / 2 - m_x, -Wd / 2 - m_y
     w, h = int(math.ceil((L + 2 * m_x) * e)), int(math.ceil((Wd + 2 * m_y) * e))
     A = _face.face_frame(centre, axis, (ox, oy), px_per_mm=e)
     sub = _face.warp_to_face(rgb, calib.H, A, (h, w))
-    lab = cv2.GaussianBlur(_lab(sub), (0, 0), 0.08 * e)
-    Lc = lab[..., 0]
-    # which way the step goes: coupon minus table brightness
-    c0 = int(round((m_x + 0.3 * L) * e))
-    c1 = int(round((m_x + 0.7 * L) * e))
-    r_in = slice(int((m_y + 0.3 * Wd) * e), int((m_y + 0.7 * Wd) * e) + 1)
-    inside_L = float(np.median(Lc[r_in, c0:c1]))
-    sign = 1.0 if inside_L >= table_lab[0] else -1.0
-    nb = max(6, min(40, int(L / 3)))
+    Lc = cv2.GaussianBlur(_lab(sub)[..., 0], (0, 0), 0.1 * e)
+    nb = max(8, min(48, int(L / 2.5)))
     xs_b, top_b, bot_b = [], [], []
-    win = max(2.5, 0.3 * Wd) * e
+    win = 1.5 * e  # the coarse edges come from straight-line sums, good to a fraction of a mm
     y_top0, y_bot0 = m_y * e, (m_y + Wd) * e
     for k in range(nb):
-        a0 = int(round((m_x + L * (0.12 + 0.76 * k / nb)) * e))
-        a1 = int(round((m_x + L * (0.12 + 0.76 * (k + 1) / nb)) * e))
+        a0 = int(round((m_x + L * (0.1 + 0.8 * k / nb)) * e))
+        a1 = int(round((m_x + L * (0.1 + 0.8 * (k + 1) / nb)) * e))
         if a1 - a0 < 2:
             continue
         prof = np.median(Lc[:, a0:a1], axis=1)
-        t = _edge_in_profile(prof, int(y_top0 - win), int(y_top0 + win), sign)
-        b = _edge_in_profile(prof, int(y_bot0 - win), int(y_bot0 + win), -sign)
         xs_b.append(0.5 * (a0 + a1 - 1))
-        top_b.append(np.nan if t is None else t)
-        bot_b.append(np.nan if b is None else b)
+        top_b.append(_outer_step(prof, int(y_top0 - win), int(y_top0 + win), outward=-1))
+        bot_b.append(_outer_step(prof, int(y_bot0 - win), int(y_bot0 + win), outward=+1))
     xs_b = np.asarray(xs_b, float)
     lt = _robust_line(xs_b, np.asarray(top_b, float))
     lb = _robust_line(xs_b, np.asarray(bot_b, float))
@@ -428,28 +634,13 @@ def find_coupon(
     mid_mm = apply_h(A, [[xc, y_mid]])[0]
     axis2 = axis + math.degrees(math.atan(slope))
 
-    # along the coupon: visible extent from the colour difference to the table
+    # along the coupon: the visible extent is where the strip differs from the table right
+    # beside it (colour, texture)
     A2 = _face.face_frame(mid_mm, axis2, (ox, -width / 2 - m_y), px_per_mm=e)
     sub2 = _face.warp_to_face(rgb, calib.H, A2, (h, w))
-    lab2 = cv2.GaussianBlur(_lab(sub2), (0, 0), 0.3 * e)
-    d2 = np.sqrt((((lab2 - table_lab) * np.array([1.0, 1.5, 1.5], np.float32)) ** 2).sum(-1))
-    band = slice(int((m_y + 0.2 * width) * e), int((m_y + 0.8 * width) * e) + 1)
-    prof = np.median(d2[band, :], axis=0)
-    inner = float(np.median(prof[c0:c1]))
-    outside = float(np.median(np.r_[prof[: max(2, int(0.4 * m_x * e))], prof[-max(2, int(0.4 * m_x * e)) :]]))
-    level = outside + 0.3 * (inner - outside)
-    if inner - outside < 0.5 * thr:
-        warnings.append("the coupon's ends are unclear: visible length taken from the coarse outline")
-        x_lo, x_hi = m_x * e, (m_x + L) * e
-    else:
-        cen = int(0.5 * (c0 + c1))
-        below = prof < level
-        left = np.nonzero(below[:cen])[0]
-        right = np.nonzero(below[cen:])[0]
-        x_lo = _cross(prof, level, left[-1]) if left.size else 0.0
-        x_hi = _cross(prof, level, cen + right[0] - 1) if right.size else float(w - 1)
-        if not left.size or not right.size:
-            warnings.append("the coupon runs out of the searched region: retake with the whole bend in frame")
+    x_lo, x_hi, ok_ends = _visible_extent(sub2, px_per_mm=e, m_y=m_y, width=width, m_x=m_x, L=L)
+    if not ok_ends:
+        warnings.append("the coupon's ends are unclear: check the visible length on the overlay or give --roi")
     fx0, fx1 = ox + (x_lo + 0.5) / e, ox + (x_hi + 0.5) / e
     length = fx1 - fx0
     if length < LENGTH_RANGE_MM[0] * 0.8:
@@ -481,6 +672,86 @@ def find_coupon(
     )
 
 
+def _outer_step(p: np.ndarray, lo: int, hi: int, *, outward: int) -> float:
+    """Sub-pixel index of the outermost strong brightness step of ``p`` within ``[lo, hi)``.
+
+    A strong step is a local maximum of ``|p'|`` of at least half the largest
+    in the window; the outermost one is the coupon's edge rather than a band
+    of shading just inside it (a rounded corner) or a soft shadow outside it.
+    """
+    lo, hi = max(lo, 1), min(hi, len(p) - 2)
+    if hi - lo < 4:
+        return np.nan
+    gp = np.abs(np.gradient(np.asarray(p, np.float64)))
+    seg = gp[lo:hi]
+    top = float(seg.max())
+    if top <= 0:
+        return np.nan
+    peaks = [j for j in range(lo + 1, hi - 1) if gp[j] >= gp[j - 1] and gp[j] >= gp[j + 1] and gp[j] >= 0.5 * top]
+    if not peaks:
+        return np.nan
+    j = min(peaks) if outward < 0 else max(peaks)
+    a, b, c = gp[j - 1], gp[j], gp[j + 1]
+    den = a - 2 * b + c
+    off = 0.5 * (a - c) / den if abs(den) > 1e-9 else 0.0
+    return j + float(np.clip(off, -0.5, 0.5))
+
+
+def _visible_extent(sub: np.ndarray, *, px_per_mm: float, m_y: float, width: float, m_x: float, L: float):
+    """Columns where the coupon starts and ends in a sub-image whose rows are centred on it.
+
+    Per column, the coupon's features (colour, texture) between its edges are
+    compared with the table's just outside them; the coupon lasts while the
+    difference stays above 35 % of its typical value in the middle.
+    """
+    e = px_per_mm
+    h, w = sub.shape[:2]
+    feat = _features(sub, px_per_mm=e)
+    r_in = slice(int((m_y + 0.2 * width) * e), int((m_y + 0.8 * width) * e) + 1)
+    o1 = slice(max(0, int((m_y - 4.0) * e)), max(1, int((m_y - 1.0) * e)))
+    o2 = slice(int((m_y + width + 1.0) * e), min(h, int((m_y + width + 4.0) * e)))
+    inside = np.median(feat[r_in], axis=0)  # (w, 4)
+    out_a = np.median(feat[o1], axis=0)
+    out_b = np.median(feat[o2], axis=0)
+    c = np.minimum(_difference(inside[None], out_a[None])[0], _difference(inside[None], out_b[None])[0])
+    c = ndi.uniform_filter1d(c, max(3, int(0.5 * e)))
+    c0, c1 = int((m_x + 0.3 * L) * e), int((m_x + 0.7 * L) * e)
+    mid = float(np.median(c[c0:c1]))
+    out_lvl = float(np.median(np.r_[c[: max(2, int(0.4 * m_x * e))], c[-max(2, int(0.4 * m_x * e)) :]]))
+    if mid - out_lvl < 6.0:
+        return m_x * e, (m_x + L) * e, False
+    level = out_lvl + 0.35 * (mid - out_lvl)
+    below = c < level
+    run = max(2, int(2.0 * e))  # a gap of 2 mm ends the coupon; shorter dips are highlights
+    cen = (c0 + c1) // 2
+    i = cen
+    while i > 0 and not below[max(0, i - run) : i].all():
+        i -= 1
+    j = cen
+    while j < w - 1 and not below[j + 1 : j + 1 + run].all():
+        j += 1
+    ok = i > 0 and j < w - 1
+    # place each end half-way down its own step (the flanks are often the most different
+    # part of the coupon, so the step at each end is steeper than the middle's level)
+    span = int(4.0 * e)
+    x_lo, x_hi = 0.0, float(w - 1)
+    if i > 0:
+        k = i + int(np.argmax(c[i : i + span]))
+        half = out_lvl + 0.5 * (c[k] - out_lvl)
+        q = k
+        while q > 0 and c[q] > half:
+            q -= 1
+        x_lo = _cross(c, half, q)
+    if j < w - 1:
+        k = max(0, j - span) + int(np.argmax(c[max(0, j - span) : j + 1]))
+        half = out_lvl + 0.5 * (c[k] - out_lvl)
+        q = k
+        while q < w - 1 and c[q] > half:
+            q += 1
+        x_hi = _cross(c, half, q - 1)
+    return x_lo, x_hi, ok
+
+
 def _cross(p: np.ndarray, level: float, i: int) -> float:
     """Sub-pixel position between ``i`` and ``i + 1`` where ``p`` crosses ``level``."""
     i = int(np.clip(i, 0, len(p) - 2))
@@ -494,16 +765,35 @@ def _cross(p: np.ndarray, level: float, i: int) -> float:
 # open discontinuities
 
 
-def _edge_background(g: np.ndarray, *, px_per_mm: float, window_mm: float = 8.0) -> np.ndarray:
-    """Background taken along x only (running median per row), for the bands along the long edges."""
-    f = min(1.0, 4.0 / px_per_mm)
-    small = cv2.resize(g, (max(1, int(round(g.shape[1] * f))), g.shape[0]), interpolation=cv2.INTER_AREA) if f < 1 else g
-    k = max(3, int(round(window_mm * px_per_mm * f)) | 1)
-    med = ndi.median_filter(small, size=(1, k), mode="reflect")
-    return cv2.resize(med, (g.shape[1], g.shape[0]), interpolation=cv2.INTER_LINEAR)
+def _coupon_background(gs: np.ndarray, *, px_per_mm: float) -> np.ndarray:
+    """Background brightness of a coupon's surface, without its openings.
+
+    A bent coupon is shaded along its length (curvature, highlights) and
+    across it near the long edges (rounded corners); both are nearly
+    separable.  So the background is a column profile (median over the
+    width, then a running median of :data:`COLUMN_MEDIAN_MM` along x, which a
+    transverse opening cannot move), times a row profile taken along x over
+    :data:`ROW_MEDIAN_MM` (which keeps grinding marks along the coupon and the
+    edge bands in the background), times a local median of what is left.
+    """
+    mm = px_per_mm
+    f = min(1.0, 4.0 / mm)  # profiles at 4 px/mm along x are plenty
+    small = cv2.resize(gs, (max(1, int(round(gs.shape[1] * f))), gs.shape[0]), interpolation=cv2.INTER_AREA) if f < 1 else gs
+    col = np.median(small, axis=0)
+    k = max(3, int(round(COLUMN_MEDIAN_MM * mm * f)) | 1)
+    col = ndi.median_filter(col, size=k, mode="nearest")
+    col = np.maximum(col, 1.0)
+    ratio = small / col[None, :]
+    kr = max(3, int(round(ROW_MEDIAN_MM * mm * f)) | 1)
+    rowp = ndi.median_filter(ratio, size=(1, kr), mode="nearest")
+    sep = col[None, :] * rowp
+    sep = cv2.resize(sep.astype(np.float32), (gs.shape[1], gs.shape[0]), interpolation=cv2.INTER_LINEAR)
+    rest = gs / np.maximum(sep, 1.0)
+    rest_bg = background(np.clip(rest * 128.0, 0, 255), px_per_mm=mm, window_mm=BACKGROUND_MM) / 128.0
+    return sep * rest_bg
 
 
-def _dominant_lines(ridge: np.ndarray, g: np.ndarray, *, px_per_mm: float) -> tuple[float, float]:
+def _dominant_lines(g: np.ndarray) -> tuple[float, float]:
     """Dominant line direction (rad, in (col,row) axes) of the face's fine structure and its coherence 0..1."""
     gx = cv2.Sobel(g, cv2.CV_32F, 1, 0, ksize=3)
     gy = cv2.Sobel(g, cv2.CV_32F, 0, 1, ksize=3)
@@ -578,16 +868,21 @@ def detect(
                 f"x > {apex + u_steep:.1f} mm) the surface slopes more than {STEEP_SLOPE_DEG:.0f} degrees: "
                 "lengths along the coupon there are unreliable and carry a wider uncertainty"
             )
+        # the apex is the centre of the visible bend; when the whole arc is in view (+-u_max),
+        # what is missing from the visible length could be missing from either end
+        if math.isfinite(u_max):
+            apex_u = max(APEX_U_MIN_MM, abs(2 * u_max - face.length_mm) / 2 / math.sqrt(3))
+        else:
+            apex_u = APEX_U_MM
         length_factor = _make_length_factor(
-            R, rel_u_R, apex_mm=apex, length_mm=face.length_mm, bend_angle_deg=angle, apex_u_mm=APEX_U_MM
+            R, rel_u_R, apex_mm=apex, length_mm=face.length_mm, bend_angle_deg=angle, apex_u_mm=apex_u
         )
         notes.append(
             f"lengths along the coupon corrected to the curved surface (outer radius {R:.1f} mm, {why}; "
             f"apex taken at the centre of the visible bend, x = {apex:.1f} mm)"
         )
     dets = find_openings(face.image, px_per_mm=face.px_per_mm, photo_px_per_mm=photo_px_per_mm, min_size_mm=settings.min_size_mm)
-    face2 = Face(**{**face.__dict__, "warnings": tuple(face.warnings)})
-    return dets, face2, length_factor, notes
+    return dets, face, length_factor, notes
 
 
 def find_openings(
@@ -600,6 +895,20 @@ def find_openings(
 ) -> list[Detection]:
     """Open discontinuities on a rectified coupon image (column = x along it, rows between the long edges).
 
+    Parameters
+    ----------
+    rgb : (h, w, 3) uint8 ndarray
+        The coupon's convex surface, exactly between its long edges.
+    px_per_mm : float
+        Resolution of ``rgb``.
+    photo_px_per_mm : float
+        Resolution of the photo at the coupon: smoothing and ridge scales
+        follow what the photo can resolve.
+    min_size_mm : float
+        Smallest greatest dimension reported.
+    sensitivity : float
+        Multiplies the thresholds (lower finds fainter openings).
+
     Returns
     -------
     list of Detection, outlines in face pixels (col, row), sorted by x.
@@ -607,80 +916,138 @@ def find_openings(
     mm = float(px_per_mm)
     h, w = rgb.shape[:2]
     g = cv2.cvtColor(rgb, cv2.COLOR_RGB2GRAY).astype(np.float32)
-    # photo detail limits the useful smoothing: no finer than ~0.5 photo px
-    smooth = max(0.04, 0.4 / photo_px_per_mm) * mm
-    gs = cv2.GaussianBlur(g, (0, 0), smooth)
-    bg2 = background(g, px_per_mm=mm)
-    bge = _edge_background(gs, px_per_mm=mm)
-    rows = np.arange(h, dtype=np.float32)
-    dist_edge_mm = np.minimum(rows + 0.5, h - 0.5 - rows) / mm
-    wgt = np.clip((EDGE_BG_MM + 1.0 - dist_edge_mm) / 1.0, 0, 1)[:, None]
-    bg = wgt * bge + (1 - wgt) * bg2
-    resid = bg - gs
-    mask = np.ones((h, w), bool)
+    resolve = 1.0 / photo_px_per_mm  # one photo pixel in mm
+    gs = cv2.GaussianBlur(g, (0, 0), max(0.04, 0.5 * resolve) * mm)
+    bg = _coupon_background(gs, px_per_mm=mm)
+    resid = bg - gs  # positive where darker than the surroundings
+    rel = resid / np.maximum(bg, 1.0)
     ign = max(1, int(round(EDGE_IGNORE_MM * mm)))
-    seed_mask = mask.copy()
+    ign_x = max(1, int(round(END_IGNORE_MM * mm)))
+    seed_mask = np.ones((h, w), bool)
     seed_mask[:ign] = False
     seed_mask[-ign:] = False
-    sig = _robust_sigma(resid)
-    bgm = float(np.median(bg))
-    hi = sensitivity * max(5.0 * sig, 0.12 * bgm)
-    lo = sensitivity * max(3.0 * sig, 0.06 * bgm)
-    dark = apply_hysteresis_threshold(np.where(seed_mask, resid, 0), lo, hi)
+    seed_mask[:, :ign_x] = False
+    seed_mask[:, -ign_x:] = False
+    sig = _robust_sigma(rel[seed_mask])
+    hi = sensitivity * max(5.0 * sig, 0.10)
+    lo = sensitivity * max(3.0 * sig, 0.05)
+    dark = apply_hysteresis_threshold(np.where(seed_mask, rel, 0), lo, hi)
 
-    sig_px = [max(s * mm, 0.6, 0.5 * mm / photo_px_per_mm) for s in CRACK_SIGMAS_MM]
-    gn = gs / max(bgm, 1.0)
-    ridge = sato(gn - bg / max(bgm, 1.0), sigmas=sorted(set(sig_px)), black_ridges=True, mode="reflect")
-    ridge[~seed_mask] = 0
-    rsig = _robust_sigma(ridge)
-    rmed = float(np.median(ridge))
-    ridge_mask = apply_hysteresis_threshold(ridge - rmed, sensitivity * 7 * rsig, sensitivity * 14 * rsig)
-    # a ridge must also be dark against its background (ignore bright-edge halos)
-    ridge_mask &= resid > lo * 0.6
+    # thin openings: ridge filter at one to three photo pixels
+    sig_px = sorted({round(max(f * resolve * mm, 0.7), 2) for f in (0.6, 1.2, 2.0)})
+    ridge = sato(np.where(seed_mask, gs / np.maximum(bg, 1.0), 1.0), sigmas=sig_px, black_ridges=True, mode="reflect")
+    rsig = _robust_sigma(ridge[seed_mask]) + 1e-6
+    rmed = float(np.median(ridge[seed_mask]))
+    ridge_mask = apply_hysteresis_threshold(np.where(seed_mask, ridge - rmed, 0), sensitivity * 7 * rsig, sensitivity * 14 * rsig)
+    ridge_mask &= rel > 0.6 * lo  # dark, not the bright side of a highlight
 
-    theta_lines, coherence = _dominant_lines(ridge, gs, px_per_mm=mm)
-    tex = texture_energy(g, px_per_mm=mm)
-    tex_med = float(np.median(tex))
-    speck_px = (0.15 * mm) ** 2
-    lab, n = ndi.label(dark | ridge_mask, structure=np.ones((3, 3)))
+    theta_lines, coherence = _dominant_lines(gs)
+    lab, _ = ndi.label(dark | ridge_mask, structure=np.ones((3, 3)))
     dets: list[Detection] = []
+    speck_px = (0.12 * mm) ** 2
     for i, sl in enumerate(ndi.find_objects(lab), start=1):
-        if sl is None:
+        if sl is None or (lab[sl] == i).sum() < speck_px:
             continue
-        comp = lab[sl] == i
-        if comp.sum() < speck_px:
-            continue
-        d = _trace_dark(i, sl, lab, gs, bg, resid, ridge_mask, tex, mask, mm=mm, sig=sig, tex_med=tex_med)
+        d = _trace_opening(i, sl, lab, gs, bg, ridge_mask, mm=mm, sig=sig)
         if d is None or d.features["greatest_mm"] < max(min_size_mm, 0.2):
             continue
         f = d.features
-        # the coupon's own edge: long, hugging a long edge, parallel to it
-        y0, y1 = f["y0_mm"], f["y1_mm"]
+        if f["width_mm"] < 1.5 * resolve and f["greatest_mm"] < 4 * resolve:
+            continue  # smaller than the photo can show
         W = h / mm
-        hug = min(y1, W - y0) < 0.6 and _angle_diff(f["angle_rad"], 0.0) < math.radians(15) and f["across_mm"] < 0.6
-        if hug and f["along_mm"] > 2.0:
+        # the coupon's own edge: hugging a long edge, parallel to it
+        hug = min(f["y1_mm"], W - f["y0_mm"]) < 0.6 and f["across_mm"] < 0.6 and f["along_mm"] > 1.0
+        Lf = w / mm
+        near_lo = f["x1_mm"] < END_ZONE_MM and f["x0_mm"] < END_IGNORE_MM + 0.3
+        near_hi = f["x0_mm"] > Lf - END_ZONE_MM and f["x1_mm"] > Lf - END_IGNORE_MM - 0.3
+        hug_end = near_lo or near_hi
+        if hug or hug_end:
             continue
-        # grinding / machining marks: aligned with the face's line family and shallow
-        if coherence > 0.15 and _angle_diff(f["angle_rad"], theta_lines) < math.radians(SCRATCH_ALIGN_DEG):
-            if f["contrast"] < 0.35 or f["cnr"] < 14:
+        # grinding / machining marks: long, shallow, parallel to the face's line family
+        if coherence > 0.1 and _angle_diff(f["angle_rad"], theta_lines) < math.radians(SCRATCH_ALIGN_DEG):
+            if f["contrast"] < 0.3 or f["cnr"] < 12:
                 continue
         kind, iso, conf = _bend_kind(f)
         d.kind, d.iso6520, d.confidence = kind, iso, conf
         d.cause = {"pore": "pore", "inclusion": "slag"}.get(kind, "")
-        if kind == "crack" and f.get("blob", False):
-            d.cause = "slag"
         dets.append(d)
     dets.sort(key=lambda d: (d.features["cx_px"], d.features["cy_px"]))
     return dets
 
 
-def _bend_kind(f: dict) -> tuple[str, str, float]:
-    """Kind, ISO 6520-1 number and confidence of an opening on a bend surface.
+def _robust_sigma(x: np.ndarray) -> float:
+    x = x[np.isfinite(x)]
+    if x.size == 0:
+        return 1.0
+    return float(1.4826 * np.median(np.abs(x - np.median(x)))) or 1e-3
 
-    On a stretched surface an opening is a crack unless it is rounded
-    (an opened pore) or irregular and wide (slag laid open).
+
+def _trace_opening(i, sl, lab, gs, bg, ridge_mask, *, mm: float, sig: float) -> Detection | None:
+    """Outline one candidate at half depth between its local background and its core."""
+    h, w = gs.shape
+    r0, r1, c0, c1 = sl[0].start, sl[0].stop, sl[1].start, sl[1].stop
+    pad = int(max(0.6 * mm, 0.3 * max(r1 - r0, c1 - c0))) + 2
+    R0, R1, C0, C1 = max(0, r0 - pad), min(h, r1 + pad), max(0, c0 - pad), min(w, c1 + pad)
+    seed = lab[R0:R1, C0:C1] == i
+    patch = gs[R0:R1, C0:C1]
+    b = float(np.median(bg[R0:R1, C0:C1][seed]))
+    core = float(np.percentile(patch[seed], 5))
+    contrast = b - core
+    if contrast <= 0:
+        return None
+    level = b - 0.5 * contrast
+    # the outline is the half-depth level itself, not the (looser) detection threshold
+    region = patch < level
+    rl, _ = ndi.label(region, structure=np.ones((3, 3)))
+    keep = np.unique(rl[seed & region])
+    keep = keep[keep > 0]
+    region = ndi.binary_fill_holes(np.isin(rl, keep)) if keep.size else seed
+    if region.sum() < 2:
+        return None
+    val = np.where(region, np.minimum(patch, level - 1), np.maximum(patch, level + 1))
+    val = np.where(ndi.binary_dilation(region, iterations=2), val, level + 1)
+    cs = skm.find_contours(np.pad(val, 1, constant_values=level + 1), level)
+    if not cs:
+        return None
+    cont = max(cs, key=len)[:, ::-1] - 1 + np.array([C0, R0])
+    if np.allclose(cont[0], cont[-1]):
+        cont = cont[:-1]
+    if len(cont) < 4:
+        return None
+    f = polygon_features(cont, px_per_mm=mm)
+    if f["area_mm2"] <= 0:
+        return None
+    gy, gx = np.gradient(patch)
+    rim = region & ~ndi.binary_erosion(region)
+    edge = float(np.mean(np.hypot(gx, gy)[rim])) * mm / max(contrast, 1e-3) if rim.any() else 0.0
+    f.update(
+        contrast=contrast / max(b, 1.0),
+        cnr=contrast / max(b, 1.0) / max(sig, 1e-4),
+        edge_sharpness=edge,
+        ridge_fraction=float((ridge_mask[R0:R1, C0:C1] & seed).sum()) / max(seed.sum(), 1),
+    )
+    return Detection(kind="crack", confidence=0.0, contour=cont, iso6520=ISO6520["crack"], features=f)
+
+
+def _sigmoid(x: float) -> float:
+    return 1.0 / (1.0 + math.exp(-max(min(x, 50.0), -50.0)))
+
+
+def _bend_kind(f: dict) -> tuple[str, str, float]:
+    """Kind, ISO 6520-1 number and confidence of an opening on a stretched bend surface.
+
+    An opening is a crack when it is thin (greatest over least dimension at
+    least 2.6); a rounded, smooth-walled one is an opened pore; an irregular,
+    wider one is slag laid open (common practice).  Confidence grows with
+    the contrast-to-noise ratio and the sharpness of the opening's walls.
     """
-    kind, iso, conf = _classify_dark(f)
-    if kind == "inclusion" and f["aspect"] > 3.0:
-        kind, iso = "crack", ISO6520["crack"]
-    return kind, iso, conf
+    real = _sigmoid((f["cnr"] - 5.0) / 1.5) * _sigmoid((f["edge_sharpness"] - 1.0) / 0.4)
+    if f["aspect"] >= 2.6:
+        shape = _sigmoid((f["aspect"] - 2.6) / 0.8)
+        return "crack", ISO6520["crack"], round(real * (0.6 + 0.4 * shape), 3)
+    if f["solidity"] >= 0.88 and f["roughness"] < 1.12:
+        shape = _sigmoid((f["solidity"] - 0.88) / 0.03)
+        iso = ISO6520["pore"] if f["aspect"] < 1.8 else ISO6520["pore-elongated"]
+        return "pore", iso, round(real * (0.6 + 0.4 * shape), 3)
+    shape = _sigmoid((0.9 - f["solidity"]) / 0.05) * 0.5 + _sigmoid((f["roughness"] - 1.1) / 0.05) * 0.5
+    return "inclusion", ISO6520["inclusion"], round(real * (0.55 + 0.45 * shape), 3)

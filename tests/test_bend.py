@@ -1,0 +1,331 @@
+"""Bend coupons: curvature correction, coupon finding, open discontinuities, bend verdicts.
+
+Checks against the outside world:
+* arc lengths against the exact arc length of a cylinder (analytic geometry:
+  a point at angle theta on a circle of radius R projects to R sin(theta) and
+  lies R theta along the arc) and against SciPy's numerical integration of
+  the same curve;
+* verdicts against the AWS D1.1 4.9.3.3 and ASME IX QW-163 bend limits as
+  quoted in ../shared/REFERENCES.md ("Guided bend test (convex surface)");
+* constructed photos (tests/_bend_construct.py) whose truth is known by
+  construction.
+"""
+
+from __future__ import annotations
+
+import math
+
+import cv2
+import numpy as np
+import pytest
+from scipy import integrate
+
+from surfaces import bend
+from surfaces.face import face_frame
+from surfaces.geometry import apply_h
+from surfaces.limits import judge, load_limit_set
+from surfaces.measure import measure
+from surfaces.model import Calibration, Face, FaceError, Settings, SurfacesError
+from surfaces.segment import Detection
+
+from _bend_construct import Opening, build
+
+
+# --------------------------------------------------------------------------
+# curvature
+
+
+@pytest.mark.parametrize("R", [12.0, 25.0, 55.0])
+def test_arc_length_is_the_cylinder_arc(R):
+    # analytic geometry: u = R sin(theta) on the photo, s = R theta on the surface
+    theta = np.linspace(-1.45, 1.45, 59)
+    s = bend.arc_length_map(R * np.sin(theta), R)
+    np.testing.assert_allclose(s, R * theta, rtol=1e-12, atol=1e-9)
+    # SciPy quad of the profile z = sqrt(R^2 - u^2): ds = sqrt(1 + z'(u)^2) du
+    for u in (0.1 * R, 0.5 * R, 0.8 * R, 0.95 * R):
+        ref, _ = integrate.quad(lambda t: math.sqrt(1 + t * t / (R * R - t * t)), 0.0, u)
+        assert bend.arc_length_map(u, R) == pytest.approx(ref, rel=1e-9)
+
+
+@pytest.mark.parametrize("angle", [90.0, 120.0])
+def test_arc_length_continues_on_the_straight_legs(angle):
+    # analytic geometry: a coupon bent to `angle` = an arc of +-angle/2 and two straight
+    # legs at angle/2 to the plane; path length measured on a finely sampled 3D profile
+    R = 20.0
+    half = math.radians(angle) / 2
+    th = np.linspace(0, half, 20001)
+    arc = np.c_[R * np.sin(th), R * np.cos(th)]
+    leg_t = np.linspace(0, 30.0, 20001)[1:]
+    leg = arc[-1] + np.c_[leg_t * np.cos(half), -leg_t * np.sin(half)]
+    prof = np.r_[arc, leg]
+    s_ref = np.r_[0, np.cumsum(np.hypot(*np.diff(prof, axis=0).T))]
+    for u in (5.0, R * math.sin(half) - 0.01, R * math.sin(half) + 3.0, R * math.sin(half) + 12.0):
+        want = float(np.interp(u, prof[:, 0], s_ref))
+        assert bend.arc_length_map(u, R, bend_angle_deg=angle) == pytest.approx(want, abs=2e-3)
+        assert bend.arc_length_map(-u, R, bend_angle_deg=angle) == pytest.approx(-want, abs=2e-3)
+    # slope never exceeds half the bend angle
+    assert bend.slope_deg(R, R, bend_angle_deg=angle) == pytest.approx(angle / 2)
+
+
+def _length_factor(R=30.0, L=56.0, angle=None):
+    return bend._make_length_factor(R, 0.02, apex_mm=L / 2, length_mm=L, bend_angle_deg=angle, apex_u_mm=2.0)
+
+
+def test_length_factor_corrects_along_and_keeps_across():
+    R, L = 30.0, 56.0
+    lf = _length_factor(R, L)
+    apex = L / 2
+    # a thin opening along the coupon from u = 10 to u = 20 mm past the apex
+    x1, x2 = apex + 10.0, apex + 20.0
+    c = np.array([[x1, 5.0], [x2, 5.0], [x2, 5.05], [x1, 5.05]])
+    t, rel = lf(c)
+    true_len = R * (math.asin(20 / R) - math.asin(10 / R))  # analytic arc length
+    assert t[:, 0].max() - t[:, 0].min() == pytest.approx(true_len, rel=1e-9)
+    assert 0 < rel < 0.2
+    # across the coupon (along the bend axis) nothing is foreshortened
+    c2 = np.array([[apex + 5, 2.0], [apex + 5.05, 2.0], [apex + 5.05, 9.0], [apex + 5, 9.0]])
+    t2, _ = lf(c2)
+    assert t2[:, 1].max() - t2[:, 1].min() == pytest.approx(7.0)
+    # x is measured from the face start: s(0) = 0 and the whole face maps to the true arc
+    assert lf(np.array([[0.0, 0.0]]))[0][0, 0] == pytest.approx(0.0, abs=1e-12)
+    assert lf.true_length_mm == pytest.approx(2 * R * math.asin(apex / R))
+
+
+def test_steep_flank_widens_the_uncertainty():
+    R, L = 30.0, 59.0
+    lf = _length_factor(R, L)
+    apex = L / 2
+    flat = np.array([[apex - 1, 3.0], [apex + 1, 3.0], [apex + 1, 3.1], [apex - 1, 3.1]])
+    steep_u = R * math.sin(math.radians(70))
+    steep = flat + np.array([steep_u, 0.0])
+    _, r_flat = lf(flat)
+    _, r_steep = lf(steep)
+    assert r_steep > 3 * r_flat
+
+
+def _face_and_calib(L=56.0, W=38.0, ppm_photo=10.0):
+    """A face rectified from a fronto-parallel photo at ppm_photo px/mm (plane = photo / ppm)."""
+    ppm = 16.0
+    w, h = int(round(L * ppm)), int(round(W * ppm))
+    A = face_frame((0.0, 0.0), 0.0, (-L / 2, -W / 2), px_per_mm=ppm)
+    H = np.diag([1 / ppm_photo, 1 / ppm_photo, 1.0])  # photo px -> plane mm
+    calib = Calibration(method="marker", H=H, uncertainty_pct=0.3, tilt_deg=0.0, marker_mm=20.0)
+    poly = apply_h(np.linalg.inv(H) @ A, [[-0.5, -0.5], [w - 0.5, -0.5], [w - 0.5, h - 0.5], [-0.5, h - 0.5]])
+    face = Face(np.full((h, w, 3), 160, np.uint8), np.ones((h, w), bool), ppm, A, L, W, L * W, poly, "auto")
+    return face, calib
+
+
+def _det(face, x0, y0, x1, y1, *, kind="crack", width_mm=0.12, cause=""):
+    """A thin opening from (x0, y0) to (x1, y1) face mm, as a detection outline in face px."""
+    p = face.px_per_mm
+    a = np.array([x0, y0]) * p - 0.5
+    b = np.array([x1, y1]) * p - 0.5
+    d = (b - a) / np.linalg.norm(b - a)
+    n = np.array([-d[1], d[0]]) * width_mm * p / 2
+    cont = np.array([a + n, b + n, b - n, a - n])
+    return Detection(kind=kind, confidence=0.95, contour=cont, iso6520="100" if kind == "crack" else "2011", cause=cause)
+
+
+def _verdict(table, face, preset):
+    return judge(table, face={"length_mm": face.length_mm, "width_mm": face.width_mm, "area_mm2": face.area_mm2},
+                 nominal={"thickness_mm": 10.0}, limit_set=load_limit_set(preset), test="bend")
+
+
+def test_curvature_turns_an_accept_into_a_reject():
+    # AWS D1.1 4.9.3.3 (1): no discontinuity over 1/8 in (3 mm) in any direction (REFERENCES.md)
+    R = 25.0
+    face, calib = _face_and_calib(L=2 * R * math.sin(math.radians(75)))
+    apex = face.length_mm / 2
+    # an opening along the coupon on the flank, projected u = -20.0 .. -17.5 mm (2.5 mm)
+    u1, u2 = 17.5, 20.0
+    det = _det(face, apex - u2, 12.0, apex - u1, 12.0)
+    true_len = R * (math.asin(u2 / R) - math.asin(u1 / R))  # analytic: 3.80 mm
+    assert true_len > 3.7
+    flat = measure([det], face, calib, photo_px_per_mm=10.0)
+    assert flat["greatest_mm"].iloc[0] == pytest.approx(2.5, abs=0.13)
+    v_flat = _verdict(flat, face, "aws-d1.1-bend")
+    assert v_flat.result == "accept", v_flat.reasons
+    _, _, lf, notes = bend.detect(face, Settings(test="bend", former_diameter_mm=30.0, nominal={"thickness_mm": 10.0}),
+                                  photo_px_per_mm=10.0)
+    assert lf is not None and any("corrected" in n for n in notes)
+    curved = measure([det], face, calib, photo_px_per_mm=10.0, length_factor=lf)
+    g, gu = curved["greatest_mm"].iloc[0], curved["greatest_u_mm"].iloc[0]
+    assert g == pytest.approx(true_len, abs=0.13)
+    assert g - 2 * gu > 3.0  # surely over the limit
+    v = _verdict(curved, face, "aws-d1.1-bend")
+    assert v.result == "reject", v.reasons
+
+
+def test_without_curvature_lengths_are_said_to_be_projected():
+    face, _ = _face_and_calib()
+    dets, face2, lf, notes = bend.detect(face, Settings(test="bend"), photo_px_per_mm=10.0)
+    assert lf is None
+    assert any("projected" in n and "--former-mm" in n for n in notes)
+    assert dets == []  # a plain grey face has no openings
+    _, _, lf, notes = bend.detect(face, Settings(test="bend", former_diameter_mm=40.0), photo_px_per_mm=10.0)
+    assert lf is None and any("thickness" in n for n in notes)
+
+
+@pytest.mark.parametrize(
+    "kw, word",
+    [
+        ({"former_diameter_mm": -4.0, "nominal": {"thickness_mm": 10.0}}, "--former-mm"),
+        ({"outer_radius_mm": float("nan")}, "--outer-radius-mm"),
+        ({"outer_radius_mm": 20.0, "bend_angle_deg": 270.0}, "--bend-angle"),
+        ({"former_diameter_mm": 40.0, "nominal": {"thickness_mm": 0.0}}, "--thickness-mm"),
+    ],
+)
+def test_bad_curvature_settings_get_a_clear_message(kw, word):
+    face, _ = _face_and_calib()
+    with pytest.raises(SurfacesError, match=word):
+        bend.detect(face, Settings(test="bend", **kw), photo_px_per_mm=10.0)
+
+
+def test_steep_zone_is_named_in_the_notes():
+    face, _ = _face_and_calib(L=58.0)
+    _, _, lf, notes = bend.detect(face, Settings(test="bend", outer_radius_mm=30.0), photo_px_per_mm=10.0)
+    steep = [n for n in notes if "slopes more than 60" in n]
+    assert steep and "26.0 mm" in steep[0]  # R sin 60 = 25.98 mm (analytic)
+    # a 90 degree bend never slopes more than 45 degrees: no steep note
+    _, _, _, notes = bend.detect(face, Settings(test="bend", outer_radius_mm=30.0, bend_angle_deg=90.0), photo_px_per_mm=10.0)
+    assert not [n for n in notes if "slopes more than" in n]
+
+
+# --------------------------------------------------------------------------
+# bend verdicts through the limits engine's presets
+
+
+def test_band_sum_rule_rejects_many_small_openings():
+    # AWS D1.1 4.9.3.3 (2): sum of discontinuities over 1 mm and up to 3 mm at most 3/8 in (10 mm)
+    face, calib = _face_and_calib()
+    dets = [_det(face, 6.0 + 8 * k, 10.0, 6.0 + 8 * k, 12.4) for k in range(5)]  # 5 x 2.4 mm = 12 mm
+    table = measure(dets, face, calib, photo_px_per_mm=10.0)
+    assert (table["greatest_mm"] < 3.0).all()
+    assert _verdict(table, face, "aws-d1.1-bend").result == "reject"
+    # ASME IX QW-163 has no sum rule: the same coupon passes
+    assert _verdict(table, face, "asme-ix-bend").result == "accept"
+    # three of them (7.2 mm) pass D1.1 too
+    table3 = measure(dets[:3], face, calib, photo_px_per_mm=10.0)
+    assert _verdict(table3, face, "aws-d1.1-bend").result == "accept"
+
+
+def test_corner_rule_uses_the_edge_flag_and_the_cause():
+    # AWS D1.1 4.9.3.3 (3): a corner crack up to 1/4 in (6 mm) is not counted unless it comes from slag
+    face, calib = _face_and_calib()
+    corner = _det(face, 20.0, 0.0, 20.3, 4.5)  # 4.5 mm, starting at the y = 0 edge
+    table = measure([corner], face, calib, photo_px_per_mm=10.0)
+    assert bool(table["at_edge"].iloc[0])
+    assert _verdict(table, face, "aws-d1.1-bend").result == "accept"
+    slag = _det(face, 20.0, 0.0, 20.3, 4.5, cause="slag")
+    table_s = measure([slag], face, calib, photo_px_per_mm=10.0)
+    assert _verdict(table_s, face, "aws-d1.1-bend").result == "reject"
+    # the same crack away from the edges is an ordinary discontinuity over 3 mm
+    inner = _det(face, 20.0, 10.0, 20.3, 14.5)
+    table_i = measure([inner], face, calib, photo_px_per_mm=10.0)
+    assert not bool(table_i["at_edge"].iloc[0])
+    assert _verdict(table_i, face, "aws-d1.1-bend").result == "reject"
+
+
+# --------------------------------------------------------------------------
+# finding the coupon on constructed photos
+
+
+def _gray(rgb):
+    return cv2.cvtColor(rgb, cv2.COLOR_RGB2GRAY)
+
+
+@pytest.mark.parametrize(
+    "seed, table, tilt, axis",
+    [(1, "dark", 0.0, 8.0), (2, "bright", 15.0, -20.0), (3, "dark", 25.0, 35.0), (4, "bright", 5.0, 90.0)],
+)
+def test_find_coupon_edges_and_axis(seed, table, tilt, axis):
+    R, W = 28.0, 36.0
+    b = build(seed, R=R, width=W, table=table, tilt_deg=tilt, axis_deg=axis, openings=[])
+    f = bend.find_coupon(b.rgb, _gray(b.rgb), b.calib)
+    # truth by construction: width W between the long edges, length <= 2R (the flanks are dark)
+    assert f.width_mm == pytest.approx(W, abs=0.25)
+    assert 2 * R * 0.85 < f.length_mm < 2 * R + 1.0
+    # x axis of the face along the coupon (either way round)
+    ax = f.A_face_to_plane[:2, 0]
+    ang = math.degrees(math.atan2(ax[1], ax[0]))
+    d = (ang - axis) % 180
+    assert min(d, 180 - d) < 0.7
+    # the face centre is the coupon centre (the origin of the construction)
+    c = apply_h(f.A_face_to_plane, [[f.image.shape[1] / 2 - 0.5, f.image.shape[0] / 2 - 0.5]])[0]
+    across = float(np.dot(c, b.coupon["uy"]))
+    assert abs(across) < 0.2
+    assert f.image.shape[:2] == (round(f.width_mm * 16), round(f.length_mm * 16))
+
+
+def test_find_coupon_without_a_coupon_suggests_roi():
+    b = build(5, openings=[])
+    flat = b.rgb.copy()
+    flat[:] = np.median(b.rgb.reshape(-1, 3), axis=0).astype(np.uint8)
+    with pytest.raises(FaceError, match="--roi"):
+        bend.find_coupon(flat, _gray(flat), b.calib)
+
+
+def test_find_coupon_within_roi():
+    b = build(6, table="bright", openings=[])
+    c = apply_h(b.H_plane_to_photo, [[-35, -25], [35, -25], [35, 25], [-35, 25]])
+    roi = (c[:, 0].min(), c[:, 1].min(), c[:, 0].max(), c[:, 1].max())
+    f = bend.find_coupon(b.rgb, _gray(b.rgb), b.calib, roi=roi)
+    assert f.method == "roi-box"
+    assert f.width_mm == pytest.approx(38.0, abs=0.25)
+
+
+# --------------------------------------------------------------------------
+# open discontinuities on constructed photos
+
+
+def _match(b, face, dets, calib):
+    """Truth index -> detection (centroid within max(1 mm, greatest/2) in the plane)."""
+    out = {}
+    for k, t in enumerate(b.truth):
+        best = None
+        for d in dets:
+            cen = np.array([[d.features["cx_px"] - 0.5, d.features["cy_px"] - 0.5]])
+            pl = apply_h(face.A_face_to_plane, cen)[0]
+            dist = float(np.linalg.norm(pl - t["centroid_plane_mm"]))
+            if dist <= max(1.0, t["greatest_mm"] / 2) and (best is None or dist < best[0]):
+                best = (dist, d)
+        if best:
+            out[k] = best[1]
+    return out
+
+
+def test_openings_found_measured_and_flagged():
+    ops = [
+        Opening("crack", -10.0, 5.0, 4.0, 85.0),
+        Opening("crack", 5.0, 0.0, 2.5, 80.0, at_edge=True),
+        Opening("crack", 12.0, 20.0, 1.2, 95.0),
+        Opening("crack", -4.0, 37.9, 2.0, -95.0, at_edge=True),
+        Opening("pore", -18.0, 28.0, 1.2, 0.0),
+        Opening("crack", 3.0, 30.0, 1.5, 20.0),
+    ]
+    R = 30.0
+    b = build(11, R=R, openings=ops, tilt_deg=10.0)
+    face = bend.find_coupon(b.rgb, _gray(b.rgb), b.calib)
+    st = Settings(test="bend", outer_radius_mm=R)
+    dets, face, lf, notes = bend.detect(face, st, photo_px_per_mm=9.0)
+    m = _match(b, face, dets, b.calib)
+    assert len(m) == len(ops), f"found {sorted(m)} of {len(ops)}"
+    assert len(dets) <= len(ops) + 1  # grinding marks and orange peel are not reported
+    table = measure(dets, face, b.calib, photo_px_per_mm=9.0, length_factor=lf)
+    by_det = {id(d): i for i, d in enumerate(dets)}
+    for k, d in m.items():
+        t = b.truth[k]
+        row = table.iloc[by_det[id(d)]]
+        assert abs(row["greatest_mm"] - t["greatest_mm"]) <= max(0.2, 0.1 * t["greatest_mm"]) + 0.1, (k, row["greatest_mm"], t)
+        assert bool(row["at_edge"]) == t["at_edge"], (k, row["dist_edge_mm"])
+        if t["kind"] == "pore":
+            assert row["kind"] == "pore" and row["cause"] == "pore"
+        else:
+            assert row["kind"] == "crack"
+
+
+def test_grinding_marks_and_edges_are_not_openings():
+    b = build(12, scratches=2.5, peel=1.5, openings=[], table="bright", tilt_deg=18.0)
+    face = bend.find_coupon(b.rgb, _gray(b.rgb), b.calib)
+    dets, *_ = bend.detect(face, Settings(test="bend"), photo_px_per_mm=9.0)
+    assert dets == [], [(d.kind, d.features["greatest_mm"], d.features["cx_mm"], d.features["cy_mm"]) for d in dets]
