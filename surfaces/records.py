@@ -33,7 +33,7 @@ from typing import Any, Iterable
 
 import pandas as pd
 
-from .atomic import write_bytes_atomic
+from .atomic import OutputExistsError, write_bytes_atomic
 from .model import SurfacesError
 from .report import jsonable
 
@@ -216,34 +216,57 @@ class Store:
         return self._con
 
     class _Tx:
-        def __init__(self, con: sqlite3.Connection):
-            self.con = con
+        """``BEGIN IMMEDIATE`` ... ``COMMIT`` (``ROLLBACK`` on any error); SQLite errors become StoreError."""
+
+        def __init__(self, con: sqlite3.Connection, path: Path):
+            self.con, self.path = con, path
 
         def __enter__(self):
-            self.con.execute("BEGIN IMMEDIATE")
+            try:
+                self.con.execute("BEGIN IMMEDIATE")
+            except sqlite3.OperationalError as err:
+                raise StoreError(_sqlite_message(self.path, err)) from err
             return self.con
 
         def __exit__(self, et, ev, tb):
             if et is None:
-                self.con.execute("COMMIT")
-            else:
+                try:
+                    self.con.execute("COMMIT")
+                    return False
+                except sqlite3.Error as err:
+                    ev = err
+            try:
                 self.con.execute("ROLLBACK")
+            except sqlite3.Error:
+                pass
+            if isinstance(ev, sqlite3.Error):
+                raise StoreError(_sqlite_message(self.path, ev)) from ev
             return False
 
     def _tx(self) -> "Store._Tx":
-        return Store._Tx(self._c())
+        return Store._Tx(self._c(), self.path)
+
+    def _read_version(self, con) -> int:
+        has = con.execute("SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = 'schema_version'").fetchone()
+        return int(con.execute("SELECT max(version) FROM schema_version").fetchone()[0] or 0) if has else 0
+
+    def _check_version(self, current: int) -> None:
+        if current > SCHEMA_VERSION:
+            raise StoreError(
+                f"{self.path} was written by a newer surfaces (schema {current}, this one knows "
+                f"{SCHEMA_VERSION}); upgrade surfaces to open it"
+            )
 
     def _migrate(self) -> None:
         con = self._c()
+        current = self._read_version(con)  # a read: no write lock when nothing is to do
+        self._check_version(current)
+        if current == SCHEMA_VERSION:
+            return
         with self._tx():
+            current = self._read_version(con)  # again under the lock: another process may have migrated
+            self._check_version(current)
             con.execute("CREATE TABLE IF NOT EXISTS schema_version (version INTEGER NOT NULL, applied_at TEXT NOT NULL)")
-            row = con.execute("SELECT max(version) FROM schema_version").fetchone()
-            current = row[0] or 0
-            if current > SCHEMA_VERSION:
-                raise StoreError(
-                    f"{self.path} was written by a newer surfaces (schema {current}, this one knows "
-                    f"{SCHEMA_VERSION}); upgrade surfaces to open it"
-                )
             for version in range(current + 1, SCHEMA_VERSION + 1):
                 for stmt in _split_sql(_MIGRATIONS[version]):
                     con.execute(stmt)
@@ -332,7 +355,11 @@ class Store:
         dest.parent.mkdir(parents=True, exist_ok=True)
         # A copy with the wrong content (damaged disk, killed writer on a
         # file system without atomic rename) is replaced by the verified bytes.
-        write_bytes_atomic(dest, data, force=dest.exists())
+        try:
+            write_bytes_atomic(dest, data, force=dest.exists())
+        except OutputExistsError:  # another process stored the same photo just now
+            if sha256_file(dest) != sha:
+                write_bytes_atomic(dest, data, force=True)
         if sha256_file(dest) != sha:
             raise StoreError(f"the photo copy {dest} does not match its SHA-256 after writing; check the disk")
         return rel
@@ -635,6 +662,17 @@ _HISTORY_COLUMNS = [
     "batch", "test", "photo_name", "photo_sha256", "result", "automatic_result", "first_reason",
     "n_imperfections", "reviewer", "reviewed_at",
 ]
+
+
+def _sqlite_message(path: Path, err: sqlite3.Error) -> str:
+    text = str(err)
+    if "locked" in text or "busy" in text:
+        return f"the records database {path} is busy (another program is writing to it); try again when it is done"
+    if "full" in text:
+        return f"the records database {path} cannot grow (disk full); free some space and try again"
+    if "readonly" in text or "read-only" in text:
+        return f"the records database {path} is read-only; choose a --db you can write to"
+    return f"the records database {path} refused the change ({text}); nothing was saved"
 
 
 def _actor(actor: str) -> str:
