@@ -338,3 +338,49 @@ def test_safe_name(raw, safe):
     from ui.helpers import safe_name
 
     assert safe_name(raw) == safe
+
+
+def test_saved_record_reopens_with_its_review(at, photos):
+    upload(at, photos["good"], name="reopen-test.jpg")
+    w = current_work(at)
+    rows = w.auto_base["imperfections"]
+    assert rows, "the pipeline found nothing on the synthetic photo with two pores"
+    rid = int(rows[0]["id"])
+    at.text_input(key="c_id").input("T-0002").run()
+    at.text_input(key="c_welder").input("W-21").run()
+    at.radio(key=f"rv_{w.key}_{rid}_dec").set_value("dismiss").run()
+    at.text_input(key="reviewer").input("B. Checker").run()
+    at.button(key="save").click().run()
+    assert any("Saved as assessment" in s.value for s in at.success)
+    verdict_after = verdict_words(at)
+    at.radio(key="view").set_value("Welder histories").run()
+    assert not at.exception
+    assert at.selectbox(key="hist_welder").value == "W-21"
+    at.button(key="hist_open_btn").click().run()
+    assert not at.exception, at.exception
+    assert at.radio(key="view").value == "Assess a coupon"
+    w2 = current_work(at)
+    assert w2.origin == "record" and w2.saved_id == w.saved_id
+    assert w2.review.edits[rid].decision == "dismiss"  # the review came back from the record
+    assert verdict_words(at) == verdict_after
+
+
+def test_batch_assesses_saves_and_reports_bad_files(at, photos):
+    from surfaces.records import Store
+
+    at.radio(key="view").set_value("Batch of photos").run()
+    at.file_uploader(key="batch_upload").set_value([
+        ("../coupon A1.jpg", photos["good"].read_bytes(), "image/jpeg"),
+        ("broken.jpg", b"not a photo at all", "image/jpeg"),
+    ])
+    at.run()
+    at.text_input(key="b_welder").input("W-30").run()
+    at.button(key="b_run").click().run()
+    assert not at.exception, at.exception
+    df = at.session_state["batch_rows"]
+    by_photo = dict(zip(df["photo"], df["status"]))
+    assert by_photo == {"coupon_A1.jpg": "done", "broken.jpg": "error"}, df  # names sanitised before disk
+    assert "broken.jpg" in " ".join(str(e) for e in df["error"].fillna(""))
+    with Store() as s:
+        h = s.history()
+    assert list(h["coupon_id"]) == ["coupon_A1"] and list(h["welder"]) == ["W-30"]

@@ -80,9 +80,15 @@ def apply_demo(row: dict) -> None:
         ss["marker_mm"] = float(s.marker_mm)
 
 
+@st.cache_resource(show_spinner=False)
+def presets() -> list:
+    """The shipped presets (read once per server; they do not change while it runs)."""
+    return L.list_presets()
+
+
 def limit_sets_for(test: str) -> list:
     """Presets and the user's own sets that apply to ``test``, the default first."""
-    sets = [s for s in L.list_presets() + L.list_user_sets() if s.applies_to(test)]
+    sets = [s for s in presets() + L.list_user_sets() if s.applies_to(test)]
     default = L.default_preset_for(test)
     sets.sort(key=lambda s: (s.name != default, s.kind != "preset", s.name))
     return sets
@@ -186,6 +192,12 @@ def photo_input() -> tuple[bytes, str, str] | None:
     return path.read_bytes(), path.name, "demo"
 
 
+def _num(col, label: str, key: str, *, default: float | None = None, min_value: float = 0.0, **kw):
+    """A number input whose value lives in session state (so a demo photo can fill it without a warning)."""
+    st.session_state.setdefault(key, default)
+    return col.number_input(label, min_value=min_value, key=key, **kw)
+
+
 def coupon_and_settings() -> tuple[dict, Settings, object]:
     """Coupon fields, Settings and the chosen limit set from the widgets."""
     c1, c2, c3, c4 = st.columns(4)
@@ -204,24 +216,21 @@ def coupon_and_settings() -> tuple[dict, Settings, object]:
     pick = c4.selectbox("Limit set", names, format_func=lambda n: labels.get(n, n), key=f"c_limits_{test}")
     limit_set = next(s for s in sets if s.name == pick)
     nominal: dict = {}
-    nominal["thickness_mm"] = c1.number_input("Plate / wall thickness t (mm)", min_value=0.0, value=None,
-                                              step=0.5, key="c_thickness")
+    nominal["thickness_mm"] = _num(c1, "Plate / wall thickness t (mm)", "c_thickness", step=0.5)
     if test == "fillet-break":
-        nominal["throat_mm"] = c2.number_input("Throat a (mm)", min_value=0.0, value=None, step=0.5, key="c_throat")
+        nominal["throat_mm"] = _num(c2, "Throat a (mm)", "c_throat", step=0.5)
     if test == "nick-break":
-        nominal["wall_mm"] = c2.number_input("Pipe wall (mm)", min_value=0.0, value=None, step=0.5, key="c_wall")
+        nominal["wall_mm"] = _num(c2, "Pipe wall (mm)", "c_wall", step=0.5)
     bend_angle = former = None
     if test == "bend":
-        bend_angle = c2.number_input("Bend angle (°)", min_value=0.0, max_value=200.0, value=None, step=5.0,
-                                     key="c_bend_angle")
-        former = c4.number_input("Former diameter (mm)", min_value=0.0, value=None, step=1.0, key="c_former")
-    nominal["length_mm"] = c3.number_input("Length examined (mm, optional)", min_value=0.0, value=None,
-                                           step=5.0, key="c_length")
+        bend_angle = _num(c2, "Bend angle (°)", "c_bend_angle", max_value=200.0, step=5.0)
+        former = _num(c4, "Former diameter (mm)", "c_former", step=1.0)
+    nominal["length_mm"] = _num(c3, "Length examined (mm, optional)", "c_length", step=5.0)
     nominal = {k: float(v) for k, v in nominal.items() if v not in (None, 0, 0.0)}
     with st.expander("Marker size and sensitivity"):
         a1, a2 = st.columns(2)
-        marker_mm = a1.number_input("Printed marker side (mm)", min_value=1.0, max_value=1000.0, value=20.0,
-                                    step=1.0, key="marker_mm",
+        marker_mm = _num(a1, "Printed marker side (mm)", "marker_mm", default=20.0, min_value=1.0,
+                         max_value=1000.0, step=1.0,
                                     help="the black square of the card; the printed card's is 20 mm")
         min_size = a2.number_input("Smallest imperfection reported (mm)", min_value=0.05, max_value=20.0,
                                    value=0.3, step=0.05, key="min_size")
@@ -418,10 +427,9 @@ def _overlay(w, reviewed: dict):
                      default=str)
     cache = w._judged.setdefault("_overlay", {})
     if cache.get("sig") != sig:
-        img = report.render_overlay(w.photo.rgb, reviewed)
-        lay = report.overlay_layout(w.photo.height, w.photo.width)
+        img = report.render_overlay(w.photo.rgb, reviewed, max_side=H.SHOW_PX)
         cache.clear()
-        cache.update(sig=sig, img=img, layout=lay, jpeg=H.encode_jpeg(img))
+        cache.update(sig=sig, jpeg=H.encode_jpeg(H.fit_width(img, max_w=H.SHOW_PX)))
     return cache
 
 
@@ -456,7 +464,7 @@ def pictures_panel(w, auto: dict, reviewed: dict) -> None:
                 zoom = z2.slider("Zoom", 1, 12, 4, key=f"zoom_{w.key}", disabled=pick in opts[:2])
                 if pick == opts[1]:
                     st.image(_overlay(w, reviewed)["jpeg"], caption=f"{w.name}: outlines numbered as in the table",
-                             width="stretch")
+                             width="stretch", output_format="JPEG")
                 else:
                     if pick == opts[0]:
                         poly = np.asarray((auto.get("face") or {}).get("polygon_px") or [[0, 0], [w.photo.width,
@@ -472,23 +480,34 @@ def pictures_panel(w, auto: dict, reviewed: dict) -> None:
                            else H.zoom_box(bbox, (w.photo.width, w.photo.height), zoom=z))
                     view = _zoomed(w, reviewed, box)
                     st.image(view, caption=f"{what}; photo pixels x {box[0]}..{box[2]}, y {box[1]}..{box[3]}",
-                             width="stretch")
+                             width="stretch", output_format="JPEG")
             with tab_face:
-                face = auto.get("face") or {}
                 if w.result is not None:
-                    img = H.face_with_boxes(w.result.face.image, rows, px_per_mm=face.get("px_per_mm", 16),
-                                            length_mm=face.get("length_mm", 1), width_mm=face.get("width_mm", 1),
-                                            styles=report.KIND_STYLES)
-                    st.image(H.encode_jpeg(H.fit_width(img, max_w=2400, min_h=240)),
+                    st.image(_face_picture(w, auto, rows),
                              caption="the face rectified to its own axes (along the weld → right); "
                                      "boxes numbered as in the table, dismissed ones in brackets",
-                             width="stretch")
+                             width="stretch", output_format="JPEG")
                 else:
                     st.info("The rectified face is not kept in the records; run the photo again to see it.")
         st.markdown(f"**Imperfections:** {sum(r.get('status') != 'dismissed' for r in rows)} judged, "
                     f"{sum(r.get('status') == 'dismissed' for r in rows)} dismissed. Sizes in mm on the face "
                     "plane, ± one standard uncertainty; a number with m was added by the inspector.")
         st.dataframe(imperfection_frame(rows), hide_index=True, width="stretch", key=f"table_{w.key}")
+
+
+def _face_picture(w, auto: dict, rows: list[dict]) -> bytes:
+    """JPEG of the rectified face with numbered boxes (drawn again only when the list changes)."""
+    sig = json.dumps([(r.get("id"), r.get("kind"), r.get("status"), r.get("x0_mm"), r.get("x1_mm"))
+                      for r in rows], default=str)
+    cache = w._judged.setdefault("_face", {})
+    if cache.get("sig") != sig:
+        face = auto.get("face") or {}
+        img = H.face_with_boxes(w.result.face.image, rows, px_per_mm=face.get("px_per_mm", 16),
+                                length_mm=face.get("length_mm", 1), width_mm=face.get("width_mm", 1),
+                                styles=report.KIND_STYLES)
+        cache.clear()
+        cache.update(sig=sig, jpeg=H.encode_jpeg(H.fit_width(img, max_w=H.SHOW_PX, min_h=240)))
+    return cache["jpeg"]
 
 
 def _zoomed(w, reviewed: dict, box) -> bytes:
@@ -498,7 +517,7 @@ def _zoomed(w, reviewed: dict, box) -> bytes:
                      default=str)
     cache = w._judged.setdefault("_zoom", {})
     if cache.get("sig") != sig:
-        img = H.zoom_view(w.photo.rgb, reviewed, box, render=report.render_overlay, long_side=1600)
+        img = H.zoom_view(w.photo.rgb, reviewed, box, render=report.render_overlay, long_side=H.SHOW_PX)
         cache.clear()
         cache.update(sig=sig, jpeg=H.encode_jpeg(img))
     return cache["jpeg"]
@@ -698,7 +717,7 @@ def view_limits() -> None:
     st.header("Limit sets")
     st.caption("The acceptance limits the verdict is judged against. Presets come with the tool; copy one, "
                "edit it and save it as your own. Check every value against the edition of the code in force.")
-    sets = L.list_presets() + L.list_user_sets()
+    sets = presets() + L.list_user_sets()
     names = [s.name for s in sets]
     pick = st.selectbox("Limit set", names, key="ls_pick",
                         format_func=lambda n: next(f"{s.title or s.name} ({s.name}, {s.kind})"
@@ -875,7 +894,7 @@ def run_uploaded_batch(ups, *, test: str, limits: str, batch: str, common: dict)
 
     with tempfile.TemporaryDirectory(prefix="surfaces-batch-") as tmp:
         folder = Path(tmp)
-        used, refused = set(), []
+        used, names, refused = set(), [], []
         for up in ups:
             name = H.safe_name(up.name)
             stem_, suffix = Path(name).stem, Path(name).suffix
@@ -890,14 +909,15 @@ def run_uploaded_batch(ups, *, test: str, limits: str, batch: str, common: dict)
                 refused.append({"photo": name, "status": "error", "error": str(err)})
                 continue
             used.add(name.lower())
+            names.append(name)
             (folder / name).write_bytes(data)
         with open(folder / "manifest.csv", "w", newline="", encoding="utf-8") as fh:
             wr = csv.DictWriter(fh, fieldnames=list(MANIFEST_COLUMNS))
             wr.writeheader()
-            for name in sorted(used):
+            for name in names:
                 wr.writerow({"photo": name, "coupon_id": H.stem(name),
                              **{k: v for k, v in common.items() if k in MANIFEST_COLUMNS and v}})
-        bar = st.progress(0.0, text=f"0 of {len(used)} photos")
+        bar = st.progress(0.0, text=f"0 of {len(names)} photos")
 
         def say(done: int, total: int, row: dict) -> None:
             bar.progress(min(done / max(total, 1), 1.0), text=f"{done} of {total}: {row.get('photo', '')}")
@@ -905,7 +925,7 @@ def run_uploaded_batch(ups, *, test: str, limits: str, batch: str, common: dict)
         df = run_batch(folder, settings=Settings(test=test, limits=limits), db=S.db_path(),
                        manifest=folder / "manifest.csv", workers=max(1, min(2, os.cpu_count() or 1)),
                        progress=say, batch=batch or None, actor="page batch")
-        bar.progress(1.0, text=f"done: {len(used)} photo(s)")
+        bar.progress(1.0, text=f"done: {len(names)} photo(s)")
     if refused:
         df = pd.concat([df, pd.DataFrame(refused)], ignore_index=True)
     return df
@@ -973,6 +993,10 @@ def sidebar() -> str:
 
 
 def main() -> None:
+    import os
+    import time
+
+    t0 = time.perf_counter()
     st.set_page_config(page_title="surfaces · weld test faces", page_icon=":material/straighten:", layout="wide")
     view = sidebar()
     show_flashes("page")
@@ -984,6 +1008,8 @@ def main() -> None:
         log.exception("page error")
         st.error(f":material/error: Something went wrong on the page ({err.__class__.__name__}: {err}). "
                  "Your earlier work in this session is kept; please report this with the photo.")
+    if os.environ.get("SURFACES_UI_TIMING"):  # used by ui/bench_review.py
+        st.session_state.setdefault("_run_s", []).append(time.perf_counter() - t0)
 
 
 main()

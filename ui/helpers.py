@@ -20,6 +20,9 @@ from surfaces.model import PhotoError, SurfacesError
 #: Largest upload the page accepts, MB (the CLI starts the server with the same cap).
 MAX_UPLOAD_MB: int = 60
 PHOTO_TYPES: tuple[str, ...] = ("jpg", "jpeg", "png", "tif", "tiff")
+#: Widest picture sent to the browser: Streamlit scales anything wider down itself
+#: (``MAXIMUM_CONTENT_WIDTH`` = 1460 px in 1.67), which costs a decode and re-encode per rerun.
+SHOW_PX: int = 1460
 
 #: Verdict words and icons (Material Symbols shipped with Streamlit) and a
 #: colour name from Streamlit's Markdown palette; the word and the icon shape
