@@ -290,21 +290,26 @@ class FractureBuilder:
             bead = g.params["bead_mm"]
             # weld bead on the toe side: rippled, convex, heat-tinted at its edges
             yc = W + bead / 2 if root0 else -bead / 2
-            v = (Y - np.float32(yc)) / np.float32(bead / 2)
-            endfall = np.clip(np.minimum(X + 1.0, L + 1.0 - X) / max(bead / 2, 0.5), 0, 1)
+            # work only on the rows the bead and its heat tint reach
+            r0 = max(0, int((yc - bead / 2 - 8.0 - lo[1]) * r))
+            r1 = min(h, int(math.ceil((yc + bead / 2 + 8.0 - lo[1]) * r)) + 1)
+            hs = (r1 - r0, w)
+            Xb, Yb = X[r0:r1], Y[r0:r1]
+            v = (Yb - np.float32(yc)) / np.float32(bead / 2)
+            endfall = np.clip(np.minimum(Xb + 1.0, L + 1.0 - Xb) / max(bead / 2, 0.5), 0, 1)
             inb = np.clip((1 - v * v) * endfall, 0, 1)
             prof = np.sqrt(inb)
             pitch = rng.uniform(0.7, 2.0)
-            phase = _noise.value(rng, (h, w), 6 * r) * np.float32(0.6)
-            ripple = np.sin((X - np.float32(rng.uniform(0.5, 2.0)) * v * v * bead / 2) * np.float32(2 * math.pi / pitch) + phase)
+            phase = _noise.value(rng, hs, 6 * r) * np.float32(0.6)
+            ripple = np.sin((Xb - np.float32(rng.uniform(0.5, 2.0)) * v * v * bead / 2) * np.float32(2 * math.pi / pitch) + phase)
             ripple *= np.float32(rng.uniform(0.2, 0.6))
             hgt = prof * np.float32(0.4 * bead * r) + ripple * np.float32(0.02 * r) * prof
             shade = _noise.shade(hgt.astype(np.float32), ctx.light.azimuth_deg, strength=0.5)
-            bead_lum = 0.55 + 0.06 * ripple * prof + shade + 0.06 * _noise.fractal(rng, (h, w), 2.0 * r)
+            bead_lum = 0.55 + 0.06 * ripple * prof + shade + 0.06 * _noise.fractal(rng, hs, 2.0 * r)
             bead_col = np.array(rng.choice([[0.42, 0.42, 0.45], [0.36, 0.34, 0.33], [0.48, 0.46, 0.42]]), np.float32)
             bead_rgb = bead_lum[..., None] * bead_col
             # glassy silicate islands on the bead
-            isl = _noise.blotches(rng, (h, w), 1.5 * r, rng.uniform(0.0, 0.04), edge=0.5) * (prof > 0.3)
+            isl = _noise.blotches(rng, hs, 1.5 * r, rng.uniform(0.0, 0.04), edge=0.5) * (prof > 0.3)
             bead_rgb = bead_rgb * (1 - isl[..., None]) + isl[..., None] * np.array([0.22, 0.17, 0.11], np.float32)
             a_b = np.clip(inb * 4, 0, 1)[..., None]
             # heat tint on the plate beside the bead
@@ -312,12 +317,16 @@ class FractureBuilder:
             tint_w = rng.uniform(0.0, 1.0)
             band = np.exp(-np.clip(dist, 0, None) * bead / max(2.0, 4 * tint_w)) * (dist > 0) * endfall
             tcol = np.array(TINTS[str(rng.choice(["straw", "blue", "brown", "purple"]))], np.float32)
-            rgb = rgb * (1 - 0.35 * tint_w * band[..., None]) + 0.35 * tint_w * band[..., None] * tcol * rgb.mean()
-            rgb = rgb * (1 - a_b) + bead_rgb * a_b
+            sub = rgb[r0:r1]
+            sub = sub * (1 - 0.35 * tint_w * band[..., None]) + 0.35 * tint_w * band[..., None] * tcol * sub.mean()
+            rgb[r0:r1] = sub * (1 - a_b) + bead_rgb * a_b
             # the root line: the gap the web plate left
             y_r = 0.0 if root0 else W
-            line = np.exp(-(((Y - np.float32(y_r)) / np.float32(rng.uniform(0.15, 0.4))) ** 2)) * ((X > -1) & (X < L + 1))
-            rgb *= (1 - 0.6 * line)[..., None]
+            q0 = max(0, int((y_r - 2.0 - lo[1]) * r))
+            q1 = min(h, int(math.ceil((y_r + 2.0 - lo[1]) * r)) + 1)
+            Xq, Yq = X[q0:q1], Y[q0:q1]
+            line = np.exp(-(((Yq - np.float32(y_r)) / np.float32(rng.uniform(0.15, 0.4))) ** 2)) * ((Xq > -1) & (Xq < L + 1))
+            rgb[q0:q1] *= (1 - 0.6 * line)[..., None]
             # spatter on the plate
             for _ in range(int(rng.integers(0, 25))):
                 sx = rng.uniform(lo[0], hi[0])

@@ -114,6 +114,8 @@ class Look:
     shot: float = 0.0  # shot-noise factor
     gamma: float = 1.0
     jpeg_quality: int | None = 85
+    # shallow depth of field: extra blur growing away from a focus line
+    dof: tuple[float, float, float, float] | None = None  # focus x, y, direction deg, extra sigma px at the far edge
 
     def to_dict(self) -> dict:
         return {
@@ -127,12 +129,14 @@ class Look:
             "shot": self.shot,
             "gamma": self.gamma,
             "jpeg_quality": self.jpeg_quality,
+            "dof": None if self.dof is None else list(self.dof),
         }
 
 
 def random_look(rng: np.random.Generator, width: int, height: int, *, clean: bool, glare_xy=None) -> Look:
     if clean:
         return Look(jpeg_quality=None)
+    fx, fy = glare_xy if glare_xy is not None else (width / 2, height / 2)
     cast = rng.choice(["neutral", "warm", "cool", "green", "magenta"], p=[0.35, 0.25, 0.2, 0.1, 0.1])
     base = {
         "neutral": (1.0, 1.0, 1.0),
@@ -162,6 +166,11 @@ def random_look(rng: np.random.Generator, width: int, height: int, *, clean: boo
         shot=float(rng.uniform(0.0, 0.02)),
         gamma=float(rng.uniform(0.85, 1.15)),
         jpeg_quality=int(rng.integers(70, 96)),
+        dof=(
+            (float(fx), float(fy), float(rng.uniform(0, 180)), float(rng.uniform(0.8, 2.5)))
+            if rng.random() < 0.3
+            else None
+        ),
     )
 
 
@@ -198,6 +207,15 @@ def apply_look(rng: np.random.Generator, img: np.ndarray, look: Look) -> np.ndar
             sub += (1.1 * g)[..., None]
     if look.blur_px > 0.25:
         img = cv2.GaussianBlur(img, (0, 0), look.blur_px)
+    if look.dof is not None:
+        fx, fy, ang, extra = look.dof
+        c, sn = math.cos(math.radians(ang)), math.sin(math.radians(ang))
+        far = np.abs((xx + 0.5) * W / sw * c + (yy + 0.5) * H / sh * sn - (fx * c + fy * sn)) / max(W, H)
+        wgt = cv2.resize(np.clip(far * 2.0, 0, 1).astype(np.float32), (W, H), interpolation=cv2.INTER_LINEAR)
+        soft = cv2.GaussianBlur(img, (0, 0), extra)
+        soft -= img
+        soft *= wgt[..., None]
+        img += soft
     np.clip(img, 0.0, 2.0, out=img)
     if look.noise > 0 or look.shot > 0:
         # luma noise at full resolution plus weaker, coarser colour noise

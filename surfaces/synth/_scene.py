@@ -258,7 +258,7 @@ def render_scene(
         card_poly = apply_h(T_card, _rect(0, 0, *card_size))
         must = np.r_[geo.face_poly, card_poly]
         ext = np.ptp(must, axis=0)
-        fit_ppm = 0.82 * min(long_px / max(ext), short_px / max(min(ext), 1.0)) / (1 + 0.6 * math.sin(math.radians(tilt_deg)))
+        fit_ppm = 0.85 * min(long_px / max(ext), short_px / max(min(ext), 1.0)) / (1 + 0.45 * math.sin(math.radians(tilt_deg)))
         if fit_ppm >= ppm_want or (last_len is not None and abs(geo.length_mm - last_len) < 1e-9):
             break
         last_len = geo.length_mm
@@ -272,7 +272,7 @@ def render_scene(
         ppm_goal = float(px_per_mm)
     else:
         # an inspector fills much of the frame: between half and nearly all of what fits
-        ppm_goal = float(np.clip(fit_ppm * rs["camera"].uniform(0.6, 0.97), 8.0, 25.0))
+        ppm_goal = float(np.clip(fit_ppm * rs["camera"].uniform(0.72, 1.0), 8.0, 25.0))
         ppm_goal = min(ppm_goal, fit_ppm)
 
     card = make_card(rs["card"], marker_mm=marker_mm, ids=ids, ruler=ruler, px_per_mm=1.6 * ppm_goal)
