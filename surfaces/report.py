@@ -508,7 +508,7 @@ def render_overlay(photo_rgb: np.ndarray, assessment: dict, *, max_side: int = 2
     # Draw dismissed first so live detections sit on top.
     order = sorted(range(len(rows)), key=lambda i: str(rows[i].get("status")) != "dismissed")
     text_h = cv2.getTextSize("0", cv2.FONT_HERSHEY_SIMPLEX, fs, tthick)[0][1]
-    msize = max(3, round(text_h * 0.45))
+    msize = max(3, round(text_h * 0.38))
     for i in order:
         r = rows[i]
         style, dismissed = _style_for(r)
@@ -526,7 +526,11 @@ def render_overlay(photo_rgb: np.ndarray, assessment: dict, *, max_side: int = 2
             mx = float(v[:, 0].min()) - lab_w - 3 * msize - lw * 4
         my = max(y_top, text_h + 2.0)
         my = min(my, lay.photo_h - 2.0)
-        _marker(view, (mx, my - text_h / 2), msize, style.marker, style.rgb, max(1, lw - 1 if lw > 2 else lw))
+        mc = np.array([mx, my - text_h / 2])
+        near = v[int(np.argmin(np.hypot(*(v - mc).T)))]
+        if np.hypot(*(near - mc)) > msize * 1.5:  # leader line: which outline this label names
+            _polyline(view, np.array([mc, near]), style.rgb, max(1, lw // 2), None, closed=False)
+        _marker(view, tuple(mc), msize, style.marker, style.rgb, max(1, lw - 1 if lw > 2 else lw))
         _text(view, label, (mx + msize + lw * 2, my), fs, style.rgb if not dismissed else _GREY, thick=tthick)
 
     # Banner: verdict in words plus the first reason.
