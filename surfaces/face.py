@@ -178,11 +178,17 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
             (cx, cy), (rw, rh), ang = cv2.minAreaRect(pts)
             L, Wd = max(rw, rh) / s, max(min(rw, rh), 1) / s
             fill = area_mm2 / max(L * Wd, 1e-6)
-            # texture contrast of the region against the search area's typical level
+            # the fracture face is the most (isotropically) textured, compact region:
+            # rank by its typical texture level, filled rectangles first
             contrast = float(np.median(e[ys, xs])) / max(out_level, 1e-6)
-            score = math.sqrt(area_mm2) * min(fill, 1.0) ** 2 * min(contrast, 8.0)
+            if L < 8.0:
+                continue
+            score = float(np.median(e[ys, xs])) * min(fill, 1.0) ** 2 * area_mm2**0.1
             if score > best_score:
                 best_score, best = score, (pts, fill, contrast)
+                best_lab = (lab, n, i, float(np.median(e[ys, xs])))
+    if best is not None:
+        best = _merge_collinear(best, best_lab, e)
     if best is None:
         raise FaceError(
             "could not find the face automatically: give --roi X0,Y0,X1,Y1 (a rough box around the face in photo pixels)"
@@ -194,6 +200,42 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
         rw, rh = rh, rw
     centre = lo + (np.array([cx, cy]) + 0.5) / s
     return centre, float(ang), rw / s, rh / s, float(min(fill, 1.0)), where
+
+
+def _merge_collinear(best, best_lab, e):
+    """Join pieces of the same face split by a smooth (unfused) stretch or a defect.
+
+    Components lying on the chosen one's axis, within its width, with a
+    similar texture level, are added before the outline is fitted.
+    """
+    pts, fill, contrast = best
+    lab, n, i0, level = best_lab
+    (cx, cy), (rw, rh), ang = cv2.minAreaRect(pts)
+    if rw < rh:
+        ang += 90.0
+        rw, rh = rh, rw
+    a = math.radians(ang)
+    ux, uy = math.cos(a), math.sin(a)
+    keep = [pts]
+    for j in range(1, n):
+        if j == i0:
+            continue
+        ys, xs = np.nonzero(lab == j)
+        if len(xs) < 4:
+            continue
+        if float(np.median(e[ys, xs])) < 0.4 * level:
+            continue
+        across = np.abs(-(xs - cx) * uy + (ys - cy) * ux)
+        along = (xs - cx) * ux + (ys - cy) * uy
+        gap_ok = np.min(np.abs(along)) < 0.5 * rw + max(rw, 40.0 * COARSE_PX_PER_MM)
+        if np.mean(across <= 0.6 * rh + 2) > 0.8 and gap_ok:
+            keep.append(np.c_[xs, ys].astype(np.float32))
+    if len(keep) == 1:
+        return best
+    allp = np.concatenate(keep)
+    (cx2, cy2), (rw2, rh2), _ = cv2.minAreaRect(allp)
+    fill2 = len(allp) / max(rw2 * rh2, 1.0)
+    return allp, min(fill2, 1.0), contrast
 
 
 def _coherence(gray: np.ndarray, *, sigma_px: float) -> np.ndarray:
@@ -265,6 +307,36 @@ def _edge_from_profile(profile: np.ndarray, inside: slice, outside_lo: slice, ou
     hi_edge = cross(lvl_h, range(c, len(p)))
     contrast = min(inner - out_l, inner - out_h) / max(inner, 1e-6)
     return lo_edge, hi_edge, contrast
+
+
+def _ends_from_profile(profile: np.ndarray, inside: slice, outside_lo: slice, outside_hi: slice, *, persist: int):
+    """Face ends along the weld, found walking inwards from each outer margin.
+
+    The face may lose its texture in the middle (glare, a long unfused
+    stretch), so the inside level is an upper quantile of the central part and
+    each end is the outermost place where the profile rises above half-way
+    and stays there for ``persist`` samples.
+    """
+    p = np.asarray(profile, dtype=np.float64)
+    inner = float(np.percentile(p[inside], 75))
+    out_l = float(np.median(p[outside_lo])) if p[outside_lo].size else inner * 0.3
+    out_h = float(np.median(p[outside_hi])) if p[outside_hi].size else inner * 0.3
+
+    def first_up(level, idx):
+        for k in range(1, len(idx)):
+            a, b = idx[k - 1], idx[k]
+            if p[a] < level <= p[b]:
+                after = [p[j] for j in idx[k : k + persist]]
+                if len(after) >= persist and min(after) >= level:
+                    return a + (level - p[a]) / (p[b] - p[a]) * (b - a)
+        return None
+
+    lo = first_up(0.5 * (inner + out_l), list(range(0, len(p))))
+    hi = first_up(0.5 * (inner + out_h), list(range(len(p) - 1, -1, -1)))
+    contrast = min(inner - out_l, inner - out_h) / max(inner, 1e-6)
+    if lo is not None and hi is not None and hi - lo < persist:
+        return None, None, contrast
+    return lo, hi, contrast
 
 
 def _snap_to_step(profile: np.ndarray, pos: float, *, win: int) -> float:
@@ -357,7 +429,7 @@ def find_face(
     prof_x = np.median(e[band, :], axis=0)
     inside_x = slice(int(w / 2 - L * px_per_mm * 0.25), int(w / 2 + L * px_per_mm * 0.25) + 1)
     mcol = int(margin_x * px_per_mm * 0.6)
-    x_lo, x_hi, c_x = _edge_from_profile(
+    x_lo, x_hi, c_x = _ends_from_profile(
         prof_x, inside_x, slice(0, mcol), slice(w - mcol, w), persist=int(2.0 * px_per_mm)
     )
     if x_lo is None or x_hi is None:

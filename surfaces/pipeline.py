@@ -83,8 +83,22 @@ def assess(photo: Photo, settings: Settings, *, progress: Callable[[str, float],
     if settings.test == "bend":
         dets, face, length_factor, bend_notes = bend.detect(face, settings, photo_px_per_mm=ppm_photo)
     else:
-        dets = segment(face.image, face.mask, px_per_mm=face.px_per_mm, min_size_mm=settings.min_size_mm, test=settings.test)
+        dets = segment(
+            face.image,
+            face.mask,
+            px_per_mm=face.px_per_mm,
+            photo_px_per_mm=ppm_photo,
+            min_size_mm=settings.min_size_mm,
+            test=settings.test,
+        )
         bend_notes = []
+    from .segment import RESOLVE_PX
+
+    if settings.min_size_mm * ppm_photo < RESOLVE_PX:
+        bend_notes.append(
+            f"at {ppm_photo:.1f} px/mm the photo resolves imperfections down to about {RESOLVE_PX / ppm_photo:.2f} mm, "
+            f"coarser than the {settings.min_size_mm:g} mm asked for: retake closer to see smaller ones"
+        )
     t["segment_s"] = time.perf_counter() - t2
     say("measuring", 0.8)
     t3 = time.perf_counter()

@@ -1,24 +1,33 @@
 """Find and classify imperfections on a rectified face.
 
 Input is the face image in its own metric axes (column = x along the weld)
-at ``px_per_mm``; every parameter below is in millimetres and converted once.
+at ``px_per_mm``; every parameter below is in millimetres (or in pixels of
+the *original photo*, which set what the photo can resolve) and converted
+once.
 
-Three detectors feed one list of candidates:
+Two steps:
 
-* **dark regions** (pores, slag inclusions): darkness against a robust local
-  background (a median over ``BACKGROUND_MM``), hysteresis thresholds scaled by
-  the face's own texture noise, then each region's outline re-traced at
-  half-contrast between its local background and its core, so sizes do not
-  depend on how dark the region is;
-* **thin dark lines** (cracks): a multi-scale ridge filter (Sato, from
-  scikit-image) for openings narrower than the smoothing scale;
-* **smooth regions** (unfused: lack of fusion, incomplete root penetration):
-  texture energy far below the face's granular fracture texture, often tinted.
+1. **Candidates**, generous on purpose, from three cues:
 
-Each candidate gets a kind from its shape and appearance and an honest
-confidence from its contrast-to-noise ratio, edge sharpness and how typical
-its shape is for that kind.  Nothing under ``min_size_mm`` (greatest
-dimension) is reported, and nothing under ``SPECK_MM`` is ever considered.
+   * *dark regions* (pores, slag): brightness relative to a robust local
+     background (a median over ``BACKGROUND_MM``), smoothed at the photo's
+     own resolving scale, with hysteresis thresholds; each region's outline
+     is then re-traced at half contrast between its surrounding ring and its
+     core, so its size does not depend on how dark it is;
+   * *thin dark lines* (cracks): a multi-scale ridge filter (Sato, from
+     scikit-image) at widths of one to three photo pixels;
+   * *smooth or tinted regions* (unfused: lack of fusion, incomplete root
+     penetration): fracture texture energy far below the face's own, or a
+     colour far from the face's.
+
+2. **Decision**: every candidate is described by generic region features
+   (size, shape, contrast to its ring, edge steepness, inner texture, colour,
+   ridge fraction, contact with the face edge) and scored by a small
+   multinomial logistic model (:mod:`surfaces.regionmodel`) whose weights are
+   fitted on synthetic faces by ``scripts/fit_region_model.py``.  The model's
+   probability is the detection's confidence.  Nothing under ``min_size_mm``
+   is reported, and nothing the photo cannot resolve (under
+   ``RESOLVE_PX`` photo pixels) is claimed.
 """
 
 from __future__ import annotations
@@ -30,22 +39,21 @@ import cv2
 import numpy as np
 from scipy import ndimage as ndi
 from skimage import measure as skm
-from skimage.filters import apply_hysteresis_threshold, sato
 
 from .shapes import polygon_features
 
-BACKGROUND_MM = 8.0  # window of the local background median
-SMOOTH_MM = 0.06  # noise smoothing before thresholds
+BACKGROUND_MM = 6.0  # window of the local background median
 SPECK_MM = 0.2  # below this a dark spot is fracture grain, not an imperfection
-TEXTURE_HP_MM = 0.1
-TEXTURE_WIN_MM = 0.3
+RESOLVE_PX = 4.0  # smallest feature (photo pixels across) a detection may be
+EDGE_MM = 0.5
 
 ISO6520 = {"pore": "2011", "pore-elongated": "2015", "inclusion": "301", "unfused": "401", "unfused-root": "4021", "crack": "100"}
+KIND_ORDER = ("none", "pore", "inclusion", "unfused", "crack")
 
 
 @dataclass
 class Detection:
-    """One candidate imperfection in face-image pixels (col, row)."""
+    """One imperfection (or candidate) in face-image pixels (col, row)."""
 
     kind: str
     confidence: float
@@ -53,6 +61,7 @@ class Detection:
     iso6520: str
     features: dict = field(default_factory=dict)
     cause: str = ""
+    probs: dict = field(default_factory=dict)
 
 
 def _gray(rgb: np.ndarray) -> np.ndarray:
@@ -68,7 +77,7 @@ def _robust_sigma(x: np.ndarray) -> float:
 
 
 def background(gray: np.ndarray, *, px_per_mm: float, window_mm: float = BACKGROUND_MM) -> np.ndarray:
-    """Robust local background: median over ``window_mm`` on a 4x reduced copy."""
+    """Robust local background: median over ``window_mm`` on a reduced copy (4 px/mm)."""
     f = min(1.0, 4.0 / px_per_mm)
     small = cv2.resize(gray, None, fx=f, fy=f, interpolation=cv2.INTER_AREA) if f < 1 else gray
     k = int(round(window_mm * px_per_mm * f)) | 1
@@ -78,10 +87,80 @@ def background(gray: np.ndarray, *, px_per_mm: float, window_mm: float = BACKGRO
     return cv2.resize(med, (gray.shape[1], gray.shape[0]), interpolation=cv2.INTER_LINEAR)
 
 
-def texture_energy(gray: np.ndarray, *, px_per_mm: float) -> np.ndarray:
+def texture_energy(gray: np.ndarray, *, px_per_mm: float, scale_mm: float = 0.1) -> np.ndarray:
+    """Local RMS of detail finer than ``scale_mm`` (the fracture grain)."""
     g = gray.astype(np.float32)
-    hp = g - cv2.GaussianBlur(g, (0, 0), max(TEXTURE_HP_MM * px_per_mm, 0.7))
-    return np.sqrt(cv2.GaussianBlur(hp * hp, (0, 0), TEXTURE_WIN_MM * px_per_mm))
+    hp = g - cv2.GaussianBlur(g, (0, 0), max(scale_mm * px_per_mm, 0.7))
+    return np.sqrt(cv2.GaussianBlur(hp * hp, (0, 0), max(2.5 * scale_mm * px_per_mm, 1.0)))
+
+
+def hysteresis(values: np.ndarray, low: float, high: float) -> np.ndarray:
+    """Pixels above ``low`` connected (8-neighbour) to a pixel above ``high``."""
+    lowm = values > low
+    n, lab = cv2.connectedComponents(lowm.astype(np.uint8), connectivity=8)
+    keep = np.zeros(n, bool)
+    keep[np.unique(lab[values > high])] = True
+    keep[0] = False
+    return keep[lab]
+
+
+def dark_ridges(gray: np.ndarray, *, sigmas) -> np.ndarray:
+    """Multi-scale dark-line strength from the Hessian (scale-normalised).
+
+    At each scale the larger Hessian eigenvalue (positive across a dark line)
+    times sigma^2, kept where the other eigenvalue is small compared to it
+    (a line, not a blob); the maximum over scales.  Same idea as the Sato
+    tubeness filter, computed with OpenCV for speed.
+    """
+    g = gray.astype(np.float32)
+    out = np.zeros_like(g)
+    for s in sigmas:
+        b = cv2.GaussianBlur(g, (0, 0), float(s))
+        dxx = cv2.Sobel(b, cv2.CV_32F, 2, 0, ksize=3)
+        dyy = cv2.Sobel(b, cv2.CV_32F, 0, 2, ksize=3)
+        dxy = cv2.Sobel(b, cv2.CV_32F, 1, 1, ksize=3)
+        tmp = np.sqrt((dxx - dyy) ** 2 + 4 * dxy**2)
+        l1 = 0.5 * (dxx + dyy + tmp)  # larger eigenvalue
+        l2 = 0.5 * (dxx + dyy - tmp)
+        line = np.clip(l1, 0, None) * np.exp(-((l2 / (np.abs(l1) + 1e-6)) ** 2) * 2.0) * (l2 < 0.5 * l1)
+        out = np.maximum(out, line * np.float32(s * s) / 255.0)
+    return out
+
+
+@dataclass
+class _Maps:
+    g: np.ndarray
+    gs: np.ndarray
+    bg: np.ndarray
+    rel: np.ndarray
+    tex: np.ndarray
+    tex_med: float
+    lab: np.ndarray
+    lab_med: np.ndarray
+    ridge: np.ndarray
+    ridge_sig: float
+    grad: np.ndarray
+    mask: np.ndarray
+    mm: float
+    photo_mm: float  # photo px/mm
+
+
+def _maps(rgb, mask, mm, photo_mm) -> _Maps:
+    g = _gray(rgb)
+    resolve = 1.0 / photo_mm  # one photo pixel, in mm
+    gs = cv2.GaussianBlur(g, (0, 0), max(0.05, 0.7 * resolve) * mm)
+    bg = background(g, px_per_mm=mm)
+    rel = gs / np.maximum(bg, 1.0)
+    tex = texture_energy(g, px_per_mm=mm, scale_mm=max(0.08, 1.2 * resolve))
+    tex_med = float(np.median(tex[mask])) or 1.0
+    lab = cv2.cvtColor(rgb, cv2.COLOR_RGB2Lab).astype(np.float32)
+    lab = cv2.GaussianBlur(lab, (0, 0), max(0.08, resolve) * mm)
+    lab_med = np.median(lab[mask], axis=0)
+    sig = [max(s * mm, 0.7) for s in (0.6 * resolve, 1.2 * resolve, 2.0 * resolve)]
+    ridge = dark_ridges(g, sigmas=sorted(set(round(s, 2) for s in sig)))
+    ridge_sig = _robust_sigma(ridge[mask]) + 1e-6
+    gy, gx = np.gradient(gs)
+    return _Maps(g, gs, bg, rel, tex, tex_med, lab, lab_med, ridge, ridge_sig, np.hypot(gx, gy), mask, mm, photo_mm)
 
 
 def segment(
@@ -89,11 +168,12 @@ def segment(
     mask: np.ndarray | None = None,
     *,
     px_per_mm: float,
+    photo_px_per_mm: float | None = None,
     min_size_mm: float = 0.3,
     test: str = "fillet-break",
-    sensitivity: float = 1.0,
+    keep_all: bool = False,
 ) -> list[Detection]:
-    """Candidate imperfections on a rectified face.
+    """Imperfections on a rectified face.
 
     Parameters
     ----------
@@ -103,202 +183,256 @@ def segment(
         True on the face; everything else is ignored.
     px_per_mm : float
         Resolution of ``rgb``.
+    photo_px_per_mm : float, optional
+        Resolution of the original photo at the face (sets the smoothing
+        scales and the smallest resolvable size); default ``px_per_mm``.
     min_size_mm : float
         Smallest greatest dimension reported (the sensitivity in mm).
     test : str
-        ``fillet-break``, ``nick-break`` or ``bend``; bend faces report open
-        discontinuities (see :mod:`surfaces.bend`).
-    sensitivity : float
-        Multiplies the detection thresholds (lower finds fainter regions).
+        ``fillet-break`` or ``nick-break`` (bend faces: :mod:`surfaces.bend`).
+    keep_all : bool
+        Return every candidate, including those judged ``none`` (for
+        fitting and inspecting the region model).
 
     Returns
     -------
-    list of Detection, outlines in face pixels (col, row).
+    list of Detection, outlines in face pixels (col, row), sorted along x.
     """
-    if px_per_mm <= 0 or not math.isfinite(px_per_mm):
+    from .regionmodel import MODEL_PATH, classify
+
+    if not (px_per_mm > 0 and math.isfinite(px_per_mm)):
         raise ValueError(f"px_per_mm must be a positive number, got {px_per_mm!r}")
     h, w = rgb.shape[:2]
     if mask is None:
         mask = np.ones((h, w), bool)
-    mm = px_per_mm
-    g = _gray(rgb)
-    gs = cv2.GaussianBlur(g, (0, 0), SMOOTH_MM * mm)
-    bg = background(g, px_per_mm=mm)
-    resid = bg - gs  # positive = darker than the surroundings
-    sig = _robust_sigma(resid[mask])
-    bgm = float(np.median(bg[mask]))
-    hi = sensitivity * max(4.5 * sig, 0.16 * bgm)
-    lo = sensitivity * max(2.5 * sig, 0.08 * bgm)
-    dark = apply_hysteresis_threshold(np.where(mask, resid, 0), lo, hi)
+    photo_mm = float(photo_px_per_mm or px_per_mm)
+    M = _maps(rgb, mask, px_per_mm, photo_mm)
+    cands = _dark_candidates(M) + _ridge_candidates(M)
+    cands += _smooth_candidates(M, cands)
+    min_resolvable = RESOLVE_PX / photo_mm
+    out = []
+    fitting = keep_all and not MODEL_PATH.exists()
+    for c in cands:
+        f = c.features
+        if fitting:  # bootstrapping the region model: features only
+            out.append(c)
+            continue
+        kind, conf, probs = classify(f)
+        c.kind, c.confidence, c.probs = kind, conf, probs
+        if kind == "pore":
+            c.iso6520 = ISO6520["pore"] if f["aspect"] < 1.5 else ISO6520["pore-elongated"]
+        elif kind == "unfused":
+            c.iso6520 = ISO6520["unfused-root"] if f["edge_contact"] > 0.3 else ISO6520["unfused"]
+        elif kind in ISO6520:
+            c.iso6520 = ISO6520[kind]
+        if keep_all:
+            out.append(c)
+            continue
+        if kind == "none" or f["greatest_mm"] < max(min_size_mm, SPECK_MM, min_resolvable):
+            continue
+        out.append(c)
+    out = _dedupe(out)
+    out.sort(key=lambda d: (d.features["cx_px"], d.features["cy_px"]))
+    return out
 
-    # thin dark openings narrower than the smoothing: ridge filter
-    sig_px = [s * mm for s in (0.05, 0.1, 0.18)]
-    ridge = sato(g / 255.0, sigmas=[max(s, 0.6) for s in sig_px], black_ridges=True, mode="reflect")
-    rsig = _robust_sigma(ridge[mask])
-    rmed = float(np.median(ridge[mask]))
-    ridge_mask = apply_hysteresis_threshold(
-        np.where(mask, ridge - rmed, 0), sensitivity * 6 * rsig, sensitivity * 12 * rsig
-    )
 
-    tex = texture_energy(g, px_per_mm=mm)
-    tex_med = float(np.median(tex[mask]))
+# --------------------------------------------------------------------------
+# candidates
 
-    dets: list[Detection] = []
-    speck_px = (SPECK_MM * mm) ** 2 * math.pi / 4
-    lab, n = ndi.label(dark | ridge_mask, structure=np.ones((3, 3)))
-    objs = ndi.find_objects(lab)
-    for i, sl in enumerate(objs, start=1):
+
+def _dark_candidates(M: _Maps) -> list[Detection]:
+    rel = np.where(M.mask, M.rel, 1.0)
+    seeds_lvl, grow_lvl = 0.62, 0.8
+    dark = hysteresis(1.0 - rel, 1.0 - grow_lvl, 1.0 - seeds_lvl)
+    speck_px = (SPECK_MM * M.mm) ** 2 * math.pi / 4
+    lab, n = ndi.label(dark, structure=np.ones((3, 3)))
+    out = []
+    for i, sl in enumerate(ndi.find_objects(lab), start=1):
         if sl is None:
             continue
-        comp = lab[sl] == i
-        if comp.sum() < speck_px:
+        if (lab[sl] == i).sum() < speck_px:
             continue
-        d = _trace_dark(i, sl, lab, gs, bg, resid, ridge_mask, tex, mask, mm=mm, sig=sig, tex_med=tex_med)
-        if d is not None and d.features["greatest_mm"] >= max(min_size_mm, SPECK_MM):
-            dets.append(d)
-
-    dets.extend(_unfused(rgb, g, tex, tex_med, mask, dets, mm=mm, min_size_mm=min_size_mm, test=test))
-    dets.sort(key=lambda d: (d.features["cx_px"], d.features["cy_px"]))
-    return dets
+        d = _trace_dark(i, sl, lab, M)
+        if d is not None:
+            out.append(d)
+    return out
 
 
-def _trace_dark(i, sl, lab, gs, bg, resid, ridge_mask, tex, mask, *, mm, sig, tex_med) -> Detection | None:
-    h, w = gs.shape
-    r0, r1, c0, c1 = sl[0].start, sl[0].stop, sl[1].start, sl[1].stop
-    size = max(r1 - r0, c1 - c0)
-    pad = int(max(1.0 * mm, 0.5 * size)) + 2
-    R0, R1, C0, C1 = max(0, r0 - pad), min(h, r1 + pad), max(0, c0 - pad), min(w, c1 + pad)
-    seed = lab[R0:R1, C0:C1] == i
-    patch = gs[R0:R1, C0:C1]
-    # local background: a ring just outside the candidate, other candidates left out
-    rw = max(2, int(round(0.3 * mm)))
-    grown = ndi.binary_dilation(seed, iterations=rw)
-    ring = grown & ~ndi.binary_dilation(seed, iterations=1) & (lab[R0:R1, C0:C1] == 0)
-    ring &= mask[R0:R1, C0:C1]
-    b_map = float(np.median(bg[R0:R1, C0:C1][seed]))
-    b = float(np.median(patch[ring])) if ring.sum() >= 8 else b_map
-    core = float(np.percentile(patch[seed], 5))
-    contrast = b - core
-    thin_seed = ridge_mask[R0:R1, C0:C1] & seed
-    is_ridge = thin_seed.sum() > 0.6 * seed.sum()
-    if contrast <= 0:
-        return None
-    level = b - 0.5 * contrast
-    region = patch < level
-    # keep only what connects to the seed; fill highlights and holes inside
-    rl, _ = ndi.label(region | seed, structure=np.ones((3, 3)))
-    keep = np.unique(rl[seed])
-    keep = keep[keep > 0]
-    region = np.isin(rl, keep)
-    region = ndi.binary_fill_holes(region)
-    region &= mask[R0:R1, C0:C1]
-    if region.sum() < 2:
-        return None
-    # sub-pixel outline: trace the half-contrast level with holes made dark
-    val = np.where(region, np.minimum(patch, level - 1), np.maximum(patch, level + 1))
-    val = np.where(ndi.binary_dilation(region, iterations=2), val, level + 1)
-    val = np.pad(val, 1, constant_values=level + 1)
-    cs = skm.find_contours(val, level)
-    if not cs:
-        return None
-    cont = max(cs, key=len)[:, ::-1] - 1 + np.array([C0, R0])  # (col,row)
-    if len(cont) < 4:
-        return None
-    if np.allclose(cont[0], cont[-1]):
-        cont = cont[:-1]
-    f = polygon_features(cont, px_per_mm=mm)
-    if f["area_mm2"] <= 0:
-        return None
-    # appearance
-    reg_full = np.zeros(gs.shape, bool)
-    reg_full[R0:R1, C0:C1] = region
-    inner = ndi.binary_erosion(region, iterations=1) if region.sum() > 20 else region
-    gy, gx = np.gradient(patch)
-    gm = np.hypot(gx, gy)
-    rim = region & ~inner
-    # edge steepness in 1/mm: about 1 / (width of the dark-to-bright transition)
-    edge_sharp = float(np.mean(gm[rim])) * mm / max(contrast, 1e-3) if rim.any() else 0.0
-    highlight = bool((patch[region] > b).any())
-    cnr = contrast / max(sig, 1e-3)
-    f.update(
-        contrast=contrast / max(b, 1e-3),
-        cnr=cnr,
-        edge_sharpness=edge_sharp,
-        highlight=highlight,
-        ridge=is_ridge,
-        inner_texture=float(np.median(tex[R0:R1, C0:C1][region])) / max(tex_med, 1e-3),
-    )
-    kind, iso, conf = _classify_dark(f)
-    return Detection(kind=kind, confidence=conf, contour=cont, iso6520=iso, features=f)
-
-
-def _sigmoid(x: float) -> float:
-    return 1.0 / (1.0 + math.exp(-x))
-
-
-def _classify_dark(f: dict) -> tuple[str, str, float]:
-    """Kind, ISO 6520-1 number and confidence of a dark region from its features."""
-    g = f["greatest_mm"]
-    thick = f["area_mm2"] / max(g, 1e-6)  # mean thickness along its length
-    aspect = f["aspect"]
-    solidity = f["solidity"]
-    rough = f["roughness"]
-    # evidence it is real: contrast-to-noise and a sharp edge (dirt is soft)
-    real = _sigmoid((f["cnr"] - 5.0) / 1.5) * _sigmoid((f["edge_sharpness"] - 1.6) / 0.4)
-    if (thick < 0.4 and g / max(thick, 1e-6) > 6) or (f["ridge"] and aspect > 4):
-        # thin, long, sharp-ended: an open discontinuity / crack
-        shape = _sigmoid((g / max(thick, 1e-6) - 6) / 2)
-        return "crack", ISO6520["crack"], round(real * (0.5 + 0.5 * shape), 3)
-    if solidity >= 0.86 and rough < 1.12:
-        if aspect < 1.8:
-            shape = _sigmoid((solidity - 0.86) / 0.03) * _sigmoid((1.8 - aspect) / 0.2)
-            return "pore", ISO6520["pore"], round(real * (0.55 + 0.45 * shape), 3)
-        shape = _sigmoid((solidity - 0.86) / 0.03)
-        return "pore", ISO6520["pore-elongated"], round(real * (0.5 + 0.4 * shape), 3)
-    shape = _sigmoid((0.9 - solidity) / 0.05) * 0.5 + _sigmoid((rough - 1.1) / 0.05) * 0.5
-    return "inclusion", ISO6520["inclusion"], round(real * (0.5 + 0.45 * shape), 3)
-
-
-def _unfused(rgb, g, tex, tex_med, mask, dark_dets, *, mm, min_size_mm, test) -> list[Detection]:
-    """Smooth, untextured (often tinted) regions: lack of fusion / incomplete penetration."""
-    if test == "bend":
-        return []
-    h, w = g.shape
-    smooth = (tex < 0.35 * tex_med) & mask
-    # exclude what the dark detector already explains
-    taken = np.zeros((h, w), np.uint8)
-    for d in dark_dets:
-        cv2.fillPoly(taken, [np.round(d.contour).astype(np.int32)], 1)
-    taken = cv2.dilate(taken, np.ones((5, 5), np.uint8)) > 0
-    smooth &= ~taken
-    k = max(3, int(round(0.3 * mm)) | 1)
-    smooth = cv2.morphologyEx(smooth.astype(np.uint8), cv2.MORPH_OPEN, np.ones((k, k), np.uint8))
-    smooth = cv2.morphologyEx(smooth, cv2.MORPH_CLOSE, np.ones((k, k), np.uint8)) > 0
-    lab, n = ndi.label(smooth)
-    hsv = cv2.cvtColor(rgb, cv2.COLOR_RGB2HSV).astype(np.float32)
-    sat_med = float(np.median(hsv[..., 1][mask]))
+def _ridge_candidates(M: _Maps) -> list[Detection]:
+    r = np.where(M.mask, (M.ridge - np.median(M.ridge[M.mask])) / M.ridge_sig, 0)
+    m = hysteresis(r, 4.0, 8.0)
+    lab, n = ndi.label(m, structure=np.ones((3, 3)))
     out = []
     for i, sl in enumerate(ndi.find_objects(lab), start=1):
         if sl is None:
             continue
         reg = lab[sl] == i
-        if reg.sum() < (1.0 * mm) ** 2:
+        if reg.sum() < 0.8 * M.mm:
             continue
-        cs = skm.find_contours(np.pad(reg.astype(float), 1), 0.5)
-        if not cs:
+        cont = _outline(reg, sl)
+        if cont is None:
             continue
-        cont = max(cs, key=len)[:, ::-1] - 1 + np.array([sl[1].start, sl[0].start])
-        if np.allclose(cont[0], cont[-1]):
-            cont = cont[:-1]
-        f = polygon_features(cont, px_per_mm=mm)
-        if f["greatest_mm"] < max(min_size_mm, 1.0):
+        f = polygon_features(cont, px_per_mm=M.mm)
+        if f["greatest_mm"] < 0.5:
             continue
-        smooth_ratio = float(np.median(tex[sl][reg])) / max(tex_med, 1e-3)
-        tint = float(np.median(hsv[..., 1][sl][reg])) - sat_med
-        f.update(smooth_ratio=smooth_ratio, tint=tint, contrast=0.0, cnr=0.0)
-        conf = _sigmoid((0.3 - smooth_ratio) / 0.06) * (0.6 + 0.4 * _sigmoid((tint - 10) / 8))
-        conf *= _sigmoid((f["greatest_mm"] - 1.0) / 0.4)
-        near_edge = min(f["y0_px"], h - 1 - f["y1_px"]) < 0.5 * mm
-        iso = ISO6520["unfused-root"] if near_edge else ISO6520["unfused"]
-        out.append(Detection(kind="unfused", confidence=round(float(conf), 3), contour=cont, iso6520=iso, features=f))
+        out.append(Detection("crack", 0.0, cont, ISO6520["crack"], _appearance(f, reg, sl, M, source="ridge")))
     return out
+
+
+def _smooth_candidates(M: _Maps, taken_dets) -> list[Detection]:
+    h, w = M.g.shape
+    smooth = (M.tex < 0.45 * M.tex_med) | (_chroma_dev(M) > 12.0)
+    smooth &= M.mask
+    taken = np.zeros((h, w), np.uint8)
+    for d in taken_dets:
+        cv2.fillPoly(taken, [np.round(d.contour).astype(np.int32)], 1)
+    smooth &= cv2.dilate(taken, np.ones((3, 3), np.uint8)) == 0
+    k = max(3, int(round(0.3 * M.mm)) | 1)
+    sm = cv2.morphologyEx(smooth.astype(np.uint8), cv2.MORPH_OPEN, np.ones((k, k), np.uint8))
+    sm = cv2.morphologyEx(sm, cv2.MORPH_CLOSE, np.ones((k, k), np.uint8)) > 0
+    lab, n = ndi.label(sm)
+    out = []
+    for i, sl in enumerate(ndi.find_objects(lab), start=1):
+        if sl is None:
+            continue
+        reg = lab[sl] == i
+        if reg.sum() < (0.8 * M.mm) ** 2:
+            continue
+        cont = _outline(reg, sl)
+        if cont is None:
+            continue
+        f = polygon_features(cont, px_per_mm=M.mm)
+        if f["greatest_mm"] < 1.0:
+            continue
+        out.append(Detection("unfused", 0.0, cont, ISO6520["unfused"], _appearance(f, reg, sl, M, source="smooth")))
+    return out
+
+
+def _chroma_dev(M: _Maps) -> np.ndarray:
+    return np.hypot(M.lab[..., 1] - M.lab_med[1], M.lab[..., 2] - M.lab_med[2])
+
+
+def _outline(reg: np.ndarray, sl) -> np.ndarray | None:
+    cs = skm.find_contours(np.pad(reg.astype(np.float32), 1), 0.5)
+    if not cs:
+        return None
+    cont = max(cs, key=len)[:, ::-1] - 1 + np.array([sl[1].start, sl[0].start])
+    if np.allclose(cont[0], cont[-1]):
+        cont = cont[:-1]
+    return cont if len(cont) >= 3 else None
+
+
+def _trace_dark(i, sl, lab, M: _Maps) -> Detection | None:
+    h, w = M.gs.shape
+    mm = M.mm
+    r0, r1, c0, c1 = sl[0].start, sl[0].stop, sl[1].start, sl[1].stop
+    size = max(r1 - r0, c1 - c0)
+    pad = int(max(0.6 * mm, 0.5 * size)) + 2
+    R0, R1, C0, C1 = max(0, r0 - pad), min(h, r1 + pad), max(0, c0 - pad), min(w, c1 + pad)
+    seed = lab[R0:R1, C0:C1] == i
+    patch = M.gs[R0:R1, C0:C1]
+    pmask = M.mask[R0:R1, C0:C1]
+    rw = max(2, int(round(0.3 * mm)))
+    ring = ndi.binary_dilation(seed, iterations=rw) & ~ndi.binary_dilation(seed, iterations=1)
+    ring &= (lab[R0:R1, C0:C1] == 0) & pmask
+    b = float(np.median(patch[ring])) if ring.sum() >= 8 else float(np.median(M.bg[R0:R1, C0:C1][seed]))
+    core = float(np.percentile(patch[seed], 5))
+    contrast = b - core
+    if contrast <= 1.0:
+        return None
+    level = b - 0.5 * contrast
+    region = patch < level
+    rl, _ = ndi.label(region | seed, structure=np.ones((3, 3)))
+    keep = np.unique(rl[seed])
+    region = np.isin(rl, keep[keep > 0])
+    region = ndi.binary_fill_holes(region) & pmask
+    if region.sum() < 2:
+        return None
+    val = np.where(region, np.minimum(patch, level - 1), np.maximum(patch, level + 1))
+    val = np.where(ndi.binary_dilation(region, iterations=2), val, level + 1)
+    cs = skm.find_contours(np.pad(val, 1, constant_values=level + 1), level)
+    if not cs:
+        return None
+    cont = max(cs, key=len)[:, ::-1] - 1 + np.array([C0, R0])
+    if np.allclose(cont[0], cont[-1]):
+        cont = cont[:-1]
+    if len(cont) < 4:
+        return None
+    f = polygon_features(cont, px_per_mm=mm)
+    if f["area_mm2"] <= 0:
+        return None
+    sl2 = (slice(R0, R1), slice(C0, C1))
+    f = _appearance(f, region, sl2, M, source="dark", ring_level=b, core_level=core)
+    return Detection("candidate", 0.0, cont, "", f)
+
+
+def _appearance(f: dict, reg: np.ndarray, sl, M: _Maps, *, source: str, ring_level=None, core_level=None) -> dict:
+    """Generic region features used by the region model (all dimensionless or mm)."""
+    mm = M.mm
+    h, w = M.g.shape
+    R0, C0 = sl[0].start, sl[1].start
+    patch = M.gs[sl]
+    pmask = M.mask[sl]
+    rw = max(2, int(round(0.3 * mm)))
+    ring = ndi.binary_dilation(reg, iterations=rw) & ~ndi.binary_dilation(reg, iterations=1) & pmask
+    if ring.sum() < 4:
+        ring = ~reg & pmask
+    b = ring_level if ring_level is not None else float(np.median(patch[ring])) if ring.any() else float(np.median(patch))
+    inside = float(np.median(patch[reg]))
+    core = core_level if core_level is not None else float(np.percentile(patch[reg], 5))
+    contrast = (b - inside) / max(b, 1.0)
+    inner = ndi.binary_erosion(reg, iterations=1)
+    rim = reg & ~inner
+    if not inner.any():
+        inner = reg
+    tex_in = float(np.median(M.tex[sl][inner])) / M.tex_med
+    tex_ring = float(np.median(M.tex[sl][ring])) / M.tex_med if ring.any() else 1.0
+    span = max(b - core, 1.0)
+    edge = float(np.mean(M.grad[sl][rim])) * mm / span if rim.any() else 0.0
+    lab = M.lab[sl]
+    cin = lab[inner].mean(axis=0) if inner.any() else lab[reg].mean(axis=0)
+    cring = lab[ring].mean(axis=0) if ring.any() else M.lab_med
+    chroma_ring = float(np.hypot(cin[1] - cring[1], cin[2] - cring[2]))
+    chroma_face = float(np.hypot(cin[1] - M.lab_med[1], cin[2] - M.lab_med[2]))
+    rz = (M.ridge[sl] - np.median(M.ridge[M.mask])) / M.ridge_sig
+    ridge_frac = float((rz[reg] > 4.0).mean())
+    # contact with the face's long edges (root / side wall)
+    ys, xs = np.nonzero(reg)
+    edge_band = max(1, int(round(EDGE_MM * mm)))
+    near = ((ys + R0) < edge_band) | ((ys + R0) >= h - edge_band)
+    edge_contact = float(near.mean()) if len(ys) else 0.0
+    thick = f["area_mm2"] / max(f["greatest_mm"], 1e-6)
+    f = dict(f)
+    f.update(
+        source=source,
+        contrast=contrast,
+        depth=(b - core) / max(b, 1.0),
+        edge_sharpness=edge,
+        tex_in=tex_in,
+        tex_ring=tex_ring,
+        chroma_ring=chroma_ring,
+        chroma_face=chroma_face,
+        ridge_frac=ridge_frac,
+        edge_contact=edge_contact,
+        thickness_mm=thick,
+        photo_px=f["greatest_mm"] * M.photo_mm,
+        photo_thick_px=thick * M.photo_mm,
+        bright_frac=float((patch[reg] > b).mean()),
+    )
+    return f
+
+
+def _dedupe(dets: list[Detection]) -> list[Detection]:
+    """Drop a detection whose centroid lies inside a larger, more confident one."""
+    keep = []
+    order = sorted(dets, key=lambda d: -d.features["area_mm2"])
+    for d in order:
+        c = (d.features["cx_px"], d.features["cy_px"])
+        inside = False
+        for k in keep:
+            if cv2.pointPolygonTest(k.contour.astype(np.float32).reshape(-1, 1, 2), c, False) >= 0:
+                inside = True
+                break
+        if not inside:
+            keep.append(d)
+    return keep

@@ -1,0 +1,192 @@
+#!/usr/bin/env python3
+"""Fit the region model (surfaces/regionmodel.json) on seeded synthetic faces.
+
+    python scripts/fit_region_model.py --render 120 --seed 100000 --workers 2
+    python scripts/fit_region_model.py --folder DIR [--folder DIR2]   # photos + .truth.json
+
+Each photo goes through the runtime's own calibration, face finder and
+candidate generator (``segment(..., keep_all=True)``); every candidate is
+labelled with the kind of the truth imperfection whose outline contains its
+centre (grown by 0.3 mm), else ``none``.  A multinomial logistic model with
+an L2 penalty is fitted (SciPy L-BFGS) with class weights that balance the
+many ``none`` candidates.  The seeds used here (100000 and up by default) are
+disjoint from the seeds the tests and the benchmark evaluate on.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime as dt
+import glob
+import json
+import os
+import sys
+from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from surfaces.regionmodel import CLASSES, FEATURES, MODEL_PATH, feature_vector  # noqa: E402
+
+
+def candidates_for(args) -> tuple[list, list, str]:
+    """Feature vectors and labels of every candidate on one photo."""
+    import cv2
+
+    from surfaces.calibrate import calibrate
+    from surfaces.face import find_face
+    from surfaces.geometry import apply_h
+    from surfaces.photo import load_photo
+    from surfaces.segment import segment
+
+    kind, item = args
+    if kind == "render":
+        from surfaces.synth import render_fracture
+
+        seed, mp = item
+        sp = render_fracture(seed, test="nick-break" if seed % 3 == 0 else "fillet-break", megapixels=mp)
+        data = sp.jpeg_bytes(sp.truth.get("jpeg_quality", 90)) if hasattr(sp, "jpeg_bytes") else None
+        truth = sp.truth
+        photo = load_photo(data, name=f"seed{seed}.jpg") if data is not None else None
+    else:
+        path = item
+        truth = json.loads(Path(path).with_suffix(".truth.json").read_text())
+        photo = load_photo(path)
+    if photo is None:
+        return [], [], "no photo"
+    try:
+        cal = calibrate(photo, marker_mm=truth["marker_mm"])
+        face = find_face(photo.rgb, photo.gray, cal, test=truth.get("test", "fillet-break"))
+    except Exception as e:  # a failed face is no training data
+        return [], [], f"skipped: {e}"
+    area_err = face.area_mm2 / truth["face"]["area_mm2"] - 1
+    if abs(area_err) > 0.08:
+        return [], [], f"skipped: face area off by {area_err:+.0%}"
+    centre = face.polygon_px.mean(axis=0)
+    ppm = cal.px_per_mm_at(float(centre[0]), float(centre[1]))
+    dets = segment(face.image, face.mask, px_per_mm=face.px_per_mm, photo_px_per_mm=ppm, keep_all=True)
+    Ainv = np.linalg.inv(face.A_face_to_plane)
+    polys = []
+    grow = int(round(0.3 * face.px_per_mm))
+    h, w = face.image.shape[:2]
+    for t in truth["imperfections"]:
+        poly = apply_h(Ainv, np.asarray(t["polygon_mm"]))
+        m = np.zeros((h, w), np.uint8)
+        cv2.fillPoly(m, [np.round(poly).astype(np.int32)], 1)
+        m = cv2.dilate(m, np.ones((2 * grow + 1, 2 * grow + 1), np.uint8))
+        polys.append((t["kind"], m))
+    X, y = [], []
+    for d in dets:
+        c, r = int(round(d.features["cx_px"])), int(round(d.features["cy_px"]))
+        label = "none"
+        if 0 <= r < h and 0 <= c < w:
+            for k, m in polys:
+                if m[r, c]:
+                    label = k
+                    break
+        X.append(feature_vector(d.features).tolist())
+        y.append(CLASSES.index(label))
+    return X, y, "ok"
+
+
+def fit(X: np.ndarray, y: np.ndarray, *, l2: float = 1e-2) -> dict:
+    from scipy.optimize import minimize
+
+    mean = X.mean(axis=0)
+    std = X.std(axis=0)
+    std[std < 1e-9] = 1.0
+    Z = (X - mean) / std
+    n, d = Z.shape
+    k = len(CLASSES)
+    counts = np.bincount(y, minlength=k).astype(float)
+    cw = np.where(counts > 0, (n / (k * np.maximum(counts, 1))) ** 0.5, 0.0)
+    sw = cw[y]
+    Y = np.eye(k)[y]
+
+    def loss(theta):
+        W = theta[: d * k].reshape(d, k)
+        b = theta[d * k :]
+        L = Z @ W + b
+        L -= L.max(axis=1, keepdims=True)
+        P = np.exp(L)
+        P /= P.sum(axis=1, keepdims=True)
+        nll = -(sw * np.log(np.clip((P * Y).sum(axis=1), 1e-12, None))).sum() / sw.sum()
+        G = (P - Y) * sw[:, None] / sw.sum()
+        gW = Z.T @ G + l2 * W
+        gb = G.sum(axis=0)
+        return nll + 0.5 * l2 * (W**2).sum(), np.concatenate([gW.ravel(), gb])
+
+    res = minimize(loss, np.zeros(d * k + k), jac=True, method="L-BFGS-B", options={"maxiter": 2000})
+    W = res.x[: d * k].reshape(d, k)
+    b = res.x[d * k :]
+    return {"W": W.tolist(), "b": b.tolist(), "mean": mean.tolist(), "std": std.tolist(), "loss": float(res.fun)}
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--folder", action="append", default=[], help="folder of synthetic photos with .truth.json")
+    ap.add_argument("--render", type=int, default=0, help="render this many photos on the fly")
+    ap.add_argument("--seed", type=int, default=100000)
+    ap.add_argument("--mp", type=float, default=3.0)
+    ap.add_argument("--workers", type=int, default=os.cpu_count() or 1)
+    ap.add_argument("--holdout", type=float, default=0.25, help="fraction of photos held out for the scores")
+    ap.add_argument("--out", default=str(MODEL_PATH))
+    a = ap.parse_args()
+    jobs = [("file", p) for f in a.folder for p in sorted(glob.glob(os.path.join(f, "*.jpg")))]
+    jobs += [("render", (a.seed + i, a.mp)) for i in range(a.render)]
+    if not jobs:
+        ap.error("give --folder or --render")
+    with ProcessPoolExecutor(a.workers) as ex:
+        results = list(ex.map(candidates_for, jobs))
+    used = [(j, r) for j, r in zip(jobs, results) if r[2] == "ok"]
+    print(f"{len(used)} of {len(jobs)} photos usable", file=sys.stderr)
+    rng = np.random.default_rng(0)
+    order = rng.permutation(len(used))
+    n_hold = int(round(a.holdout * len(used)))
+    hold, train = order[:n_hold], order[n_hold:]
+
+    def stack(idx):
+        X = [x for i in idx for x in used[i][1][0]]
+        y = [v for i in idx for v in used[i][1][1]]
+        return np.asarray(X, float), np.asarray(y, int)
+
+    Xt, yt = stack(train)
+    model = fit(Xt, yt)
+    model.update(
+        classes=list(CLASSES),
+        features=list(FEATURES),
+        fitted=dt.date.today().isoformat(),
+        training={
+            "photos": len(train),
+            "candidates": int(len(yt)),
+            "per_class": {c: int((yt == i).sum()) for i, c in enumerate(CLASSES)},
+            "sources": sorted({j[0] for j, _ in used}),
+            "seed": a.seed,
+        },
+    )
+    if n_hold:
+        from surfaces.regionmodel import probabilities
+
+        Xh, yh = stack(hold)
+        m = dict(model)
+        for key in ("W", "b", "mean", "std"):
+            m[key] = np.asarray(model[key])
+        P = probabilities(Xh, m)
+        pred = P.argmax(axis=1)
+        conf = np.zeros((len(CLASSES), len(CLASSES)), int)
+        for t, p in zip(yh, pred):
+            conf[t, p] += 1
+        model["holdout"] = {"photos": int(n_hold), "confusion_rows_truth_cols_pred": conf.tolist()}
+        print("held-out confusion (rows truth, cols predicted):", CLASSES, file=sys.stderr)
+        for c, row in zip(CLASSES, conf):
+            print(f"  {c:>9} {row}", file=sys.stderr)
+    Path(a.out).write_text(json.dumps(model, indent=1) + "\n")
+    print(f"wrote {a.out}", file=sys.stderr)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
