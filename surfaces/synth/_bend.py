@@ -173,6 +173,8 @@ class BendBuilder:
         length = float(s.get("length_mm") or _loguniform(rng, 0.5, 8.0))
         width = float(s.get("width_mm") or rng.uniform(0.08, 0.35) * min(1.0, 0.5 + length / 8))
         edge = s.get("edge")
+        if edge is None and "y_mm" in s:
+            edge = ""  # a placed crack starts where it was put
         if edge is None:
             edge = str(rng.choice(["", "y0", "y1"], p=[0.75, 0.125, 0.125]))
         if edge not in ("", "y0", "y1"):

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import json
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Callable
 
@@ -22,11 +22,11 @@ import numpy as np
 
 from ..geometry import apply_h
 from ..model import SurfacesError
-from . import _camera, _noise, _render, _textures
+from . import _camera, _render, _textures
 from ._card import make_card
 from ._paint import Defect, Light
 from ._render import Layer, grid_A
-from ._shapes import measures, polygon_area
+from ._shapes import convex_hull, measures, polygon_area, polygon_centroid
 
 SCHEMA = "surfaces.truth/1"
 ASPECTS = (4 / 3, 3 / 2, 16 / 9, 1.0)
@@ -285,7 +285,7 @@ def render_scene(
     T_layout_to_plane = np.linalg.inv(T_plane_to_layout)
 
     # ---- camera
-    face_c_layout = np.array(_centroid(geo.face_poly))
+    face_c_layout = np.array(polygon_centroid(geo.face_poly))
     face_c = apply_h(T_layout_to_plane, [face_c_layout])[0]
     must_plane = apply_h(T_layout_to_plane, must)
     cam_rng = rs["camera"]
@@ -351,7 +351,7 @@ def render_scene(
     glare_at = apply_h(H_layout, [face_c_layout])[0]
     look = _render.random_look(rs["look"], W, H, clean=clean, glare_xy=tuple(glare_at))
     if jpeg_quality is not None:
-        look = _replace(look, jpeg_quality=int(jpeg_quality))
+        look = replace(look, jpeg_quality=int(jpeg_quality))
     u8 = _render.apply_look(rs["noise"], img, look)
     del img
     jpeg = None
@@ -365,18 +365,6 @@ def render_scene(
         seed, builder, geo, placed, card, T_card, T_layout_to_plane, cam, W, H, look, table_kind, light, ids
     )
     return SynthPhoto(rgb=u8, truth=truth, _jpeg=jpeg)
-
-
-def _replace(look, **kw):
-    from dataclasses import replace
-
-    return replace(look, **kw)
-
-
-def _centroid(poly):
-    from ._shapes import polygon_centroid
-
-    return polygon_centroid(poly)
 
 
 def _card_size(marker_mm: float, n: int, ruler: bool) -> tuple[float, float]:
@@ -415,15 +403,9 @@ def _place_card(rng, geo: Geometry, size) -> np.ndarray:
             cx, cy = x1 + gap, rng.uniform(y0 - bh / 2, y1 - bh / 2)
         T = affine(beta, cx - lo[0], cy - lo[1])
         poly = apply_h(T, _rect(0, 0, cw, ch))
-        if _separated(poly, _hull(sp), 2.0):
+        if _separated(poly, convex_hull(sp), 2.0):
             return T
     raise SynthError("could not place the reference card beside the specimen")  # pragma: no cover
-
-
-def _hull(p):
-    from ._shapes import convex_hull
-
-    return convex_hull(p)
 
 
 def _table_layer(img, rng, kind, H_layout, geo, card_poly, light, W, H, ppm) -> None:
@@ -474,7 +456,7 @@ def _truth(seed, builder, geo, placed, card, T_card, T_lp, cam, W, H, look, tabl
 
     face_plane = plane(geo.face_poly)
     face_px = px(face_plane)
-    fc = plane([_centroid(geo.face_poly)])[0]
+    fc = plane([polygon_centroid(geo.face_poly)])[0]
     ppm_face = _camera.scale_at(Hp, *fc)
     axis = apply_h(T_lp, [[0, 0], [1, 0]])
     axis_deg = math.degrees(math.atan2(axis[1, 1] - axis[0, 1], axis[1, 0] - axis[0, 0])) % 360.0
@@ -598,7 +580,3 @@ def _jsonable(o):
     if isinstance(o, float) and not math.isfinite(o):
         return None
     return o
-
-
-def noise_field(rng, shape, cell):  # small re-export for the scene modules
-    return _noise.value(rng, shape, cell)

@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import math
 
-import cv2
 import numpy as np
 
 from . import _noise
