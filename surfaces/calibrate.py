@@ -7,10 +7,13 @@ scale uncertainty, the camera tilt and any warnings.
 How the marker is measured
 --------------------------
 1. **Detection.**  OpenCV's ``ArucoDetector`` looks for DICT_4X4_50 markers
-   (any id) in the whole photo.  Large photos are searched on a copy whose
-   long side is ``DETECT_LONG_SIDE_PX``; when nothing is found there, the
-   search is repeated at full resolution (small markers) and at half that
-   size (big, blurred markers).
+   (any id) in the whole photo, once with parameters tuned for uneven light,
+   blur and tilt and once with OpenCV's defaults (each finds markers the
+   other misses; the results are merged).  Large photos are searched on a
+   copy reduced by the smallest whole number that brings the long side to at
+   most ``DETECT_LONG_SIDE_PX``; when nothing is found there, the search is
+   repeated at full resolution (small markers) and at a long side near half
+   of ``DETECT_LONG_SIDE_PX`` (big, blurred markers).
 2. **Sub-pixel outline.**  On the full-resolution grey image, grey-level
    profiles are sampled across each of the four outer edges of the black
    square (0.6 module either side of the edge, every pixel along it, the ends
@@ -24,8 +27,10 @@ How the marker is measured
 3. **Homography.**  The four corners give the photo -> plane map of that
    marker (plane origin at its top-left corner, X right, Y down, mm).  With
    several markers, each one's scale is compared at a common point; when they
-   agree, all corners are fitted together (each marker's unknown position and
-   turn in the plane solved alternately with the shared homography).
+   agree, all corners are fitted together: one plane -> photo homography and,
+   for every marker but the reference, its unknown turn and shift in the
+   plane, by Gauss-Newton on the corner reprojection error in pixels.  The
+   wider spread of corners pins the perspective far better than one marker.
 4. **Uncertainty** (1-sigma, percent) combines
 
    * corner localisation: sigma_c per corner coordinate from the line-fit
@@ -195,19 +200,22 @@ def detect_markers(gray: np.ndarray) -> tuple[list[MarkerHit], int]:
     """
     h, w = gray.shape
     long_side = max(h, w)
+    # whole-number reductions: INTER_AREA then averages exact pixel blocks, fast
     scales: list[float] = []
-    if long_side > DETECT_LONG_SIDE_PX:
-        scales.append(DETECT_LONG_SIDE_PX / long_side)
+    first = max(1, math.ceil(long_side / DETECT_LONG_SIDE_PX))
+    if first > 1:
+        scales.append(1.0 / first)
     scales.append(1.0)
-    if long_side > DETECT_LONG_SIDE_PX // 2:
-        scales.append((DETECT_LONG_SIDE_PX // 2) / long_side)
+    second = max(2, round(2 * long_side / DETECT_LONG_SIDE_PX))
+    if long_side / second >= 600 and second != first:
+        scales.append(1.0 / second)
 
     n_rejected = -1
     found: list[tuple[int, np.ndarray]] = []
     for s in scales:
         corners, ids, rejected = _detect_at_scale(gray, s)
         if n_rejected < 0:
-            n_rejected = len(rejected)
+            n_rejected = rejected
         if corners:
             found = list(zip(ids, corners))
             break
@@ -475,32 +483,83 @@ def _rigid_batch(src: np.ndarray, dst: np.ndarray) -> np.ndarray:
     return T
 
 
-def _joint_batch(corners: np.ndarray, side_mm: float, ref: int, iterations: int = 4) -> np.ndarray:
+def _joint_batch(corners: np.ndarray, side_mm: float, ref: int, iterations: int = 8) -> np.ndarray:
     """One homography per stack entry for all markers together.
 
     ``corners`` is (S, M, 4, 2) photo px.  The reference marker's square
     fixes the plane frame; every other marker's place and turn in that plane
-    is unknown and solved alternately with the shared homography (rigid fit
-    of its square to where the current homography puts it, then one
-    least-squares homography through all corners).
+    is unknown.  Start: two rounds of alternation (rigid fit of each square
+    to where the current homography puts it, then one least-squares
+    homography through all corners); then Gauss-Newton on the corner
+    reprojection error in photo pixels over the plane -> photo homography
+    (8 parameters) and each other marker's turn and shift (3 each).
     """
     S, M = corners.shape[:2]
     P = _square_plane(side_mm)
     H = _dlt(corners[:, ref], np.broadcast_to(P, (S, 4, 2)))
     src = corners.reshape(S, 4 * M, 2)
-    for _ in range(iterations):
+    others = [k for k in range(M) if k != ref]
+    placements = {}
+    for _ in range(2):
         dst = np.empty((S, M, 4, 2))
         for k in range(M):
             if k == ref:
                 dst[:, k] = P
                 continue
             T = _rigid_batch(P, _apply_batch(H, corners[:, k]))
+            placements[k] = T
             dst[:, k] = _apply_batch(T, np.broadcast_to(P, (S, 4, 2)))
         H = _dlt(src, dst.reshape(S, 4 * M, 2))
-    return H
+    if iterations <= 0 or not others:
+        return H
+
+    # parameters in units of the marker side, so that all are of order one
+    Nn = np.diag([side_mm, side_mm, 1.0])
+    G0 = np.linalg.inv(H) @ Nn  # plane (in sides) -> photo
+    G0 = G0 / G0[:, 2:3, 2:3]
+    unit = P / side_mm
+    p = np.zeros((S, 8 + 3 * len(others)))
+    for j, k in enumerate(others):
+        T = placements[k]
+        p[:, 8 + 3 * j] = np.arctan2(T[:, 1, 0], T[:, 0, 0])
+        p[:, 9 + 3 * j] = T[:, 0, 2] / side_mm
+        p[:, 10 + 3 * j] = T[:, 1, 2] / side_mm
+
+    def predict(q):
+        D = np.concatenate([q[:, :8], np.zeros((len(q), 1))], axis=1).reshape(-1, 3, 3)
+        G = G0 @ (np.eye(3)[None] + D)
+        pts = np.empty((len(q), M, 4, 2))
+        pts[:, ref] = _apply_batch(G, np.broadcast_to(unit, (len(q), 4, 2)))
+        for j, k in enumerate(others):
+            th, tx, ty = q[:, 8 + 3 * j], q[:, 9 + 3 * j], q[:, 10 + 3 * j]
+            c, s_ = np.cos(th), np.sin(th)
+            X = c[:, None] * unit[None, :, 0] - s_[:, None] * unit[None, :, 1] + tx[:, None]
+            Y = s_[:, None] * unit[None, :, 0] + c[:, None] * unit[None, :, 1] + ty[:, None]
+            pts[:, k] = _apply_batch(G, np.stack([X, Y], axis=-1))
+        return pts.reshape(len(q), -1), G
+
+    obs = corners.reshape(S, -1)
+    step = 1e-6
+    for _ in range(iterations):
+        f0, _ = predict(p)
+        r = f0 - obs
+        J = np.empty((S, r.shape[1], p.shape[1]))
+        for j in range(p.shape[1]):
+            dp = p.copy()
+            dp[:, j] += step
+            J[:, :, j] = (predict(dp)[0] - f0) / step
+        JtJ = np.einsum("sri,srj->sij", J, J)
+        JtJ += 1e-9 * np.eye(p.shape[1])[None] * (np.trace(JtJ, axis1=1, axis2=2)[:, None, None] + 1e-12)
+        delta = np.linalg.solve(JtJ, -np.einsum("sri,sr->si", J, r)[..., None])[..., 0]
+        p = p + delta
+        if np.nanmax(np.abs(delta)) < 1e-10:
+            break
+    _, G = predict(p)
+    H = Nn @ np.linalg.inv(G)
+    return H / H[:, 2:3, 2:3]
 
 
-def _joint_homography(hits, side_mm, ref, iterations: int = 4) -> np.ndarray:
+def _joint_homography(hits, side_mm, ref, iterations: int = 8) -> np.ndarray:
     corners = np.stack([np.asarray(h.corners_px, np.float64) for h in hits])[None]
     return _joint_batch(corners, side_mm, ref, iterations)[0]
 
@@ -564,47 +623,66 @@ def _monte_carlo(hits, side_mm, ref, joint, pt, K=None) -> tuple[float, float]:
 # =========================================================================== detection
 
 
-def _detector(long_side: int) -> cv2.aruco.ArucoDetector:
+def _detector(long_side: int, *, tuned: bool = True) -> cv2.aruco.ArucoDetector:
+    """OpenCV's ArUco detector for DICT_4X4_50.
+
+    ``tuned``: wider adaptive-threshold windows (uneven light, large
+    modules), looser outline approximation (blur, tilt), smaller markers
+    accepted; otherwise OpenCV's defaults except the smallest marker size.
+    The two find different markers in hard photos, so both are run.
+    """
     p = cv2.aruco.DetectorParameters()
-    p.adaptiveThreshWinSizeMin = 3
-    p.adaptiveThreshWinSizeMax = 53
-    p.adaptiveThreshWinSizeStep = 10
-    p.adaptiveThreshConstant = 7
     p.minMarkerPerimeterRate = min(0.03, 4.0 * MIN_DETECT_SIDE_PX / max(long_side, 1))
-    p.maxMarkerPerimeterRate = 4.0
-    p.polygonalApproxAccuracyRate = 0.05  # blurred / tilted outlines
-    p.minCornerDistanceRate = 0.05
-    p.minDistanceToBorder = 1
-    p.minMarkerDistanceRate = 0.05
-    p.perspectiveRemovePixelPerCell = 8
-    p.perspectiveRemoveIgnoredMarginPerCell = 0.2
-    p.maxErroneousBitsInBorderRate = 0.35
-    p.errorCorrectionRate = 0.6
-    p.minOtsuStdDev = 5.0
-    p.cornerRefinementMethod = cv2.aruco.CORNER_REFINE_NONE  # refined below on the full image
+    p.cornerRefinementMethod = cv2.aruco.CORNER_REFINE_NONE  # refined later on the full image
     p.detectInvertedMarker = False
+    if tuned:
+        p.adaptiveThreshWinSizeMin = 3
+        p.adaptiveThreshWinSizeMax = 53
+        p.adaptiveThreshWinSizeStep = 10
+        p.adaptiveThreshConstant = 7
+        p.maxMarkerPerimeterRate = 4.0
+        p.polygonalApproxAccuracyRate = 0.05
+        p.minCornerDistanceRate = 0.05
+        p.minDistanceToBorder = 1
+        p.minMarkerDistanceRate = 0.05
+        p.perspectiveRemovePixelPerCell = 8
+        p.perspectiveRemoveIgnoredMarginPerCell = 0.2
+        p.maxErroneousBitsInBorderRate = 0.35
+        p.errorCorrectionRate = 0.6
+        p.minOtsuStdDev = 5.0
     return cv2.aruco.ArucoDetector(cv2.aruco.getPredefinedDictionary(MARKER_DICT), p)
 
 
 def _detect_at_scale(gray: np.ndarray, s: float):
+    """Markers found by either detector on ``gray`` reduced by ``s``; corners in full-size px."""
     h, w = gray.shape
     if s < 1.0:
-        ws, hs = max(1, round(w * s)), max(1, round(h * s))
-        img = cv2.resize(gray, (ws, hs), interpolation=cv2.INTER_AREA)
-        sx, sy = ws / w, hs / h
+        f = int(round(1.0 / s))
+        ws, hs = w // f, h // f  # crop to whole blocks (at most f - 1 px at the right and bottom)
+        img = cv2.resize(gray[: hs * f, : ws * f], (ws, hs), interpolation=cv2.INTER_AREA)
+        sx = sy = 1.0 / f
     else:
         img, sx, sy = gray, 1.0, 1.0
-    corners, ids, rejected = _detector(max(img.shape)).detectMarkers(img)
-    out = []
-    if ids is not None:
-        for c in corners:
+    out: list[np.ndarray] = []
+    out_ids: list[int] = []
+    n_rejected = None
+    for tuned in (True, False):
+        corners, ids, rejected = _detector(max(img.shape), tuned=tuned).detectMarkers(img)
+        if n_rejected is None:
+            n_rejected = 0 if rejected is None else len(rejected)
+        if ids is None:
+            continue
+        for c, i in zip(corners, np.asarray(ids).ravel()):
             c = np.asarray(c, np.float64).reshape(4, 2)
             # pixel centres at integers in both images
             c[:, 0] = (c[:, 0] + 0.5) / sx - 0.5
             c[:, 1] = (c[:, 1] + 0.5) / sy - 0.5
+            side = float(np.mean(np.hypot(*(np.roll(c, -1, axis=0) - c).T)))
+            if any(int(i) == j and np.hypot(*(c.mean(0) - o.mean(0))) < 0.5 * side for o, j in zip(out, out_ids)):
+                continue  # the same marker from the other detector
             out.append(c)
-        ids = [int(i) for i in np.asarray(ids).ravel()]
-    return out, ids or [], rejected if rejected is not None else []
+            out_ids.append(int(i))
+    return out, out_ids, n_rejected or 0
 
 
 # =========================================================================== sub-pixel outline

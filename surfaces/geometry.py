@@ -60,8 +60,10 @@ def fit_line_tls(
     def _fit(mask):
         sel = pts[mask]
         c = sel.mean(axis=0)
-        _, _, vt = np.linalg.svd(sel - c, full_matrices=False)
-        d = vt[0]
+        q = sel - c
+        # principal axis of the 2x2 scatter matrix (same line as the SVD of q, cheaper)
+        _, vecs = np.linalg.eigh(q.T @ q)
+        d = vecs[:, 1]
         return c, d, (pts - c) @ np.array([-d[1], d[0]])
 
     if keep.sum() < 2:
