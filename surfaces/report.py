@@ -458,6 +458,53 @@ def _row_points(row: dict) -> np.ndarray:
     return np.zeros((0, 2))
 
 
+def _overlaps(box, boxes) -> bool:
+    return any(box[0] < b[2] and b[0] < box[2] and box[1] < b[3] and b[1] < box[3] for b in boxes)
+
+
+def _place_label(v, lab_w, text_h, msize, lw, width, height, placed, obstacles=()):
+    """Marker position ``(x, baseline y)`` for a label beside outline ``v``.
+
+    Candidates around the outline (right, left, above, below, then further
+    out) are tried nearest first; a candidate must not overlap a label
+    already placed and preferably no other outline.  Falls back to the
+    nearest candidate that fits on the photo.
+    """
+    box_w = 2 * msize + lw * 4 + lab_w
+    step = text_h * 1.6
+    x0, x1 = float(v[:, 0].min()), float(v[:, 0].max())
+    y0, y1 = float(v[:, 1].min()), float(v[:, 1].max())
+    cx, cy = (x0 + x1) / 2, (y0 + y1) / 2
+    cands = []
+    for k in range(8):
+        d = k * step
+        cands += [
+            (x1 + lw * 2 + msize + d, y0 + text_h / 2), (x1 + lw * 2 + msize + d, y1),
+            (x0 - box_w - lw * 2 - d, y0 + text_h / 2), (x0 - box_w - lw * 2 - d, y1),
+            (cx - box_w / 2, y0 - lw * 3 - d), (cx - box_w / 2, y1 + text_h + lw * 3 + d),
+        ]
+    cands.sort(key=lambda c: math.hypot(c[0] + box_w / 2 - cx, c[1] - text_h / 2 - cy))
+    fallback = None
+    for x, y in cands:
+        y = min(max(y, text_h + 2.0), height - 2.0)
+        if x - msize < 0 or x + box_w > width:
+            continue
+        box = (x - msize, y - text_h - lw * 2, x + box_w, y + lw * 2)
+        if _overlaps(box, placed):
+            continue
+        if fallback is None:
+            fallback = (x, y, box)
+        if not _overlaps(box, obstacles):
+            placed.append(box)
+            return x, y
+    if fallback is None:  # crowded: the outline's top-left, inside the photo
+        x = min(max(x0, float(msize)), max(float(msize), width - box_w))
+        y = min(max(y0, text_h + 2.0), height - 2.0)
+        fallback = (x, y, (x - msize, y - text_h, x + box_w, y))
+    placed.append(fallback[2])
+    return fallback[0], fallback[1]
+
+
 def render_overlay(photo_rgb: np.ndarray, assessment: dict, *, max_side: int = 2400) -> np.ndarray:
     """Draw the assessment on the photo.
 
@@ -509,7 +556,8 @@ def render_overlay(photo_rgb: np.ndarray, assessment: dict, *, max_side: int = 2
     order = sorted(range(len(rows)), key=lambda i: str(rows[i].get("status")) != "dismissed")
     text_h = cv2.getTextSize("0", cv2.FONT_HERSHEY_SIMPLEX, fs, tthick)[0][1]
     msize = max(3, round(text_h * 0.38))
-    for i in order:
+    drawn = []
+    for i in order:  # outlines first, so no outline crosses a label drawn later
         r = rows[i]
         style, dismissed = _style_for(r)
         pts = _row_points(r)
@@ -517,15 +565,14 @@ def render_overlay(photo_rgb: np.ndarray, assessment: dict, *, max_side: int = 2
             continue
         v = to_view(pts)
         _polyline(view, v, style.rgb, lw, style.dash)
+        drawn.append((r, i, style, dismissed, v))
+    placed: list[tuple[float, float, float, float]] = []
+    obstacles = [(float(v[:, 0].min()) - lw, float(v[:, 1].min()) - lw, float(v[:, 0].max()) + lw,
+                  float(v[:, 1].max()) + lw) for *_, v in drawn]
+    for r, i, style, dismissed, v in drawn:
         label = str(r.get("id", i + 1)) + ("m" if str(r.get("source")) == "manual" else "")
-        x_right = float(v[:, 0].max()) + lw * 2 + msize
-        y_top = float(v[:, 1].min())
         lab_w = cv2.getTextSize(label, cv2.FONT_HERSHEY_SIMPLEX, fs, tthick)[0][0]
-        mx = x_right + msize
-        if mx + msize + lab_w + lw * 4 > lay.photo_w:  # keep the label on the photo
-            mx = float(v[:, 0].min()) - lab_w - 3 * msize - lw * 4
-        my = max(y_top, text_h + 2.0)
-        my = min(my, lay.photo_h - 2.0)
+        mx, my = _place_label(v, lab_w, text_h, msize, lw, lay.photo_w, lay.photo_h, placed, obstacles)
         mc = np.array([mx, my - text_h / 2])
         near = v[int(np.argmin(np.hypot(*(v - mc).T)))]
         if np.hypot(*(near - mc)) > msize * 1.5:  # leader line: which outline this label names
