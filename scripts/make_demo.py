@@ -71,18 +71,23 @@ def build(folder: Path) -> None:
 
 
 def check(folder: Path) -> int:
+    from surfaces.model import SurfacesError
     from surfaces.photo import load_photo
     from surfaces.pipeline import assess
 
     story = {c.coupon_id: c for c in demo.SCENARIO}
     bad = 0
     for row in demo.read_manifest(folder):
-        res = assess(load_photo(folder / row["photo"]), demo.settings_for(row))
-        got = res.assessment["verdict"]["result"]
         want = story[row["coupon_id"]].expect
+        try:
+            res = assess(load_photo(folder / row["photo"]), demo.settings_for(row))
+        except SurfacesError as err:
+            got, reasons = "error", str(err)
+        else:
+            got = res.assessment["verdict"]["result"]
+            reasons = "; ".join(res.assessment["verdict"]["reasons"][:2])
         mark = "ok " if got == want else "BAD"
         bad += got != want
-        reasons = "; ".join(res.assessment["verdict"]["reasons"][:2])
         print(f"{mark} {row['coupon_id']:<14} {row['test']:<12} story {want:<7} pipeline {got:<7} {reasons[:150]}")
     size = sum(p.stat().st_size for p in folder.iterdir() if p.is_file()) / 1e6
     print(f"demo folder: {size:.1f} MB")

@@ -124,6 +124,8 @@ def _settings_for_truth(truth: dict):
     for key in ("thickness_mm", "coupon_thickness_mm"):
         if isinstance(p.get(key), (int, float)):
             nominal.setdefault("thickness_mm", round(float(p[key]), 1))
+    if test == "bend" and "thickness_mm" in nominal:  # a bend coupon spans the wall of the test piece
+        nominal.setdefault("wall_mm", nominal["thickness_mm"])
     if isinstance(width, (int, float)) and width > 0 and test in ("fillet-break", "nick-break"):
         nominal.setdefault("throat_mm" if test == "fillet-break" else "wall_mm", round(float(width), 1))
     kw = {}
