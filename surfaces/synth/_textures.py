@@ -115,8 +115,11 @@ def fracture(rng: np.random.Generator, shape: tuple[int, int], r: float, light_a
     sparkle_p = rng.uniform(0.02, 0.08)
     cryst = 0.45 + 0.18 * level + 0.35 * tilt
     cryst += np.float32(rng.uniform(0.2, 0.45)) * np.clip((level - (1 - sparkle_p)) / sparkle_p, 0, 1)
-    fib = _noise.fractal(rng, shape, 1.5 * r, cell_y=max(0.07 * r, 0.6), angle_deg=fib_ang, octaves=3)
-    fibrous = 0.5 + 0.1 * fib
+    # ductile, fibrous fracture: short directional fibres over a fine dimpled ground
+    fib_len = rng.uniform(0.4, 1.2)
+    fib = _noise.fractal(rng, shape, fib_len * r, cell_y=max(0.1 * r, 0.6), angle_deg=fib_ang, octaves=3)
+    dimples = _noise.value(rng, shape, max(0.08 * r, 0.6))
+    fibrous = 0.5 + 0.07 * fib + 0.06 * dimples
     fine = _noise.value(rng, shape, max(0.05 * r, 0.6))
     relief = _noise.fractal(rng, shape, rng.uniform(1.5, 4.0) * r, octaves=4) * np.float32(rng.uniform(0.08, 0.35) * r)
     shade = _noise.shade(relief, light_az, strength=0.4)
