@@ -592,9 +592,10 @@ class Store:
         """Reject rates and most frequent reasons, grouped by coupon fields.
 
         Counts the latest assessment of each photo and coupon only (a photo
-        assessed again does not count twice).  Reasons are grouped with their
-        numbers replaced by ``#`` so that "pore 2.4 mm > 2.0 mm" and
-        "pore 3.1 mm > 2.0 mm" count as one reason.
+        assessed again does not count twice).  Reasons are counted per rule
+        that failed or needed review (``rule: limit``, from the verdict's
+        details), once per assessment; verdicts without details count their
+        reason texts with numbers replaced by ``#``.
         """
         by = tuple(by)
         allowed = {"batch", "procedure", "position", "process", "material", "welder", "test"}
@@ -619,7 +620,7 @@ class Store:
                 v = verdicts.get(int(aid)) or {}
                 if v.get("result") == "accept":
                     continue
-                for reason in set(_reason_pattern(x) for x in v.get("reasons") or []):
+                for reason in _reason_keys(v):
                     reasons[reason] += 1
             top = "; ".join(f"{r} ({c})" for r, c in reasons.most_common(3))
             groups.append(dict(zip(keys, key)) | {
@@ -703,6 +704,17 @@ def sha256_file(path: Path) -> str:
         for chunk in iter(lambda: fh.read(1 << 20), b""):
             h.update(chunk)
     return h.hexdigest()
+
+
+def _reason_keys(verdict: dict) -> set[str]:
+    keys = set()
+    for d in verdict.get("details") or []:
+        if isinstance(d, dict) and d.get("rule") and d.get("status") in ("fail", "review"):
+            limit = f": {d['limit']}" if d.get("limit") else ""
+            keys.add(f"{d['rule']}{limit}" + (" (review)" if d.get("status") == "review" else ""))
+    if not keys:
+        keys = {_reason_pattern(x) for x in verdict.get("reasons") or []}
+    return keys
 
 
 def _reason_pattern(reason: str) -> str:
