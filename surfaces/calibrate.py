@@ -9,7 +9,8 @@ How the marker is measured
 1. **Detection.**  OpenCV's ``ArucoDetector`` looks for DICT_4X4_50 markers
    (any id) in the whole photo, once with parameters tuned for uneven light,
    blur and tilt and once with OpenCV's defaults (each finds markers the
-   other misses; the results are merged).  Large photos are searched on a
+   other misses; the results are merged; the retries below run them one
+   after the other).  Large photos are searched on a
    copy reduced by the smallest whole number that brings the long side to at
    most ``DETECT_LONG_SIDE_PX``; when nothing is found there, the search is
    repeated at full resolution (small markers) and at a long side near half
@@ -212,8 +213,8 @@ def detect_markers(gray: np.ndarray) -> tuple[list[MarkerHit], int]:
 
     n_rejected = -1
     found: list[tuple[int, np.ndarray]] = []
-    for s in scales:
-        corners, ids, rejected = _detect_at_scale(gray, s)
+    for k, s in enumerate(scales):
+        corners, ids, rejected = _detect_at_scale(gray, s, union=k == 0)
         if n_rejected < 0:
             n_rejected = rejected
         if corners:
@@ -653,8 +654,12 @@ def _detector(long_side: int, *, tuned: bool = True) -> cv2.aruco.ArucoDetector:
     return cv2.aruco.ArucoDetector(cv2.aruco.getPredefinedDictionary(MARKER_DICT), p)
 
 
-def _detect_at_scale(gray: np.ndarray, s: float):
-    """Markers found by either detector on ``gray`` reduced by ``s``; corners in full-size px."""
+def _detect_at_scale(gray: np.ndarray, s: float, *, union: bool = True):
+    """Markers found on ``gray`` reduced by ``s``; corners in full-size px.
+
+    ``union``: run both detector settings and merge; otherwise OpenCV's
+    defaults first (faster) and the tuned settings only if those find nothing.
+    """
     h, w = gray.shape
     if s < 1.0:
         f = int(round(1.0 / s))
@@ -666,7 +671,9 @@ def _detect_at_scale(gray: np.ndarray, s: float):
     out: list[np.ndarray] = []
     out_ids: list[int] = []
     n_rejected = None
-    for tuned in (True, False):
+    for tuned in (True, False) if union else (False, True):
+        if out and not union:
+            break
         corners, ids, rejected = _detector(max(img.shape), tuned=tuned).detectMarkers(img)
         if n_rejected is None:
             n_rejected = 0 if rejected is None else len(rejected)
