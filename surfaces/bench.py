@@ -254,7 +254,7 @@ def batch_throughput(paths: list[Path], settings_list: list, workers: int) -> di
 def run_speed(*, sizes: list[float], repeat: int, seed: int, batch_n: int, workdir: Path,
               say=print) -> dict:
     """The speed and memory part of the bench (see the module docstring)."""
-    out = {"cpu_count": os.cpu_count(), "repeat": repeat, "sizes": []}
+    out = {"cpu_count": os.cpu_count(), "repeat": repeat, "sizes": [], "loadavg_before": _loadavg()}
     for mp in sizes:
         say(f"speed: rendering and timing a {mp:g} MP photo in a fresh process ...")
         path = _write_speed_photo(workdir, mp, seed)
@@ -279,7 +279,16 @@ def run_speed(*, sizes: list[float], repeat: int, seed: int, batch_n: int, workd
     b2 = batch_throughput(bpaths, bset, 2)
     out["batch"] = {"one": b1, "two": b2, "ratio": b2["photos_per_s"] / b1["photos_per_s"],
                     "megapixels": 4.0}
+    out["loadavg_after"] = _loadavg()
     return out
+
+
+def _loadavg() -> float | None:
+    """1-minute load average (other work on the machine skews every timing)."""
+    try:
+        return round(os.getloadavg()[0], 2)
+    except (OSError, AttributeError):
+        return None
 
 
 # --------------------------------------------------------------------------- accuracy
@@ -592,7 +601,8 @@ def format_table(report: dict) -> str:
     L = []
     sp = report.get("speed")
     if sp:
-        L.append(f"SPEED ({sp['cpu_count']} CPU, {sp['repeat']} timed runs after 1 warm-up, fresh process per size)")
+        L.append(f"SPEED ({sp['cpu_count']} CPU, {sp['repeat']} timed runs after 1 warm-up, fresh process per size; "
+                 f"load average {sp.get('loadavg_before')} before, {sp.get('loadavg_after')} after)")
         L.append(f"  {'MP':>5} {'median s':>9} {'worst s':>8} {'cold s':>7} {'floor s':>8} {'x floor':>8} {'peak MB':>8}")
         for s in sp["sizes"]:
             if "error" in s:

@@ -219,8 +219,8 @@ class DemoReview:
     """An inspector's review of one demo coupon.
 
     ``measure``: the inspector's own reading of the greatest dimension (mm) of
-    the imperfection nearest the truth imperfection ``truth_index``
-    (status ``edited``, 1-sigma ``u_mm``); ``dismiss_unmatched``: dismiss every
+    the detection matched to the truth imperfection ``truth_index`` (status
+    ``edited``, 1-sigma ``u_mm``; the kind set to what the inspector sees); ``dismiss_unmatched``: dismiss every
     detection that matches no truth imperfection (a mark, not a defect).
     """
 
@@ -328,11 +328,13 @@ def reviewed_assessment(assessment: dict, truth: dict, review: DemoReview) -> di
             t["area_u_mm2"] = 2 * review.u_mm * max(t.get("greatest_mm") or 0, 0.1)
             rows.append({k: (None if isinstance(v, float) and not math.isfinite(v) else v) for k, v in t.items()})
         else:
-            measured[did] = reading
+            measured[did] = (reading, truth["imperfections"][ti])
     for r in rows:
         rid = int(r["id"])
-        if rid in measured:
-            r.update(status="edited", greatest_mm=measured[rid], greatest_u_mm=review.u_mm)
+        if rid in measured:  # the inspector's reading, and the kind the inspector sees
+            reading, t = measured[rid]
+            r.update(status="edited", greatest_mm=reading, greatest_u_mm=review.u_mm, kind=t["kind"],
+                     iso6520=str(t.get("iso6520") or r.get("iso6520") or ""))
         elif review.dismiss_unmatched and rid in unmatched and r.get("source") != "manual":
             r["status"] = "dismissed"
         elif review.confirm_rest and r.get("status") == "auto":

@@ -28,6 +28,8 @@ import pytest
 
 from surfaces import bench
 
+pytestmark = pytest.mark.slow  # about 5 minutes on 2 cores
+
 N_SMALL, EXTRA_12MP, SEED = 30, (12.0, 12.0, 12.0), 20261
 FRAC_WITHIN_TARGET = 0.90
 

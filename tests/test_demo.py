@@ -125,7 +125,7 @@ def test_ensure_demo_fills_an_empty_store(loaded):
     rows = _rows()
     with Store(db) as st:
         h = st.history()
-        assert len(h) == len(rows)
+        assert len(h) == len(rows), f"not every demo coupon was assessed: {s.mismatches}"
         assert set(h["coupon_id"]) == {r["coupon_id"] for r in rows}
         # newest first: the history is in test-date order
         dates = [st.get_coupon(c)["date"] for c in h["coupon_id"]]
@@ -174,6 +174,7 @@ def test_reviews_record_the_inspectors_decision(loaded):
     with Store(db) as st:
         h = st.history().set_index("coupon_id")
         for rv in demo.REVIEWS:
+            assert rv.coupon_id in h.index, f"{rv.coupon_id} was not assessed: {s.mismatches}"
             a = st.get_assessment(int(h.loc[rv.coupon_id, "assessment_id"]))
             assert a["record"]["reviewer"] == demo.INSPECTOR
             assert a["record"]["review_note"] == rv.note
@@ -190,6 +191,7 @@ def test_reviewed_verdicts_follow_the_readings(loaded):
     # API 1104 nick-break, gas pocket at most 1/16 in (1.59 mm): 1.50 + 0.06 passes.
     _, s = loaded
     by = {r["coupon_id"]: r["after"] for r in s.reviews}
+    assert {"BF-2609-FB05", "BF-2610-NB03"} <= set(by), f"not reviewed: {s.mismatches}"
     assert by["BF-2609-FB05"] == "reject"
     assert by["BF-2610-NB03"] == "accept"
 

@@ -228,3 +228,45 @@ def test_truth_band_marks_sizes_within_tolerance_of_a_limit(d_mm, result, border
     truth = _truth([_t("pore", 40, 5, d_mm, starts_at_edge=False)])
     b = ev.truth_band(truth, limit_set=load_limit_set("aws-d1.1-fillet-break"), test="fillet-break")
     assert b["result"] == result and b["borderline"] is border
+
+
+# --------------------------------------------------------------------------- the bench's use of the scores
+
+
+def test_bench_targets_met_and_not_met():
+    from surfaces import bench
+
+    rep = {
+        "speed": {"cpu_count": 2, "repeat": 3, "sizes": [
+            {"mp_nominal": 12.0, "megapixels": 12.0, "median_s": 0.8, "worst_s": 0.9, "cold_s": 1.5,
+             "floor_median_s": 0.2, "floor_ratio": 4.0, "peak_mb": 1500.0},
+        ], "batch": {"ratio": 1.7, "megapixels": 4.0, "one": {"photos": 6, "photos_per_s": 1.0},
+                     "two": {"photos": 6, "photos_per_s": 1.7}}},
+        "accuracy": {"generated": {"n_false_accepts": 1, "borderline": {"n": 4, "review": 3, "items": []}}},
+    }
+    got = {t["target"]: t["met"] for t in bench.targets(rep)}
+    assert got == {"speed_12mp_s": True, "floor_ratio_12mp": True, "memory_12mp_mb": False, "batch_ratio": True,
+                   "false_accepts": False, "borderline_review": False}
+    assert "NOT MET" in bench.format_table({"speed": rep["speed"], "targets": bench.targets(rep)})
+
+
+def test_bench_floor_and_memory_are_measured(tmp_path):
+    import cv2
+
+    from surfaces import bench
+
+    p = tmp_path / "a.png"
+    cv2.imwrite(str(p), np.full((300, 400, 3), 128, np.uint8))
+    assert bench.floor_time(p) > 0
+    assert bench.peak_rss_mb() > 10  # an interpreter with numpy loaded holds more than 10 MB
+    with pytest.raises(bench.BenchError, match="cannot decode"):
+        (tmp_path / "b.png").write_bytes(b"not an image")
+        bench.floor_time(tmp_path / "b.png")
+
+
+def test_bench_bad_option_is_one_line(capsys):
+    from surfaces.cli import main
+
+    assert main(["bench", "--sizes", "3,x"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err and "--sizes" in err[-1]

@@ -24,9 +24,10 @@ from surfaces.bench import DEFAULT_REALDATA, format_table, realdata_recall
 RECALL_FLOOR = 0.3
 FREE_COVER_CEILING = 0.25
 
-pytestmark = pytest.mark.skipif(
-    not (DEFAULT_REALDATA / "load.py").exists(), reason=f"no realdata folder at {DEFAULT_REALDATA}"
-)
+pytestmark = [
+    pytest.mark.skipif(not (DEFAULT_REALDATA / "load.py").exists(), reason=f"no realdata folder at {DEFAULT_REALDATA}"),
+    pytest.mark.slow,
+]
 
 
 @pytest.fixture(scope="module")
