@@ -144,3 +144,24 @@ def test_other_views_render(page, screenshot_dir):
             expect(page.get_by_role("button", name=re.compile(last))).to_be_visible()
         expect(page.get_by_test_id("stException")).to_have_count(0)
         full_screenshot(page, screenshot_dir / shot)
+
+
+def test_first_view_is_a_worked_example_and_a_bad_upload_keeps_it(page, screenshot_dir, tmp_path):
+    from playwright.sync_api import expect
+
+    if not (ROOT / "demo_images" / "manifest.csv").is_file():
+        pytest.skip("no demo photos installed (demo_images/manifest.csv)")
+    verdict = page.locator(".st-key-verdict")
+    expect(verdict).to_contain_text(VERDICT, timeout=120_000)  # the demo photo is assessed at once
+    expect(page.get_by_label("Coupon id")).not_to_have_value("")
+    full_screenshot(page, screenshot_dir / "0-first-view.png")
+    shown = VERDICT.search(verdict.inner_text()).group(0)
+    bad = tmp_path / "holiday.jpg"
+    bad.write_bytes(b"this is a shopping list, not a photo\n" * 40)
+    page.locator(".st-key-step_photo").get_by_text("Upload a photo", exact=True).click()
+    page.get_by_test_id("stFileUploaderDropzoneInput").set_input_files(str(bad))
+    expect(page.get_by_test_id("stAlertContentError").first).to_contain_text("holiday.jpg")
+    expect(page.get_by_test_id("stException")).to_have_count(0)
+    expect(page.get_by_text("last photo that worked")).to_be_visible()
+    expect(verdict).to_contain_text(shown)  # the earlier result is still there
+    full_screenshot(page, screenshot_dir / "7-bad-upload.png")

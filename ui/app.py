@@ -492,7 +492,9 @@ def pictures_panel(w, auto: dict, reviewed: dict) -> None:
         st.markdown(f"**Imperfections:** {sum(r.get('status') != 'dismissed' for r in rows)} judged, "
                     f"{sum(r.get('status') == 'dismissed' for r in rows)} dismissed. Sizes in mm on the face "
                     "plane, ± one standard uncertainty; a number with m was added by the inspector.")
-        st.dataframe(imperfection_frame(rows), hide_index=True, width="stretch", key=f"table_{w.key}")
+        st.dataframe(imperfection_frame(rows), hide_index=True, width="stretch", key=f"table_{w.key}",
+                     column_config={"review": st.column_config.TextColumn(width="medium"),
+                                    "kind": st.column_config.TextColumn(width="medium")})
 
 
 def _face_picture(w, auto: dict, rows: list[dict]) -> bytes:

@@ -140,19 +140,25 @@ def encode_jpeg(rgb: np.ndarray, *, quality: int = 88) -> bytes:
 def zoom_box(bbox_px, photo_wh: tuple[int, int], *, zoom: float) -> tuple[int, int, int, int]:
     """A crop box (photo px) centred on ``bbox_px``, ``zoom`` times tighter than the whole photo.
 
-    The box keeps the photo's aspect ratio, is never smaller than the
-    imperfection plus a margin, and stays inside the photo.
+    The box is landscape (4:3 or the photo's own wider ratio, so the overlay's
+    banner and legend fit across it), never smaller than the imperfection plus
+    a margin, and stays inside the photo.
     """
     W, H = photo_wh
+    aspect = max(W / H, 4 / 3)
     x0, y0, x1, y1 = (float(v) for v in bbox_px)
     cx, cy = (x0 + x1) / 2, (y0 + y1) / 2
     w = max(W / max(zoom, 1.0), (x1 - x0) * 1.6, 40.0)
     h = max(H / max(zoom, 1.0), (y1 - y0) * 1.6, 40.0)
-    # keep the aspect ratio of the photo
-    if w / h > W / H:
-        h = w * H / W
+    if w / h > aspect:
+        h = w / aspect
     else:
-        w = h * W / H
+        w = h * aspect
+    return _inside(cx, cy, w, h, W, H)
+
+
+def _inside(cx: float, cy: float, w: float, h: float, W: int, H: int) -> tuple[int, int, int, int]:
+    """The box of size w x h centred near (cx, cy), shifted (and at most cut) to lie inside the photo."""
     w, h = min(w, W), min(h, H)
     left = int(round(min(max(cx - w / 2, 0), W - w)))
     top = int(round(min(max(cy - h / 2, 0), H - h)))
@@ -160,16 +166,15 @@ def zoom_box(bbox_px, photo_wh: tuple[int, int], *, zoom: float) -> tuple[int, i
 
 
 def margin_box(bbox_px, photo_wh: tuple[int, int], *, margin: float = 0.08,
-               min_aspect: float = 0.3) -> tuple[int, int, int, int]:
-    """``bbox_px`` grown by ``margin`` of its long side, at least ``min_aspect`` as tall (or wide) as long."""
+               min_aspect: float = 4 / 3) -> tuple[int, int, int, int]:
+    """``bbox_px`` grown by ``margin`` of its long side, and widened to at least ``min_aspect`` (width/height)."""
     W, H = photo_wh
     x0, y0, x1, y1 = (float(v) for v in bbox_px)
-    w, h = max(x1 - x0, 1.0), max(y1 - y0, 1.0)
-    m = margin * max(w, h)
-    w2, h2 = max(w + 2 * m, min_aspect * (h + 2 * m)), max(h + 2 * m, min_aspect * (w + 2 * m))
-    cx, cy = (x0 + x1) / 2, (y0 + y1) / 2
-    left, top = max(0, int(cx - w2 / 2)), max(0, int(cy - h2 / 2))
-    return left, top, min(W, int(cx + w2 / 2)), min(H, int(cy + h2 / 2))
+    m = margin * max(x1 - x0, y1 - y0, 1.0)
+    w, h = max(x1 - x0, 1.0) + 2 * m, max(y1 - y0, 1.0) + 2 * m
+    w = max(w, h * min_aspect)
+    h = max(h, w * 0.3)  # a long face still gets some height
+    return _inside((x0 + x1) / 2, (y0 + y1) / 2, w, h, W, H)
 
 
 def face_with_boxes(face_rgb: np.ndarray, records: list[dict], *, px_per_mm: float,
