@@ -338,8 +338,12 @@ def _scale_to_8bit(arr: np.ndarray, notes: list[str], what: str) -> np.ndarray:
     if arr.dtype.kind == "f":
         a = np.nan_to_num(arr.astype(np.float32), nan=0.0, posinf=0.0, neginf=0.0)
         top = float(a.max()) if a.size else 0.0
-        divisor = 1.0 / 255.0 if top <= 1.0 else (2.0 ** max(8, math.ceil(math.log2(top + 1))) - 1) / 255.0
-        notes.append(f"{what} floating-point data divided by {divisor:.6g} to 8-bit")
+        if top <= 1.0:
+            divisor = 1.0 / 255.0
+            notes.append(f"{what} floating-point data taken as 0..1 and scaled to 0..255")
+        else:
+            divisor = (2.0 ** max(8, math.ceil(math.log2(top + 1))) - 1) / 255.0
+            notes.append(f"{what} floating-point data (maximum {top:g}) divided by {divisor:.6g} to 8-bit")
         return np.clip(a / divisor + 0.5, 0, 255).astype(np.uint8)
     top = int(arr.max()) if arr.size else 0
     if int(arr.min()) < 0:

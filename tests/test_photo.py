@@ -350,3 +350,25 @@ def test_exif_orientation_on_16bit_colour_png(tmp_path, value):
     assert photo.rgb.shape == (H, W, 3)
     for got, want in zip(_quadrant_means(photo.rgb), (TL, TR, BL, BR)):
         assert np.abs(got - np.array(want)).max() < 1.0
+
+
+@pytest.mark.parametrize("fmt", ["WEBP", "BMP"])
+def test_other_formats(tmp_path, fmt):
+    path = tmp_path / f"p.{fmt.lower()}"
+    Image.fromarray(display_pattern()).save(path, format=fmt, **({"lossless": True} if fmt == "WEBP" else {}))
+    photo = load_photo(path)
+    assert photo.source_format == fmt
+    np.testing.assert_array_equal(photo.rgb, display_pattern())
+
+
+def test_float_and_32bit_integer_tiff(tmp_path):
+    f = np.linspace(0, 1, 300 * 400, dtype=np.float32).reshape(300, 400)
+    Image.fromarray(f, "F").save(tmp_path / "f.tif")
+    photo = load_photo(tmp_path / "f.tif")
+    assert photo.source_mode == "F"
+    assert np.abs(photo.gray.astype(float) - np.floor(f * 255 + 0.5)).max() <= 1  # 0..1 -> 0..255
+    i = (np.arange(300 * 400).reshape(300, 400) * 10).astype(np.int32)  # needs 21 bits
+    Image.fromarray(i, "I").save(tmp_path / "i.tif")
+    photo = load_photo(tmp_path / "i.tif")
+    want = np.floor(i / ((2**21 - 1) / 255) + 0.5)  # scaled from the smallest bit depth holding the data
+    assert np.abs(photo.gray.astype(float) - want).max() <= 1
