@@ -176,7 +176,7 @@ def test_limits_check_list_show_copy(tmp_path, capsys, user_home, saved):
     code, out, _ = run(["limits", "check", str(path)], capsys)
     assert code == 0 and out.startswith("ok: shop-fillet version 1, 1 rules, for fillet-break")
     code, out, _ = run(["limits", "list"], capsys)
-    assert code == 0 and len([x for x in out.splitlines() if " preset " in x]) == 10
+    assert code == 0 and len([x for x in out.splitlines() if " preset " in x]) == 11
     code, out, _ = run(["limits", "show", "aws-d1.1-bend"], capsys)
     assert "band-sum: any: greatest sum of sizes over 1/32 in (0.794 mm)" in out
     assert "compared as 3 mm: printed (the safer reading" in out and "edition:" in out

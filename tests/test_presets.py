@@ -32,7 +32,7 @@ def rule(ls: L.LimitSet, rid: str) -> L.Rule:
 
 def test_every_preset_names_source_clause_edition_and_caution():
     names = [p.name for p in L.list_presets()]
-    assert names == sorted(names) and len(names) == 10
+    assert names == sorted(names) and len(names) == 11
     for ls in L.list_presets():
         assert ls.kind == "preset" and ls.source and ls.clause and ls.edition, ls.name
         assert "edition in force" in ls.note, ls.name  # the user must check the edition
@@ -365,3 +365,16 @@ def test_face_dimensions_do_not_matter_where_no_rule_needs_them():
     ls = preset("aws-d1.1-bend")
     assert verdict(ls, imp(1, "pore", 2.0), face={}).result == verdict(ls, imp(1, "pore", 2.0),
                                                                        face=FACE).result
+
+
+def test_asme_fillet_pipe_sum_is_a_tenth_of_the_quarter_section():
+    ls = preset("asme-ix-fillet-break-pipe")
+    # REFERENCES: ASME IX QW-182, pipe (QW-462.4(c)): sum limit = 10 % of the quarter section
+    # (from memory); read as 10 % of the quarter-section length entered as length_mm
+    assert rule(ls, "sum-lengths").confidence == "memory"
+    nom = {"length_mm": 80.0}  # limit 8 mm
+    assert verdict(ls, *[imp(i, "pore", 2.0, along=2.0) for i in range(1, 5)], nominal=nom).result == "accept"
+    assert verdict(ls, *[imp(i, "pore", 2.0, along=2.1) for i in range(1, 5)], nominal=nom).result == "reject"
+    v = verdict(ls, imp(1, "pore", 2.0))
+    assert v.result == "review" and "length_mm" in v.reasons[0]
+    assert verdict(ls, imp(1, "crack", 0.5), nominal=nom).result == "reject"
