@@ -82,6 +82,7 @@ END_ZONE_MM = 2.5  # an opening wholly this close to an end, touching the ignore
 BACKGROUND_MM = 6.0  # window of the local background median
 SCRATCH_ALIGN_DEG = 12.0
 MERGE_GAP_MM = 0.4  # pieces of one opening closer than this are one opening
+TIP_DEPTH = 0.38  # fraction of an elongated opening's depth at which its outline is taken
 
 
 # --------------------------------------------------------------------------
@@ -335,7 +336,7 @@ def _coarse_coupon(rgb, gray, calib: Calibration, roi_poly):
     # the table: first what lies along the border of the searched region, then everywhere
     # that does not differ from it, interpolated under the coupon
     dist_in = cv2.distanceTransform(allowed.astype(np.uint8), cv2.DIST_L2, 3) / s
-    ring = allowed & (dist_in < max(6.0, 0.06 * float(min(hi - lo))))
+    ring = allowed & (dist_in < (2.5 if roi_poly is not None else max(6.0, 0.06 * float(min(hi - lo)))))
     if ring.sum() < 50:
         ring = allowed
     ref = np.broadcast_to(np.median(feat[ring], axis=0), feat.shape)
@@ -971,7 +972,7 @@ def find_openings(
     for i, sl in enumerate(ndi.find_objects(lab), start=1):
         if sl is None or (lab[sl] == i).sum() < speck_px:
             continue
-        d = _trace_opening(i, sl, lab, gs, bg, ridge_mask, labc, mm=mm, sig=sig, close_k=close_k)
+        d = _trace_opening(i, sl, lab, gs, bg, ridge_mask, labc, seed_mask, mm=mm, sig=sig, close_k=close_k)
         if d is None or d.features["greatest_mm"] < max(min_size_mm, 0.2):
             continue
         f = d.features
@@ -987,9 +988,11 @@ def find_openings(
         if hug or hug_end:
             continue
         # grinding / machining marks: long, shallow, parallel to the face's line family
-        if coherence > 0.1 and _angle_diff(f["angle_rad"], theta_lines) < math.radians(SCRATCH_ALIGN_DEG):
+        long_thin = f["greatest_mm"] > 2.5 or f["aspect"] > 6
+        if coherence > 0.1 and long_thin and _angle_diff(f["angle_rad"], theta_lines) < math.radians(SCRATCH_ALIGN_DEG):
             if f["contrast"] < 0.3 or f["cnr"] < 12:
                 continue
+        f["touches_edge"] = bool(min(f["y0_mm"], W - f["y1_mm"]) < 0.25)
         kind, iso, conf = _bend_kind(f)
         d.kind, d.iso6520, d.confidence = kind, iso, conf
         d.cause = {"pore": "pore", "inclusion": "slag"}.get(kind, "")
@@ -1005,12 +1008,40 @@ def _robust_sigma(x: np.ndarray) -> float:
     return float(1.4826 * np.median(np.abs(x - np.median(x)))) or 1e-3
 
 
+def _extend_tips(region, patch, b, contrast, level, inner):
+    """Follow a thin opening out to its tapering tips.
+
+    A crack narrows to nothing at its ends; once narrower than the photo's
+    blur it is no longer half as dark as its core, so the half-depth outline
+    stops short.  For an elongated region the outline is taken at
+    :data:`TIP_DEPTH` of the depth instead, as long as that only lengthens it
+    (its area may at most double).
+    """
+    ys, xs = np.nonzero(region)
+    if len(xs) < 6:
+        return region, level
+    cov = np.cov(np.c_[xs, ys].T.astype(float))
+    ev = np.sort(np.linalg.eigvalsh(cov))
+    if ev[0] <= 0 or math.sqrt(ev[1] / ev[0]) < 3.0:
+        return region, level
+    lvl2 = b - TIP_DEPTH * contrast
+    rl, _ = ndi.label((patch < lvl2) & inner, structure=np.ones((3, 3)))
+    keep = np.unique(rl[region])
+    keep = keep[keep > 0]
+    if not keep.size:
+        return region, level
+    reg2 = np.isin(rl, keep) | region
+    if reg2.sum() > 2.0 * region.sum():
+        return region, level
+    return ndi.binary_fill_holes(reg2), lvl2
+
+
 def _disk(radius_px: float) -> np.ndarray:
     r = max(1, int(round(radius_px)))
     return cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1))
 
 
-def _trace_opening(i, sl, lab, gs, bg, ridge_mask, labc, *, mm: float, sig: float, close_k) -> Detection | None:
+def _trace_opening(i, sl, lab, gs, bg, ridge_mask, labc, inner_mask, *, mm: float, sig: float, close_k) -> Detection | None:
     """Outline one candidate at half depth between its local background and its core."""
     h, w = gs.shape
     r0, r1, c0, c1 = sl[0].start, sl[0].stop, sl[1].start, sl[1].stop
@@ -1031,8 +1062,27 @@ def _trace_opening(i, sl, lab, gs, bg, ridge_mask, labc, *, mm: float, sig: floa
     keep = keep[keep > 0]
     region = np.isin(rl, keep) if keep.size else seed
     region = ndi.binary_fill_holes(cv2.morphologyEx(region.astype(np.uint8), cv2.MORPH_CLOSE, close_k) > 0)
+    # the outermost strip of the face is edge blur: an opening that reaches it runs on to
+    # the edge (straight across the strip), but never spreads along it
+    inner = inner_mask[R0:R1, C0:C1]
+    region &= inner
+    if (~inner).any() and region.any():
+        touch = region & ndi.binary_dilation(~inner, iterations=1)
+        if touch.any():
+            band_cols = touch.any(axis=0)
+            strip = ~inner & band_cols[None, :]
+            # only the rows of the strip on the side the opening touches
+            top = np.zeros_like(inner)
+            rows_out = np.nonzero((~inner).all(axis=1))[0]
+            for r in rows_out:
+                if ndi.binary_dilation(region, iterations=int(EDGE_IGNORE_MM * mm) + 2)[r].any():
+                    top[r] = True
+            region |= strip & top
+    if not region.any():
+        return None
     if region.sum() < 2:
         return None
+    region, level = _extend_tips(region, patch, b, contrast, level, inner)
     val = np.where(region, np.minimum(patch, level - 1), np.maximum(patch, level + 1))
     val = np.where(ndi.binary_dilation(region, iterations=2), val, level + 1)
     cs = skm.find_contours(np.pad(val, 1, constant_values=level + 1), level)
@@ -1074,18 +1124,22 @@ def _bend_kind(f: dict) -> tuple[str, str, float]:
 
     An opening is a crack when it is thin: greatest over least dimension at
     least 2.6, or a mean thickness (area / greatest) under 0.3 mm with a ratio
-    of at least 1.8; a tinted (brown, glassy) or irregular wider one is slag
-    laid open; a rounded, smooth-walled one is an opened pore (common
-    practice).  Confidence grows with the contrast-to-noise ratio and the
+    of at least 1.8, or a wedge opening from a long edge (ratio 1.6); a
+    tinted (brown, glassy) or irregular wider one is slag laid open; a
+    rounded, smooth-walled one is an opened pore (common practice).  Confidence grows with the contrast-to-noise ratio and the
     sharpness of the opening's walls.
     """
     real = _sigmoid((f["cnr"] - 6.0) / 1.2) * _sigmoid((f["edge_sharpness"] - 1.0) / 0.4)
     thick = f["area_mm2"] / max(f["greatest_mm"], 1e-6)
-    if f["aspect"] >= 2.6 or (thick < 0.3 and f["aspect"] >= 1.8):
-        shape = _sigmoid((f["aspect"] - 2.2) / 0.6)
-        return "crack", ISO6520["crack"], round(real * (0.6 + 0.4 * shape), 3)
+    a = f["aspect"]
     slag = _sigmoid((f.get("tint", 0.0) - 3.0) / 1.0) * 0.6 + _sigmoid((0.86 - f["solidity"]) / 0.04) * 0.4
+    crack_shape = a >= 2.6 or (thick < 0.3 and a >= 1.8) or (f.get("touches_edge") and a >= 1.6)
+    if crack_shape and not (slag >= 0.5 and a < 2.6):
+        shape = _sigmoid((a - 2.2) / 0.6)
+        return "crack", ISO6520["crack"], round(real * (0.6 + 0.4 * shape), 3)
     if slag >= 0.5:
         return "inclusion", ISO6520["inclusion"], round(real * (0.5 + 0.5 * slag), 3)
-    iso = ISO6520["pore"] if f["aspect"] < 1.8 else ISO6520["pore-elongated"]
+    if a >= 2.0:
+        return "crack", ISO6520["crack"], round(real * 0.7, 3)
+    iso = ISO6520["pore"] if a < 1.8 else ISO6520["pore-elongated"]
     return "pore", iso, round(real * (0.6 + 0.4 * (1 - slag)), 3)
