@@ -28,10 +28,15 @@ How the marker is measured
 3. **Homography.**  The four corners give the photo -> plane map of that
    marker (plane origin at its top-left corner, X right, Y down, mm).  With
    several markers, each one's scale is compared at a common point; when they
-   agree, all corners are fitted together: one plane -> photo homography and,
-   for every marker but the reference, its unknown turn and shift in the
-   plane, by Gauss-Newton on the corner reprojection error in pixels.  The
+   agree (within ``CONSISTENCY_WARN_PCT`` or three times their own combined
+   uncertainty, whichever is larger), all corners are fitted together: one
+   plane -> photo homography and, for every marker but the reference, its
+   unknown turn and shift in the plane, by Gauss-Newton on the corner
+   reprojection error in pixels.  The
    wider spread of corners pins the perspective far better than one marker.
+   Markers that disagree more are not combined (a warning names them);
+   beyond ``CONSISTENCY_ERROR_PCT`` the photo is refused, as they were most
+   likely printed at different sizes.
 4. **Uncertainty** (1-sigma, percent) combines
 
    * corner localisation: sigma_c per corner coordinate from the line-fit
@@ -49,7 +54,10 @@ How the marker is measured
    normal, from the homography decomposed with an assumed camera: principal
    point at the image centre and a diagonal field of view of
    ``ASSUMED_DIAGONAL_FOV_DEG`` (a typical phone main camera; the true lens is
-   unknown).  Used for warnings and the record, not for the scale.
+   unknown).  Used for warnings and the record, not for the scale; reported
+   as unknown (None) when the corner errors spread it by more than
+   ``TILT_UNKNOWN_SD_DEG`` (small markers), and warned about only when it
+   exceeds ``TILT_WARN_DEG`` by more than twice that spread.
 
 Fallbacks when there is no marker: ``px_per_mm`` (a scale typed by hand) or
 ``ruler`` (two points of a ruler seen in the photo and their distance).
@@ -102,6 +110,8 @@ RULER_CLICK_PX: float = 1.0
 
 ASSUMED_DIAGONAL_FOV_DEG: float = 70.0
 TILT_WARN_DEG: float = 35.0
+#: Report no tilt when its Monte-Carlo spread is wider than this (small markers).
+TILT_UNKNOWN_SD_DEG: float = 10.0
 MODULE_WARN_PX: float = 4.0
 CONSISTENCY_WARN_PCT: float = 2.0
 CONSISTENCY_ERROR_PCT: float = 10.0
@@ -407,7 +417,8 @@ def _calibrate_from_hits(hits, side_mm, eval_pt, hint, size) -> Calibration:
         method=method,
         H=H,
         uncertainty_pct=float(unc),
-        tilt_deg=float(tilt),
+        # a tilt that the corner errors leave this open is not a measurement
+        tilt_deg=float(tilt) if not (tilt_sd > TILT_UNKNOWN_SD_DEG) else None,
         marker_mm=float(side_mm),
         markers=tuple(hits),
         consistency_pct=consistency,

@@ -276,9 +276,12 @@ def test_markers_a_few_percent_apart_warn_and_use_one():
 
 def test_small_marker_warns():
     G = similarity(1.1, 12.0, 600, 500)  # 22 px across, 3.7 px per module
-    cal = calibrate(render((W, H), [(6, 20.0, G)]))
+    cal = calibrate(render((W, H), [(6, 20.0, G)], noise=4))
     assert any("too small" in w and "bigger marker" in w for w in cal.warnings)
     assert abs(scale_error_pct(cal, G)[0]) < 1.0
+    # a 22 px marker cannot tell its tilt: reported as unknown, and no tilt warning from noise
+    assert cal.tilt_deg is None
+    assert not any("tilted" in w for w in cal.warnings)
 
 
 def _assert_how_to(msg: str):
