@@ -157,3 +157,23 @@ def test_marker_modules_match_opencv_pattern():
     np.testing.assert_array_equal(marker_modules(11), want)
     border = marker_modules(11)
     assert border[0].all() and border[-1].all() and border[:, 0].all() and border[:, -1].all()
+
+
+@needs_poppler
+def test_card_photographed_gives_its_scale(tmp_path):
+    """The card as printed, 'photographed' by a known similarity, measured by calibrate()."""
+    from surfaces.calibrate import calibrate
+
+    pdf = write_card(tmp_path / "card.pdf", marker_mm=20.0, marker_id=4)
+    page = rasterise(pdf, tmp_path).astype(np.float32)
+    s, angle = 6.0, 20.0  # photo px per mm, turn of the card in the photo
+    c, si = np.cos(np.radians(angle)), np.sin(np.radians(angle))
+    # page px (centres at integers) -> mm -> photo px
+    page_to_mm = np.array([[1 / PX_PER_MM, 0, 0.5 / PX_PER_MM], [0, 1 / PX_PER_MM, 0.5 / PX_PER_MM], [0, 0, 1]])
+    mm_to_photo = np.array([[s * c, -s * si, 300.0], [s * si, s * c, -150.0], [0, 0, 1]])
+    page = cv2.GaussianBlur(page, (0, 0), 0.5 * PX_PER_MM / s)  # optics: no aliasing when reducing
+    photo = cv2.warpPerspective(page, mm_to_photo @ page_to_mm, (1600, 1400), flags=cv2.INTER_LINEAR, borderValue=255)
+    cal = calibrate(np.clip(photo, 0, 255).astype(np.uint8))
+    assert [m.marker_id for m in cal.markers] == [4]
+    # analytic: a similarity has the same scale s everywhere
+    assert abs(cal.px_per_mm_at(800, 700) / s - 1) < 0.003
