@@ -410,8 +410,9 @@ def _calibrate_from_hits(hits, side_mm, eval_pt, hint, size) -> Calibration:
         )
     if mc > EXTRAPOLATION_WARN_PCT:
         warnings.append(
-            f"the face is far from the marker for the marker's size in the photo (scale uncertain by {mc:.1f} %): "
-            "put the marker closer to the face or use a bigger marker"
+            f"{'the face' if hint is not None else 'the photo centre'} is far from the marker for the marker's "
+            f"size in the photo (scale uncertain there by {mc:.1f} %): put the marker closer to the face "
+            "or use a bigger marker"
         )
     return Calibration(
         method=method,

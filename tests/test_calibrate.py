@@ -333,6 +333,8 @@ def test_uncertainty_grows_with_distance_from_marker():
     far = calibrate(img, face_hint_px=tuple(apply(G, [[150, 100]])[0]))
     assert far.uncertainty_pct > near.uncertainty_pct
     np.testing.assert_allclose(near.H, far.H)
+    assert any("far from the marker" in w for w in far.warnings)
+    assert not any("far from the marker" in w for w in near.warnings)
     # the stored uncertainty is the one scale_uncertainty_pct gives at the hint
     assert scale_uncertainty_pct(near, *apply(G, [[150, 100]])[0]) == pytest.approx(far.uncertainty_pct, rel=1e-9)
 
