@@ -1410,20 +1410,21 @@ def _eval_max_sum(rule, possible, sure, why, ctx, out, *, band=False):
             S, U, _ = _sum(w[1], measure, clip, w[2])
             return S - U
         best_s = max(ws, key=low, default=(None, [], {}))
-        groups = [(best_p[0], best_p[1], best_s[1], best_p[2], best_s[2])]
+        groups = [(best_p[0], best_s[0], best_p[1], best_s[1], best_p[2], best_s[2])]
     else:
-        groups = [(None, possible, sure, None, None)]
-    for start, pos, sur, w_pos, w_sur in groups:
+        groups = [(None, None, possible, sure, None, None)]
+    for start, start_s, pos, sur, w_pos, w_sur in groups:
         S_hi, U_hi, k_hi = _sum(pos, measure, clip, w_pos)
         S_lo, U_lo, k_lo = _sum(sur, measure, clip, w_sur)
         hi, lo = S_hi + U_hi, (S_lo - U_lo) if sur else -math.inf
         out.value, out.u = S_hi, U_hi
-        win = (f" in the {rule.window.label()} window from x = {_fmt(start)} mm"
-               if start is not None else "")
+        def in_window(x0):
+            return f" in the {rule.window.label()} window from x = {_fmt(x0)} mm" if x0 is not None else ""
+        win, win_s = in_window(start), in_window(start_s)
         if limit is None:
             if cap is not None and lo > cap:
                 _decide_upper(rule, out, lo=lo, lo_known=k_lo, hi=hi, limit=cap,
-                              text_fail=f"{rule.id}: {_items_label(sur)}{win}: {what} "
+                              text_fail=f"{rule.id}: {_items_label(sur)}{win_s}: {what} "
                                         f"{_fmt_near(S_lo, cap)} +/- {_fmt(U_lo)} mm > {rule.max.label()}",
                               text_review="", text_unknown=_uncertain_tail(not k_lo, ucol))
             else:
@@ -1433,7 +1434,7 @@ def _eval_max_sum(rule, possible, sure, why, ctx, out, *, band=False):
         out.limit_mm = limit
         _decide_upper(
             rule, out, lo=lo, lo_known=k_lo, hi=hi, limit=limit,
-            text_fail=f"{rule.id}: {_items_label(sur)}{win}: {what} {_fmt_near(S_lo, limit)} +/- {_fmt(U_lo)} mm "
+            text_fail=f"{rule.id}: {_items_label(sur)}{win_s}: {what} {_fmt_near(S_lo, limit)} +/- {_fmt(U_lo)} mm "
                       f"> {lim_text}",
             text_review=f"{rule.id}: {_items_label(pos)}{win}: {what} {_fmt_near(S_hi, limit)} +/- {_fmt(U_hi)} mm "
                         f"{_compare_word(S_hi, limit)} {lim_text}{_low_tail(pos, sur, why)}",
