@@ -353,6 +353,8 @@ def test_saved_record_reopens_with_its_review(at, photos):
     at.button(key="save").click().run()
     assert any("Saved as assessment" in s.value for s in at.success)
     verdict_after = verdict_words(at)
+    at.radio(key="src").set_value("Demo photo").run()  # another photo is now the page's input
+    assert current_work(at).origin == "demo"
     at.radio(key="view").set_value("Welder histories").run()
     assert not at.exception
     assert at.selectbox(key="hist_welder").value == "W-21"
@@ -363,6 +365,8 @@ def test_saved_record_reopens_with_its_review(at, photos):
     assert w2.origin == "record" and w2.saved_id == w.saved_id
     assert w2.review.edits[rid].decision == "dismiss"  # the review came back from the record
     assert verdict_words(at) == verdict_after
+    at.run()  # and it stays shown on the next rerun
+    assert current_work(at) is w2
 
 
 def test_batch_assesses_saves_and_reports_bad_files(at, photos):

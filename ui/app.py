@@ -161,7 +161,8 @@ def photo_input() -> tuple[bytes, str, str] | None:
     demos = demo_rows()
     if "src" not in st.session_state:
         st.session_state["src"] = SOURCES[2] if demos else SOURCES[0]
-    src = st.radio("Where is the photo?", SOURCES, horizontal=True, key="src", on_change=_left_demo)
+    src = st.radio("Where is the photo?", SOURCES, horizontal=True, key="src", on_change=_left_demo,
+                   persist_state="page")
     if src == SOURCES[0]:
         up = st.file_uploader(
             f"Photo of the test face beside the reference card (JPEG, PNG or TIFF, up to {H.MAX_UPLOAD_MB} MB)",
@@ -178,7 +179,7 @@ def photo_input() -> tuple[bytes, str, str] | None:
         st.info("No demo photos are installed here. Upload a photo instead.")
         return None
     by_name = {r["photo"]: r for r in demos}
-    pick = st.selectbox("Demo photo (an invented shop's coupons, synthetic photos)", list(by_name), key="demo",
+    pick = st.selectbox("Demo photo (an invented shop's coupons, synthetic photos)", list(by_name), key="demo", persist_state="page",
                         format_func=lambda n: f"{by_name[n]['coupon_id']} · {TEST_NAMES.get(by_name[n]['test'])}"
                                               f" · {by_name[n]['date']}")
     row = by_name[pick]
@@ -195,25 +196,25 @@ def photo_input() -> tuple[bytes, str, str] | None:
 def _num(col, label: str, key: str, *, default: float | None = None, min_value: float = 0.0, **kw):
     """A number input whose value lives in session state (so a demo photo can fill it without a warning)."""
     st.session_state.setdefault(key, default)
-    return col.number_input(label, min_value=min_value, key=key, **kw)
+    return col.number_input(label, min_value=min_value, key=key, persist_state="page", **kw)
 
 
 def coupon_and_settings() -> tuple[dict, Settings, object]:
     """Coupon fields, Settings and the chosen limit set from the widgets."""
     c1, c2, c3, c4 = st.columns(4)
     coupon = {
-        "id": c1.text_input("Coupon id", key="c_id", placeholder="stamped number, e.g. C-0417"),
-        "welder": c2.text_input("Welder id", key="c_welder"),
-        "procedure": c3.text_input("Procedure (WPS)", key="c_procedure"),
-        "process": c4.text_input("Process", key="c_process", placeholder="e.g. 135 or SMAW"),
-        "position": c1.text_input("Position", key="c_position", placeholder="e.g. PB / 2F"),
-        "material": c2.text_input("Material", key="c_material"),
+        "id": c1.text_input("Coupon id", key="c_id", persist_state="page", placeholder="stamped number, e.g. C-0417"),
+        "welder": c2.text_input("Welder id", key="c_welder", persist_state="page"),
+        "procedure": c3.text_input("Procedure (WPS)", key="c_procedure", persist_state="page"),
+        "process": c4.text_input("Process", key="c_process", persist_state="page", placeholder="e.g. 135 or SMAW"),
+        "position": c1.text_input("Position", key="c_position", persist_state="page", placeholder="e.g. PB / 2F"),
+        "material": c2.text_input("Material", key="c_material", persist_state="page"),
     }
-    test = c3.selectbox("Test", TEST_TYPES, format_func=TEST_NAMES.get, key="c_test")
+    test = c3.selectbox("Test", TEST_TYPES, format_func=TEST_NAMES.get, key="c_test", persist_state="page")
     sets = limit_sets_for(test)
     names = [s.name for s in sets]
     labels = {s.name: f"{s.title or s.name}" + ("" if s.kind == "preset" else "  (your own)") for s in sets}
-    pick = c4.selectbox("Limit set", names, format_func=lambda n: labels.get(n, n), key=f"c_limits_{test}")
+    pick = c4.selectbox("Limit set", names, format_func=lambda n: labels.get(n, n), key=f"c_limits_{test}", persist_state="page")
     limit_set = next(s for s in sets if s.name == pick)
     nominal: dict = {}
     nominal["thickness_mm"] = _num(c1, "Plate / wall thickness t (mm)", "c_thickness", step=0.5)
@@ -233,7 +234,7 @@ def coupon_and_settings() -> tuple[dict, Settings, object]:
                          max_value=1000.0, step=1.0,
                                     help="the black square of the card; the printed card's is 20 mm")
         min_size = a2.number_input("Smallest imperfection reported (mm)", min_value=0.05, max_value=20.0,
-                                   value=0.3, step=0.05, key="min_size")
+                                   value=0.3, step=0.05, key="min_size", persist_state="page")
     coupon.update({k: v for k, v in nominal.items()})
     coupon["test"] = test
     coupon = {k: (v.strip() if isinstance(v, str) else v) for k, v in coupon.items()}
@@ -260,10 +261,11 @@ def view_assess() -> None:
         coupon, settings, limit_set = coupon_and_settings()
 
     failure, bad_input = None, False
+    hold = st.session_state.pop("_hold_current", False)  # a record was just opened: keep it shown
     if picked is not None:
         data, name, origin = picked
         try:
-            failure = load_and_analyse(data, name, origin, coupon, settings)
+            failure = load_and_analyse(data, name, origin, coupon, settings, hold=hold)
         except SurfacesError as err:  # bad file: say so, keep earlier work
             bad_input = True
             st.error(f":material/error: {err}")
@@ -309,18 +311,23 @@ def view_assess() -> None:
     save_panel(w, auto, reviewed)
 
 
-def load_and_analyse(data: bytes, name: str, origin: str, coupon: dict, settings: Settings):
+def load_and_analyse(data: bytes, name: str, origin: str, coupon: dict, settings: Settings, *,
+                     hold: bool = False):
     """Make the input photo the current work (analysing it if new).
 
     Returns None, or (message, error class name) when the analysis failed.
     """
     H.check_upload(data, name)
     sha = S.sha256(data)
+
     roi = st.session_state.setdefault("roi", {}).get(sha)
     settings = replace(settings, roi=roi)
     key = S.work_key(sha, settings)
     ws = S.works()
     marker = (key, settings.key())
+    if hold:
+        st.session_state["last_input"] = marker
+        return None
     if key in ws:
         if st.session_state.get("last_input") != marker:
             st.session_state["current"] = key
@@ -375,7 +382,7 @@ def scale_panel(w, failure, have_input: bool) -> None:
                 st.info(f":material/lightbulb: {hint}")
         if have_input or w is not None:
             st.number_input("Scale typed by hand (photo pixels per mm), only when the photo has no marker",
-                            min_value=0.0, value=None, step=0.1, key="px_per_mm",
+                            min_value=0.0, value=None, step=0.1, key="px_per_mm", persist_state="page",
                             help="Measure a known length in the photo (e.g. a ruler) in pixels and divide by "
                                  "its millimetres. No perspective correction is made.")
 
@@ -642,7 +649,7 @@ def review_panel(w, auto: dict) -> None:
                         w.review.manual.append(rec)
                         st.rerun()
         k1, k2 = st.columns([1, 2])
-        k1.text_input("Reviewed by (your name)", key="reviewer")
+        k1.text_input("Reviewed by (your name)", key="reviewer", persist_state="page")
         k = f"note_{w.key}"
         k2.text_area("Review note", value=w.review.note, key=k, height=80, on_change=_on_text, args=(w, "note", k))
 
@@ -876,7 +883,7 @@ def open_record(aid: int) -> None:
     w.saved_review = None
     S.add_work(w)
     st.session_state["view"] = VIEWS[0]
-    st.session_state["last_input"] = None
+    st.session_state["_hold_current"] = True  # the photo input below must not take over at once
 
 
 def _open_cb(aid: int) -> None:
