@@ -72,7 +72,9 @@ for our own safety additions, ``user``) and ``note``.  The checks:
                    ``throat``, ``wall``, ``length``): the limit is the smaller
 ``max_count``      ``max_count`` (a whole number)
 ``max_sum``        sum of ``measure`` at most ``max`` (or fraction); with
-                   ``window`` in any window of that length along the weld
+                   ``window`` in any window of that length along the weld,
+                   and ``short_fraction`` x the weld length for a weld
+                   shorter than the window
 ``max_area``       total area at most ``max`` (``"2 %"``) of the face area
 ``min_separation`` gaps along the weld at least ``min``
 ``band_sum``       sum of sizes over ``above`` (up to ``up_to``; larger ones
@@ -185,7 +187,7 @@ _CHECK_KEYS: dict[str, tuple[str, ...]] = {
     "not_permitted": (),
     "max_size": ("max", "max_fraction", "of"),
     "max_count": ("max_count",),
-    "max_sum": ("max", "max_fraction", "of", "window"),
+    "max_sum": ("max", "max_fraction", "of", "window", "short_fraction"),
     "max_area": ("max",),
     "min_separation": ("min",),
     "band_sum": ("above", "up_to", "max"),
@@ -314,6 +316,7 @@ class Rule:
     of: str | None = None
     max_count: int | None = None
     window: Quantity | None = None
+    short_fraction: float | None = None  # limit for a weld shorter than the window
     min: Quantity | None = None
     above: Quantity | None = None
     up_to: Quantity | None = None
@@ -345,6 +348,8 @@ class Rule:
             text = f"sum of sizes over {self.above.label()} up to {self.up_to.label()}: at most {text}"
         elif self.check == "max_sum":
             text = f"sum at most {text}" + (f" in any {self.window.label()}" if self.window else "")
+            if self.short_fraction is not None:
+                text += f" ({_fmt(self.short_fraction * 100)} % of a weld shorter than that)"
         elif self.check == "max_area":
             text = f"at most {text} of the face area"
         else:
@@ -366,7 +371,7 @@ class Rule:
             d["where"] = {k: (list(v) if isinstance(v, tuple) else v) for k, v in self.where}
         if self.measure != "greatest":
             d["measure"] = self.measure
-        for key in ("min_size", "max", "max_fraction", "of", "max_count", "window", "min",
+        for key in ("min_size", "max", "max_fraction", "of", "max_count", "window", "short_fraction", "min",
                     "above", "up_to", "edge_within", "ignore_up_to", "ignore_below"):
             val = getattr(self, key)
             if val is not None:
@@ -721,6 +726,10 @@ class _Parser:
                 fields["window"] = q("window")
                 if fields["window"] is not None and fields["window"].mm <= 0:
                     raise self.err(p + ("window",), f"{lab('window')} must be more than 0 mm")
+                fields["short_fraction"] = self.number(r, "short_fraction", p + ("short_fraction",),
+                                                       lo=0, hi=1, label=lab("short_fraction"))
+                if fields["short_fraction"] is not None and fields["window"] is None:
+                    raise self.err(p + ("short_fraction",), f"{who}: 'short_fraction' needs a 'window'")
         elif check == "max_count":
             fields["max_count"] = self.number(r, "max_count", p + ("max_count",), lo=0, hi=1e9,
                                               label=lab("max_count"), integer=True)
@@ -1390,6 +1399,19 @@ def _eval_max_sum(rule, possible, sure, why, ctx, out, *, band=False):
         clip = None
         what = f"sum of {measure}"
         lim_text = _limit_text(rule, ctx, limit)
+        if rule.short_fraction is not None and limit is not None:
+            weld = _num(ctx.nominal.get("length_mm"))
+            if not (math.isfinite(weld) and weld > 0):
+                weld = _num(ctx.face.get("length_mm"))
+            if not (math.isfinite(weld) and weld > 0):
+                if possible:
+                    out.add("review", f"{rule.id}: the weld length is unknown, so the short-weld "
+                                      f"limit cannot be applied: {_missing_dim('length_mm')}")
+                return
+            if weld < rule.window.mm and rule.short_fraction * weld < limit:
+                limit = rule.short_fraction * weld
+                lim_text = (f"{_fmt(rule.short_fraction * 100)} % of the {_fmt(weld, 3)} mm weld "
+                            f"({_fmt(limit, 3)} mm)")
     col, ucol = MEASURES[measure]
     out.items = [it.id for it in possible]
     if not possible:

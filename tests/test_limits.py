@@ -156,6 +156,8 @@ HEAD = 'schema = "surfaces.limits/1"\nname = "x"\ntests = ["bend"]\n'
      ["line 8", "whole number"]),
     ('[[rule]]\nid = "a"\ncheck = "max_size"\nkinds = ["pore"]\nmax_fraction = 0.2\n',
      ["line 8", "'of'"]),
+    ('[[rule]]\nid = "a"\ncheck = "max_sum"\nkinds = ["pore"]\nmax = "3 mm"\nshort_fraction = 0.25\n',
+     ["line 9", "needs a 'window'"]),
     ('[[rule]]\nid = "a"\ncheck = "biggest"\nkinds = ["pore"]\n',
      ["line 6", "'biggest'"]),
     ('[[rule]]\nid = "a"\ncheck = "band_sum"\nkinds = ["any"]\nabove = "3 mm"\n'

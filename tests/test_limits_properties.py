@@ -182,7 +182,7 @@ def test_edited_presets_raise_only_limits_error(text, edits):
 KEYS = ["schema", "name", "tests", "rule", "id", "check", "kinds", "max", "min", "max_fraction",
         "of", "window", "above", "up_to", "min_size", "max_count", "where", "at_root",
         "ignore_up_to", "ignore_below", "ignore_any_size", "beyond", "unless_cause", "measure",
-        "outcome", "confidence", "value", "unit", "printed", "use", "min_confidence", "zz"]
+        "outcome", "confidence", "value", "unit", "printed", "use", "min_confidence", "short_fraction", "zz"]
 VALUES = ["surfaces.limits/1", "x", "bend", "fillet-break", "pore", "any", "max_size", "corner",
           "band_sum", "max_sum", "min_separation", "max_area", "max_count", "not_permitted",
           "3 mm", "1/8 in", "-1 mm", "2 %", "1/0 in", "mm", "wall", "retest", "printed", "1e999 mm"]

@@ -378,3 +378,20 @@ def test_asme_fillet_pipe_sum_is_a_tenth_of_the_quarter_section():
     v = verdict(ls, imp(1, "pore", 2.0))
     assert v.result == "review" and "length_mm" in v.reasons[0]
     assert verdict(ls, imp(1, "crack", 0.5), nominal=nom).result == "reject"
+
+
+def test_iso_d_short_weld_quarter_of_its_length():
+    ls = preset("iso-5817-d-fillet-break")
+    # REFERENCES: ISO 5817 short imperfections: 25 mm in any 100 mm, or 25 % of a weld
+    # shorter than 100 mm (from memory)
+    nom = {"throat_mm": 6.0, "length_mm": 60.0}  # 25 % of 60 mm = 15 mm
+    three = [imp(i, "unfused", 5, across=1.0, x0=15.0 * i) for i in range(3)]  # 15 mm
+    assert verdict(ls, *three, nominal=nom).result == "accept"
+    v = verdict(ls, *three, imp(9, "unfused", 1, across=1.0, x0=50), nominal=nom)
+    assert v.result == "reject" and "25 % of the 60 mm weld (15 mm)" in v.reasons[0]
+    # without length_mm the measured face length serves
+    v = verdict(ls, *three, imp(9, "unfused", 1, across=1.0, x0=50), nominal={"throat_mm": 6.0},
+                face={"length_mm": 60.0, "width_mm": 8.0, "area_mm2": 480.0})
+    assert v.result == "reject"
+    v = verdict(ls, *three, nominal={"throat_mm": 6.0}, face={})
+    assert v.result == "review" and "length_mm" in v.reasons[0]
