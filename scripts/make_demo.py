@@ -99,11 +99,54 @@ def check(folder: Path) -> int:
     return 1 if bad else 0
 
 
+def search(folder: Path, tries: int) -> int:
+    """For each coupon whose verdict is not the story's, try other camera/texture seeds.
+
+    The defects stay as the story sets them; only ``seed`` changes (seed +
+    1000 j).  Prints, per coupon, how many seeds were tried and which one
+    gives the story's verdict, to be written into ``SCENARIO`` by hand.
+    """
+    import dataclasses
+    import tempfile
+
+    from surfaces.model import SurfacesError
+    from surfaces.photo import load_photo
+    from surfaces.pipeline import assess
+
+    rows = {r["coupon_id"]: r for r in demo.read_manifest(folder)}
+    left = 0
+    with tempfile.TemporaryDirectory() as tmp:
+        for c in demo.SCENARIO:
+            row = rows[c.coupon_id]
+            tried = []
+            for j in range(0, tries + 1):
+                seed = c.render["seed"] + 1000 * j
+                cc = dataclasses.replace(c, render={**c.render, "seed": seed})
+                path = render(cc).save(Path(tmp) / c.photo)
+                try:
+                    got = assess(load_photo(path), demo.settings_for(row)).assessment["verdict"]["result"]
+                except SurfacesError as err:
+                    got = f"error ({str(err)[:40]})"
+                tried.append((seed, got))
+                if got == c.expect:
+                    break
+            ok = tried[-1][1] == c.expect
+            left += not ok
+            print(f"{c.coupon_id:<14} story {c.expect:<7} "
+                  + ("seed %d after %d tries" % (tried[-1][0], len(tried)) if ok else "NO SEED FOUND")
+                  + "  [" + ", ".join(f"{sd}:{g}" for sd, g in tried) + "]")
+    return 1 if left else 0
+
+
 def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--out", type=Path, default=demo.DEMO_DIR, help="folder to write (default demo_images/)")
     p.add_argument("--check", action="store_true", help="do not render; only check the verdicts")
+    p.add_argument("--search", type=int, metavar="K", default=0,
+                   help="try up to K other seeds per coupon whose verdict is not the story's; print them")
     a = p.parse_args(argv)
+    if a.search:
+        return search(a.out, a.search)
     if not a.check:
         build(a.out)
     return check(a.out)
