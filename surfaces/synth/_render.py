@@ -147,13 +147,13 @@ def random_look(rng: np.random.Generator, width: int, height: int, *, clean: boo
     }[str(cast)]
     gain = tuple(float(g * rng.uniform(0.97, 1.03)) for g in base)
     glare = None
-    if rng.random() < 0.35:
-        gx, gy = glare_xy if glare_xy is not None and rng.random() < 0.7 else (rng.uniform(0, width), rng.uniform(0, height))
+    if rng.random() < 0.3:
+        gx, gy = glare_xy if glare_xy is not None and rng.random() < 0.5 else (rng.uniform(0, width), rng.uniform(0, height))
         glare = (
             float(gx + rng.normal(0, 0.05 * width)),
             float(gy + rng.normal(0, 0.05 * height)),
             float(rng.uniform(0.03, 0.12) * max(width, height)),
-            float(rng.uniform(0.15, 0.7)),
+            float(rng.uniform(0.1, 0.45)),
         )
     return Look(
         gain=gain,
