@@ -388,3 +388,33 @@ def test_batch_assesses_saves_and_reports_bad_files(at, photos):
     with Store() as s:
         h = s.history()
     assert list(h["coupon_id"]) == ["coupon_A1"] and list(h["welder"]) == ["W-30"]
+
+
+def test_adding_a_missed_crack_is_judged(at, photos):
+    from surfaces import limits
+
+    upload(at, photos["good"], name="add-test.jpg")
+    w = current_work(at)
+    ls = limits.load_limit_set(w.settings.limits)
+    auto = w.auto(w.settings, ls)
+    face = auto["face"]
+    k = w.key
+    at.selectbox(key=f"add_kind_{k}").set_value("crack")
+    at.number_input(key=f"add_x_{k}").set_value(round(face["length_mm"] / 3, 1))
+    at.number_input(key=f"add_y_{k}").set_value(round(face["width_mm"] / 2, 1))
+    at.number_input(key=f"add_a_{k}").set_value(4.0)
+    at.number_input(key=f"add_b_{k}").set_value(0.3)
+    next(b for b in at.button if b.label == "Add this imperfection").click().run()
+    assert not at.exception and not errors(at), errors(at)
+    (m,) = w.review.manual
+    assert m["kind"] == "crack" and m["source"] == "manual" and m["greatest_mm"] == pytest.approx(4.0)
+    shown = at.dataframe[0].value
+    assert f"{m['id']}m" in set(shown["#"])
+    # reference: the core's judge on the automatic table plus the added row
+    table = pd.DataFrame(auto["imperfections"] + [m])
+    ref = limits.judge(table, face=face, nominal=auto["nominal"], limit_set=ls, test=auto["test"])
+    assert verdict_words(at)[0] == ref.result.upper()
+    # the set forbids cracks (../shared/REFERENCES.md: crack 100 "not permitted" in ISO 5817, "no cracks" in
+    # ASME IX QW-182), so a 4 mm crack typed by the inspector can never leave the verdict at accept
+    assert any(r.check == "not_permitted" and "crack" in r.kinds for r in ls.rules)
+    assert ref.result != "accept"
