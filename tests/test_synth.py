@@ -121,6 +121,18 @@ def test_requested_scale_and_tilt_are_met():
     assert photo.truth["tilt_deg"] == 15.0
 
 
+@pytest.mark.parametrize("seed", [41, 42, 43])
+@pytest.mark.parametrize("kind", ["fillet-break", "nick-break", "bend"])
+def test_face_and_card_are_inside_the_photo(seed, kind):
+    photo = render_bend(seed, megapixels=1.0) if kind == "bend" else render_fracture(seed, test=kind, megapixels=1.0)
+    w, h = photo.truth["photo_size"]
+    pts = np.r_[np.array(photo.truth["face"]["polygon_px"]), *[np.array(m["corners_px"]) for m in photo.truth["markers"]]]
+    assert (pts >= 0).all() and (pts[:, 0] <= w - 1).all() and (pts[:, 1] <= h - 1).all()
+    # analytic: the face's plane outline maps onto its photo outline through the truth homography
+    H = np.array(photo.truth["H_plane_to_photo"])
+    assert np.allclose(_apply(H, photo.truth["face"]["polygon_mm"]), photo.truth["face"]["polygon_px"], atol=1e-6)
+
+
 # --------------------------------------------------------------------------- imperfection sizes
 def _poly_props(poly_mm, px_per_mm=200.0):
     """Rasterise an outline with scikit-image and measure it there (area, max Feret) in mm."""
@@ -211,6 +223,23 @@ def test_the_pore_is_drawn_where_the_truth_says():
     inside = np.concatenate([ring(r) for r in (0.3, 0.6, 0.9)])
     outside = np.concatenate([ring(r) for r in (1.9, 2.2)])
     assert np.median(inside) < 0.7 * np.median(outside)
+
+
+def test_root_band_lies_along_the_root_edge():
+    photo = render_fracture(
+        24, test="nick-break", megapixels=2, width_mm=12.0, length_mm=26.0,
+        defects=[{"kind": "unfused", "side": "root", "length_mm": 10.0, "width_mm": 1.2, "x_mm": 6.0}],
+    )  # fmt: skip
+    (imp,) = photo.truth["imperfections"]
+    assert imp["iso6520"] == "4021" and imp["at_root"] is True
+    f = imp["face_mm"]
+    # analytic: the band starts on the straight root edge (y = 0 or y = width) and reaches at most its width in
+    if photo.truth["face"]["root_side"] == "y0":
+        assert f["y0"] == pytest.approx(0.0, abs=1e-9)
+    else:
+        assert f["y1"] == pytest.approx(12.0, abs=1e-9)
+    assert imp["across_mm"] <= 1.2 * 1.4 + 1e-9
+    assert imp["along_mm"] == pytest.approx(10.0, abs=1e-9)
 
 
 # --------------------------------------------------------------------------- curvature

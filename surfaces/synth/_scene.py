@@ -484,6 +484,7 @@ def _truth(seed, builder, geo, placed, card, T_card, T_lp, cam, W, H, look, tabl
             "across_mm": m["across_mm"],
             "area_mm2": m["area_mm2"],
             "starts_at_edge": bool(d.extra.get("starts_at_edge", False)),
+            "at_root": bool(d.extra.get("at_root", False)),
             "face_mm": {
                 "cx": m["centroid"][0],
                 "cy": m["centroid"][1],
@@ -497,7 +498,7 @@ def _truth(seed, builder, geo, placed, card, T_card, T_lp, cam, W, H, look, tabl
             "polygon_px": _thin(ppx).tolist(),
         }
         for key, val in d.extra.items():
-            if key != "starts_at_edge":
+            if key not in ("starts_at_edge", "at_root"):
                 ent[key] = val
         proj = getattr(builder, "projected", None)
         if proj is not None:
