@@ -259,6 +259,8 @@ def test_bend_curvature_arc_versus_projection():
     face = np.array(photo.truth["face"]["polygon_mm"])
     ends = np.linalg.norm(face[1] - face[0])
     assert ends == pytest.approx(2 * R * math.sin(theta / 2), rel=1e-9)
+    assert photo.truth["face"]["area_mm2"] == pytest.approx(L * 20.0)
+    assert cur["projected_area_mm2"] == pytest.approx(2 * R * math.sin(theta / 2) * 20.0)
     (imp,) = photo.truth["imperfections"]
     # true sizes on the surface, projected ones as R sin(s/R) between the pore's ends
     assert imp["along_mm"] == pytest.approx(d)
@@ -291,6 +293,10 @@ def test_truth_contract_and_files(tmp_path, fillet):
     assert t["photo_size"] == [fillet.rgb.shape[1], fillet.rgb.shape[0]]
     for key in ("polygon_mm", "polygon_px", "length_mm", "width_mm", "area_mm2", "axis_deg", "root_side"):
         assert key in t["face"]
+    # analytic: shoelace area of the plane outline (the plane is isometric to the face axes)
+    x, y = np.array(t["face"]["polygon_mm"]).T
+    assert 0.5 * abs(np.dot(x, np.roll(y, -1)) - np.dot(y, np.roll(x, -1))) == pytest.approx(t["face"]["area_mm2"], rel=1e-9)
+    assert t["face"]["area_mm2"] == pytest.approx(t["face"]["length_mm"] * t["face"]["width_mm"], rel=1e-9)
     for imp in t["imperfections"]:
         for key in ("kind", "iso6520", "centroid_mm", "centroid_px", "bbox_px", "greatest_mm", "width_mm",
                     "along_mm", "across_mm", "area_mm2", "starts_at_edge", "polygon_mm"):  # fmt: skip

@@ -529,8 +529,8 @@ def _truth(seed, builder, geo, placed, card, T_card, T_lp, cam, W, H, look, tabl
         "markers": markers,
         "card": {"polygon_mm": plane(apply_h(T_card, _rect(0, 0, *card.size_mm))).tolist(), "ruler": card.ruler},
         "face": {
-            "polygon_mm": _thin(face_plane).tolist(),
-            "polygon_px": _thin(face_px).tolist(),
+            "polygon_mm": _thin(face_plane, 4000).tolist(),
+            "polygon_px": _thin(face_px, 4000).tolist(),
             "length_mm": float(geo.length_mm),
             "width_mm": float(geo.width_mm),
             "area_mm2": float(geo.params.get("true_area_mm2", polygon_area(geo.face_poly))),
