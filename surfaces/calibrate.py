@@ -813,10 +813,15 @@ def _subpix_fallback(gray: np.ndarray, corners: np.ndarray, module: float) -> np
 def _fit_sides(roi: np.ndarray, quad: np.ndarray, marker_id: int) -> list[_SideFit] | None:
     centre = quad.mean(axis=0)
     black = _marker_black(marker_id)
+    unit = np.array([[0.0, 0.0], [MODULES, 0.0], [MODULES, MODULES], [0.0, MODULES]])
+    with np.errstate(all="ignore"):
+        to_photo = _dlt(unit[None], quad[None])[0]  # marker modules -> ROI px, for the module layout
+    if not np.all(np.isfinite(to_photo)):
+        return None
     fits = []
     for i in range(4):
         a, b = quad[i], quad[(i + 1) % 4]
-        fit = _fit_one_side(roi, a, b, centre, _inner_black(black, i))
+        fit = _fit_one_side(roi, a, b, centre, _inner_black(black, i), to_photo, i)
         if fit is None:
             return None
         fits.append(fit)
@@ -844,7 +849,33 @@ def _inner_black(black: np.ndarray, side: int) -> np.ndarray:
     return black[::-1, 1].copy()
 
 
-def _fit_one_side(roi, a, b, centre, inner_black) -> _SideFit | None:
+def _side_layout(to_photo: np.ndarray, side: int, base: np.ndarray, n: np.ndarray):
+    """Module layout under perspective for the edge points ``base`` of ``side``.
+
+    Returns the position along the side in modules (0..6, in the direction
+    of ``_inner_black``), the local length of a module along the side (px),
+    and the depths (px, along the outward normal ``n``) of the inner edge of
+    the border and of the far edge of the module inside it.
+    """
+    mm = apply_h(np.linalg.inv(to_photo), base)
+    if side == 0:
+        along, inward = mm[:, 0], lambda k: np.c_[mm[:, 0], np.full(len(mm), float(k))]
+    elif side == 1:
+        along, inward = mm[:, 1], lambda k: np.c_[np.full(len(mm), MODULES - float(k)), mm[:, 1]]
+    elif side == 2:
+        along, inward = MODULES - mm[:, 0], lambda k: np.c_[mm[:, 0], np.full(len(mm), MODULES - float(k))]
+    else:
+        along, inward = MODULES - mm[:, 1], lambda k: np.c_[np.full(len(mm), float(k)), mm[:, 1]]
+    edge = inward(0)
+    depth1 = (apply_h(to_photo, edge) - apply_h(to_photo, inward(1))) @ n
+    depth2 = (apply_h(to_photo, edge) - apply_h(to_photo, inward(2))) @ n
+    step = np.zeros_like(mm)
+    step[:, 0 if side in (0, 2) else 1] = 0.05
+    module_along = np.hypot(*(apply_h(to_photo, edge + step) - apply_h(to_photo, edge - step)).T) / 0.1
+    return along, module_along, depth1, depth2
+
+
+def _fit_one_side(roi, a, b, centre, inner_black, to_photo, side) -> _SideFit | None:
     """Edge points across one side of the black square, and the line through them.
 
     The edge on each profile across the side is placed by the area rule
@@ -852,9 +883,12 @@ def _fit_one_side(roi, a, b, centre, inner_black) -> _SideFit | None:
     levels (equivalently, the centroid of the grey-level gradient): unbiased
     for any symmetric blur once the window is centred on the edge (the
     caller re-centres).  The border is only one module wide, so where the
-    module inside it is white, blur brightens the inner end of the window
-    and pulls the edge outward; those profiles are used only when the edge
-    is sharp (blur sigma under a tenth of a module).
+    module inside it is white, blur carries its light into the inner end of
+    the window and would pull the edge outward.  That light is modelled and
+    subtracted: Gaussian blur of the width measured on the clean profiles
+    (those with black inside), spread separably along and across the white
+    module, whose place comes from the marker's known bit pattern and the
+    current outline's perspective.
     """
     vec = b - a
     length = float(np.hypot(*vec))
@@ -879,7 +913,7 @@ def _fit_one_side(roi, a, b, centre, inner_black) -> _SideFit | None:
     ok = np.all(np.isfinite(prof), axis=1)
 
     # profiles whose inner neighbour is black over +/- 0.3 module along the side
-    pos = t / module
+    pos, module_along, depth1, depth2 = _side_layout(to_photo, side, base, n)
     clean = np.ones(ns, bool)
     for off in (-0.3, 0.0, 0.3):
         j = np.clip(np.floor(pos + off).astype(int), 0, MODULES - 1)
@@ -911,10 +945,10 @@ def _fit_one_side(roi, a, b, centre, inner_black) -> _SideFit | None:
         white = np.nonzero(~inner_black)[0]
         lateral = np.zeros(ns)
         for j in white:
-            lateral += _phi((pos - j) * module / sigma) - _phi((pos - j - 1) * module / sigma)
+            lateral += _phi((pos - j) * module_along / sigma) - _phi((pos - j - 1) * module_along / sigma)
         for _ in range(2):
             depth = (e[:, None] - u[None, :])  # distance inward from the edge
-            across = _phi((depth - module) / sigma) - _phi((depth - 2 * module) / sigma)
+            across = _phi((depth - depth1[:, None]) / sigma) - _phi((depth - depth2[:, None]) / sigma)
             light = np.where(ok, contrast, 0.0)[:, None] * lateral[:, None] * across
             e, contrast, good, _ = edge_of(prof - light)
         ok &= good

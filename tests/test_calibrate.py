@@ -435,7 +435,7 @@ def _figures(n: int = 80) -> None:  # pragma: no cover - run by hand, see the en
         e40, p40 = scale_error_pct(cal, G, 50, 10)
         u0 = scale_uncertainty_pct(cal, *p0, parts=True)["corners_pct"]
         u40 = scale_uncertainty_pct(cal, *p40, parts=True)["corners_pct"]
-        rows.append((s, c_err, e0, u0, e40, u40, cal.tilt_deg - tilt))
+        rows.append((s, c_err, e0, u0, e40, u40, np.nan if cal.tilt_deg is None else cal.tilt_deg - tilt))
         corners, ids, _ = _detect_at_scale(img, 1.0)
         pts = corners[0].astype(np.float32).reshape(-1, 1, 2).copy()
         win = int(np.clip(round(0.4 * cal.markers[0].module_px), 2, 15))
@@ -443,7 +443,10 @@ def _figures(n: int = 80) -> None:  # pragma: no cover - run by hand, see the en
         sub.append(float(np.sqrt(np.mean((pts.reshape(4, 2) - tc) ** 2))))
     ok = np.array([r for r in rows if r is not None])
     print(f"{len(ok)}/{n} scenes calibrated (markers 24-240 px, tilt 0-40 deg, blur 0-2.5 px, noise 0-6, JPEG 70-95)")
-    q = lambda v: f"median {np.median(v):.3f}, 95 % {np.percentile(v, 95):.3f}, max {np.max(v):.3f}"
+    def q(v):
+        v = v[np.isfinite(v)]
+        return f"median {np.median(v):.3f}, 95 % {np.percentile(v, 95):.3f}, max {np.max(v):.3f} (n={len(v)})"
+
     print("corner RMS error, px:            ", q(ok[:, 1]))
     print("cv2.cornerSubPix on the same, px:", q(np.array(sub)))
     print("|scale error| at marker, %:      ", q(np.abs(ok[:, 2])))
