@@ -418,3 +418,28 @@ def test_adding_a_missed_crack_is_judged(at, photos):
     # ASME IX QW-182), so a 4 mm crack typed by the inspector can never leave the verdict at accept
     assert any(r.check == "not_permitted" and "crack" in r.kinds for r in ls.rules)
     assert ref.result != "accept"
+
+
+def test_histories_with_the_demo_records(at):
+    from surfaces.records import Store
+
+    at.radio(key="view").set_value("Welder histories").run()
+    at.button(key="load_demo").click().run()
+    assert not at.exception, at.exception
+    assert not errors(at), errors(at)
+    with Store() as s:
+        hist = s.history()
+    assert len(hist) >= 2
+    counts = hist["welder"].value_counts()
+    who = counts.index[0]  # the welder with the most attempts in the invented demo shop
+    at.selectbox(key="hist_welder").set_value(who).run()
+    metrics = {m.label: m.value for m in at.metric}
+    assert int(metrics["Attempts"]) == counts.iloc[0]
+    mine = hist[hist["welder"] == who]
+    for word in ("accept", "reject", "review"):
+        assert int(metrics[word.upper()]) == int((mine["result"] == word).sum())
+    order = next(m.value for m in at.markdown if m.value.startswith("**Attempts in order:**"))
+    assert order.count("→") == counts.iloc[0] - 1
+    stats = next(d.value for d in at.dataframe if "reject rate (%)" in d.value.columns)
+    assert "n_assessments" in stats.columns
+    assert stats["n_assessments"].sum() == len(hist.drop_duplicates(["photo_sha256", "coupon_id"]))

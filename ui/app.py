@@ -787,8 +787,13 @@ def view_histories() -> None:
             from surfaces.demo import ensure_demo
 
             bar = st.progress(0.0, text="assessing the demo photos")
-            ensure_demo(S.db_path(), progress=lambda done, total, cid: bar.progress(
+            summary = ensure_demo(S.db_path(), progress=lambda done, total, cid: bar.progress(
                 min(done / max(total, 1), 1.0), text=f"{done}/{total} {cid or ''}"))
+            if summary is not None:
+                flash("success", f"Loaded {len(summary.added)} demo coupon(s) with {len(summary.reviews)} "
+                                 "review(s) into the records.", where="page")
+                for m in summary.mismatches:
+                    flash("warning", f"Demo: {m}", where="page")
             st.rerun()
         return
     welders = sorted(w for w in hist["welder"].dropna().unique() if w)
@@ -806,18 +811,23 @@ def view_histories() -> None:
                 col.metric(H.VERDICT_LOOK[res][0], int((h["result"] == res).sum()))
             st.dataframe(h[["assessment_id", "created_at", "coupon_id", "test", "procedure", "position", "result",
                             "automatic_result", "first_reason", "n_imperfections", "reviewer"]]
-                         .rename(columns={"result": "verdict", "automatic_result": "automatic verdict"})
-                         .assign(verdict=lambda d: d["verdict"].str.upper()),
+                         .rename(columns={"result": "verdict", "automatic_result": "automatic verdict",
+                                          "n_imperfections": "imperfections judged"})
+                         .assign(verdict=lambda d: d["verdict"].str.upper(),
+                                 **{"automatic verdict": lambda d: d["automatic verdict"].str.upper()}),
                          hide_index=True, width="stretch", key="hist_table")
+            st.markdown("**Attempts in order:** " + " → ".join(
+                f"{_verdict_word(r)} ({_md(c or '-')})" for r, c in zip(h["result"], h["coupon_id"])))
             kinds = _kind_counts(h["assessment_id"].tolist())
             if kinds:
                 st.markdown("**Most common imperfections** (judged, all attempts): "
                             + ", ".join(f"{KIND_NAMES.get(k, k)} × {v}" for k, v in kinds))
-            trend = h.assign(attempt=range(1, n + 1)).set_index("attempt")
-            trend = pd.DataFrame({"imperfections judged": trend["n_imperfections"].astype(float),
-                                  "rejected (1 = yes)": (trend["result"] == "reject").astype(float)})
-            st.markdown("**Trend over attempts**")
-            st.line_chart(trend, x_label="attempt", y_label="count")
+            if n >= 2:
+                trend = pd.DataFrame({"attempt": list(range(1, n + 1)),
+                                      "imperfections judged": h["n_imperfections"].astype(int).tolist()})
+                st.markdown("**Imperfections judged per attempt**")
+                st.bar_chart(trend, x="attempt", y="imperfections judged", x_label="attempt", y_label="count",
+                             height=220)
             pick = st.selectbox("Open an attempt for review", h["assessment_id"].tolist()[::-1], key="hist_open")
             st.button("Open it", key="hist_open_btn", on_click=_open_cb, args=(int(pick),))
     with tab_g:
@@ -833,6 +843,11 @@ def view_histories() -> None:
             stats = stats.assign(reject_rate=(stats["reject_rate"] * 100).round(1)).rename(
                 columns={"reject_rate": "reject rate (%)", "top_reasons": "most frequent reasons"})
         st.dataframe(stats, hide_index=True, width="stretch", key="stats_table")
+
+
+def _verdict_word(result: str) -> str:
+    word, icon, _, _ = H.VERDICT_LOOK.get(str(result), H.VERDICT_LOOK["review"])
+    return f"{icon} {word}"
 
 
 def _kind_counts(ids: list[int]) -> list[tuple[str, int]]:
