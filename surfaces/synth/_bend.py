@@ -246,7 +246,9 @@ class BendBuilder:
         phi_h = math.atan2(hvec[0], hvec[2])
         width = math.radians(rng.uniform(4, 14))
         spec = np.exp(-(((phi - phi_h) / width) ** 2)) * rng.uniform(0.15, 0.5)
-        shade = (0.45 + 0.55 * np.clip(diffuse, 0, 1.3)).astype(np.float32)
+        # ground metal is mostly specular: towards grazing it reflects the dim surroundings
+        grazing = np.cos(np.clip(phi, -1.55, 1.55)) ** 0.8
+        shade = ((0.2 + 0.8 * grazing) * (0.7 + 0.3 * np.clip(diffuse, 0, 1.3))).astype(np.float32)
         rgb *= shade[None, :, None]
         rgb += spec.astype(np.float32)[None, :, None]
         # rounded coupon edges: a highlight line and a dark line along both long edges
