@@ -206,9 +206,13 @@ def _run_worker(photo: Path, repeat: int) -> dict:
 
 
 def _assess_one(path: str, settings) -> str:
+    """Worker: the verdict of one photo, or ``error`` (a failed photo still took its time)."""
     from .pipeline import assess_path
 
-    return assess_path(path, settings).assessment["verdict"]["result"]
+    try:
+        return assess_path(path, settings).assessment["verdict"]["result"]
+    except SurfacesError:
+        return "error"
 
 
 def _warm(_: int) -> int:
@@ -612,8 +616,10 @@ def format_table(report: dict) -> str:
                      f"{s['floor_median_s']:>8.3f} {s['floor_ratio']:>8.1f} {s['peak_mb']:>8.0f}")
         b = sp.get("batch")
         if b:
+            n_err = b["one"]["verdicts"].count("error") if "verdicts" in b["one"] else 0
             L.append(f"  batch of {b['one']['photos']} x {b['megapixels']:g} MP: 1 process {b['one']['photos_per_s']:.2f}/s, "
-                     f"2 processes {b['two']['photos_per_s']:.2f}/s, ratio {b['ratio']:.2f}")
+                     f"2 processes {b['two']['photos_per_s']:.2f}/s, ratio {b['ratio']:.2f}"
+                     + (f" ({n_err} photo(s) failed to assess)" if n_err else ""))
     for label, acc in (report.get("accuracy") or {}).items():
         if not acc:
             continue
