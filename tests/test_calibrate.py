@@ -404,6 +404,27 @@ def test_tilt_from_homography_analytic(tilt):
     np.testing.assert_allclose(Kc, camera_matrix(4000, 3000))  # the documented 70 deg diagonal field of view
 
 
+# --------------------------------------------------------------------------- full synthetic photos
+
+
+@pytest.mark.parametrize("seed", [3, 11, 19])
+def test_synthetic_photos_scale_at_face_within_uncertainty(seed):
+    """Whole photos from surfaces.synth (face, card, glare, blur, JPEG): truth known by construction."""
+    synth = pytest.importorskip("surfaces.synth")
+    from surfaces.photo import load_photo
+
+    shot = synth.render_fracture(seed)
+    photo = load_photo(shot.png_bytes(), name=f"synth-{seed}.png")
+    truth = shot.truth
+    cal = calibrate(photo, marker_mm=truth["marker_mm"])
+    G = np.asarray(truth["H_plane_to_photo"], float)
+    centre = np.asarray(truth["face"]["polygon_px"], float).mean(axis=0)
+    X, Y = apply(np.linalg.inv(G), [centre])[0]
+    err = 100 * (cal.px_per_mm_at(*centre) / true_scale(G, X, Y) - 1)
+    assert abs(err) < 3 * scale_uncertainty_pct(cal, *centre)
+    assert abs(err) < 2.0
+
+
 # --------------------------------------------------------------------------- figures (not a test)
 
 

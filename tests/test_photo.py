@@ -371,3 +371,12 @@ def test_float_and_32bit_integer_tiff(tmp_path):
     photo = load_photo(tmp_path / "i.tif")
     want = np.floor(i / ((2**21 - 1) / 255) + 0.5)  # scaled from the smallest bit depth holding the data
     assert np.abs(photo.gray.astype(float) - want).max() <= 1
+
+
+def test_invalid_orientation_value_is_ignored_with_a_note(tmp_path):
+    exif = Image.Exif()
+    exif[0x0112] = 9  # EXIF 2.3 defines 1..8 only
+    Image.fromarray(display_pattern()).save(tmp_path / "o9.jpg", exif=exif.tobytes(), quality=95)
+    photo = load_photo(tmp_path / "o9.jpg")
+    assert photo.exif_orientation == 1 and photo.rgb.shape == (H, W, 3)
+    assert any("orientation 9" in n for n in photo.notes)
