@@ -45,12 +45,14 @@ from PIL import Image, ImageFile, ImageOps, UnidentifiedImageError
 
 from .model import Photo, PhotoError
 
-__all__ = ["load_photo", "MIN_SIDE_PX", "DEFAULT_MAX_PIXELS"]
+__all__ = ["load_photo", "MIN_SIDE_PX", "DEFAULT_MAX_PIXELS", "MAX_FILE_BYTES"]
 
 #: Smaller photos cannot hold a marker and a face at a measurable scale.
 MIN_SIDE_PX: int = 200
 #: Default pixel-count limit (a 60 MP photo is already larger than phones take).
 DEFAULT_MAX_PIXELS: int = 60_000_000
+#: Files larger than this are refused before they are read into memory.
+MAX_FILE_BYTES: int = 500_000_000
 
 _EXIF_ORIENTATION_TAG = 0x0112  # EXIF 2.3 / TIFF 6.0 tag 274 "Orientation"
 _RETAKE = "export it again as JPEG or PNG"
@@ -174,6 +176,12 @@ def _read_source(source: str | Path | bytes, name: str | None) -> tuple[bytes, s
     if path.is_dir():
         raise PhotoError(f"{label} is a folder, not a file: give the path of one photo file")
     try:
+        size = path.stat().st_size
+        if size > MAX_FILE_BYTES:
+            raise PhotoError(
+                f"{label} is {size / 1e6:.0f} MB, larger than any photo file should be "
+                f"({MAX_FILE_BYTES / 1e6:.0f} MB): use the camera's JPEG or a resized copy"
+            )
         data = path.read_bytes()
     except FileNotFoundError:
         raise PhotoError(f"{label} not found at {str(path)!r}: check the path and file name") from None

@@ -380,3 +380,14 @@ def test_invalid_orientation_value_is_ignored_with_a_note(tmp_path):
     photo = load_photo(tmp_path / "o9.jpg")
     assert photo.exif_orientation == 1 and photo.rgb.shape == (H, W, 3)
     assert any("orientation 9" in n for n in photo.notes)
+
+
+def test_oversized_file_refused_before_reading(tmp_path, monkeypatch):
+    import surfaces.photo as photo_module
+
+    path = tmp_path / "huge.tif"
+    Image.fromarray(display_pattern()).save(path)
+    monkeypatch.setattr(photo_module, "MAX_FILE_BYTES", 1000)  # a small limit stands in for 500 MB
+    with pytest.raises(PhotoError) as ei:
+        load_photo(path)
+    _assert_one_line(ei.value, "huge.tif", "MB")
