@@ -67,7 +67,10 @@ def candidates_for(args) -> tuple[list, list, str]:
         return [], [], f"skipped: face area off by {area_err:+.0%}"
     centre = face.polygon_px.mean(axis=0)
     ppm = cal.px_per_mm_at(float(centre[0]), float(centre[1]))
-    dets = segment(face.image, face.mask, px_per_mm=face.px_per_mm, photo_px_per_mm=ppm, keep_all=True)
+    from surfaces.pipeline import EDGE_INSET_MM, _inset
+
+    m = _inset(face.mask, int(round(EDGE_INSET_MM * face.px_per_mm)))
+    dets = segment(face.image, m, px_per_mm=face.px_per_mm, photo_px_per_mm=ppm, keep_all=True)
     Ainv = np.linalg.inv(face.A_face_to_plane)
     polys = []
     grow = int(round(0.3 * face.px_per_mm))

@@ -141,18 +141,10 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
     for ex in _card_exclusion(calib):
         cv2.fillPoly(allowed, [to_px(ex)], 0)
     allowed = (allowed > 0) & valid
-    # the white card around the marker: bright, flat, unsaturated, connected to the marker
-    if calib.markers:
-        bright = (val > np.percentile(val[valid], 90)) & (sat < 40)
-        n, lab = cv2.connectedComponents(bright.astype(np.uint8), connectivity=8)
-        for ex in _card_exclusion(calib):
-            c = to_px(ex).mean(axis=0).astype(int)
-            ring = np.zeros_like(bright, np.uint8)
-            cv2.polylines(ring, [to_px(ex)], True, 1, 3)
-            ids = np.unique(lab[(ring > 0) & bright])
-            for i in ids[ids > 0]:
-                allowed &= lab != i
-            del c
+    # the card around each marker: flood the white paper from the marker's quiet
+    # zone, close over its print (scale bar, text) and keep clear of it
+    for m in calib.markers:
+        allowed &= ~_card_mask(val, to_px(apply_h(calib.H, m.corners_px)), s)
     if allowed.sum() < 50:
         raise FaceError("no room for a face beside the reference card: give --roi around the face")
 
@@ -200,6 +192,41 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
         rw, rh = rh, rw
     centre = lo + (np.array([cx, cy]) + 0.5) / s
     return centre, float(ang), rw / s, rh / s, float(min(fill, 1.0)), where
+
+
+def _card_mask(val: np.ndarray, quad_px: np.ndarray, s: float) -> np.ndarray:
+    """Coarse-plane pixels of the paper card that carries the marker ``quad_px``."""
+    h, w = val.shape
+    q = quad_px.astype(np.float64)
+    ctr = q.mean(axis=0)
+    mask = np.zeros((h + 2, w + 2), np.uint8)
+    img = np.clip(val, 0, 255).astype(np.uint8)
+    paper = []
+    for k in range(4):  # quiet-zone points just outside each side's middle
+        mid = 0.5 * (q[k] + q[(k + 1) % 4])
+        p = mid + (mid - ctr) * 0.18
+        x, y = int(round(p[0])), int(round(p[1]))
+        if 0 <= x < w and 0 <= y < h:
+            paper.append((x, y))
+    if not paper:
+        return np.zeros((h, w), bool)
+    white = float(np.median([img[y, x] for x, y in paper]))
+    for x, y in paper:
+        if img[y, x] >= 0.7 * white and not mask[y + 1, x + 1]:
+            cv2.floodFill(img.copy(), mask, (x, y), 255, loDiff=int(0.18 * white), upDiff=255,
+                          flags=8 | cv2.FLOODFILL_MASK_ONLY | (255 << 8))
+    card = mask[1:-1, 1:-1] > 0
+    marker = np.zeros((h, w), np.uint8)
+    cv2.fillPoly(marker, [np.round(ctr + (q - ctr) * 1.3).astype(np.int32)], 1)
+    card |= marker > 0
+    # close over the card's print and keep a margin
+    k = max(3, int(round(4.0 * s)) | 1)
+    card = cv2.morphologyEx(card.astype(np.uint8), cv2.MORPH_CLOSE, np.ones((k, k), np.uint8))
+    n, lab = cv2.connectedComponents(1 - card, connectivity=4)
+    border = np.unique(np.r_[lab[0], lab[-1], lab[:, 0], lab[:, -1]])
+    holes = ~np.isin(lab, border) & (card == 0)
+    card = (card > 0) | holes
+    return cv2.dilate(card.astype(np.uint8), np.ones((k, k), np.uint8)) > 0
 
 
 def _merge_collinear(best, best_lab, e):

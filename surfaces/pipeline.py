@@ -85,7 +85,7 @@ def assess(photo: Photo, settings: Settings, *, progress: Callable[[str, float],
     else:
         dets = segment(
             face.image,
-            face.mask,
+            _inset(face.mask, int(round(EDGE_INSET_MM * face.px_per_mm))),
             px_per_mm=face.px_per_mm,
             photo_px_per_mm=ppm_photo,
             min_size_mm=settings.min_size_mm,
@@ -109,6 +109,21 @@ def assess(photo: Photo, settings: Settings, *, progress: Callable[[str, float],
     t["total_s"] = time.perf_counter() - t0
     say("done", 1.0)
     return Result(photo, settings, calib, face, dets, table, assessment, t)
+
+
+#: the outermost band of the face is left to the face's own edge (its shadow and
+#: the edge's localisation error would otherwise read as a thin dark line)
+EDGE_INSET_MM = 0.25
+
+
+def _inset(mask: np.ndarray, k: int) -> np.ndarray:
+    m = mask.copy()
+    if k > 0 and min(m.shape) > 4 * k:
+        m[:k, :] = False
+        m[-k:, :] = False
+        m[:, :k] = False
+        m[:, -k:] = False
+    return m
 
 
 def assess_path(path: str | Path, settings: Settings, **kw) -> Result:
@@ -156,16 +171,31 @@ def records_table(records: list[dict]) -> pd.DataFrame:
     return df
 
 
-def build_assessment(photo, settings, calib, face, table, ppm_photo, limit_set, *, extra_warnings=()) -> dict:
-    verdict = judge(
-        table[table["status"] != "dismissed"] if len(table) else table,
-        face={"length_mm": face.length_mm, "width_mm": face.width_mm, "area_mm2": face.area_mm2},
-        nominal=dict(settings.nominal or {}),
+def judge_records(assessment: dict, limit_set) -> dict:
+    """The verdict of an assessment dict's own (stored, rounded) imperfections.
+
+    Judging the stored numbers, not the unrounded table, is what lets a
+    saved record be re-judged to exactly the same reasons.
+    """
+    table = records_table(assessment["imperfections"])
+    if len(table):
+        table = table[table["status"] != "dismissed"]
+    return judge(
+        table,
+        face={k: assessment["face"][k] for k in ("length_mm", "width_mm", "area_mm2")},
+        nominal=dict(assessment.get("nominal") or {}),
         limit_set=limit_set,
-        test=settings.test,
-    )
+        test=assessment["test"],
+    ).to_dict()
+
+
+def build_assessment(photo, settings, calib, face, table, ppm_photo, limit_set, *, extra_warnings=()) -> dict:
     warnings = list(calib.warnings) + list(face.warnings) + list(extra_warnings)
-    return _jsonable(
+    from .limits import to_toml
+
+    limits_info = limit_set.summary() if hasattr(limit_set, "summary") else {"name": limit_set.name}
+    limits_info = dict(limits_info, toml=to_toml(limit_set))
+    a = _jsonable(
         {
             "schema": SCHEMA,
             "tool": {"name": "surfaces", "version": __version__},
@@ -200,9 +230,11 @@ def build_assessment(photo, settings, calib, face, table, ppm_photo, limit_set, 
                 "warnings": list(face.warnings),
             },
             "imperfections": table_records(table),
-            "limits": limit_set.summary() if hasattr(limit_set, "summary") else {"name": limit_set.name},
-            "verdict": verdict.to_dict(),
+            "limits": limits_info,
+            "verdict": None,
             "warnings": warnings,
             "cautions": list(CAUTIONS),
         }
     )
+    a["verdict"] = _jsonable(judge_records(a, limit_set))
+    return a

@@ -242,7 +242,7 @@ def segment(
 
 def _dark_candidates(M: _Maps) -> list[Detection]:
     rel = np.where(M.mask, M.rel, 1.0)
-    seeds_lvl, grow_lvl = 0.62, 0.8
+    seeds_lvl, grow_lvl = 0.6, 0.72
     dark = hysteresis(1.0 - rel, 1.0 - grow_lvl, 1.0 - seeds_lvl)
     speck_px = (SPECK_MM * M.mm) ** 2 * math.pi / 4
     lab, n = ndi.label(dark, structure=np.ones((3, 3)))
@@ -345,6 +345,9 @@ def _trace_dark(i, sl, lab, M: _Maps) -> Detection | None:
     rl, _ = ndi.label(region | seed, structure=np.ones((3, 3)))
     keep = np.unique(rl[seed])
     region = np.isin(rl, keep[keep > 0])
+    # stay with the seed: half contrast must not leak into the dark grain around it
+    reach = max(2, int(round(max(1.5 / M.photo_mm, 0.1) * mm)))
+    region &= ndi.binary_dilation(seed, iterations=reach)
     region = ndi.binary_fill_holes(region) & pmask
     if region.sum() < 2:
         return None
