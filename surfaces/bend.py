@@ -284,7 +284,9 @@ def _card_mask(lab_l, sat, calib, to_px, shape) -> np.ndarray:
         c = apply_h(calib.H, m.corners_px)
         ctr = c.mean(axis=0)
         cv2.fillPoly(card, [to_px(ctr + (c - ctr) * 1.6)], 1)  # marker + quiet zone (2 modules a side)
-        cv2.fillPoly(near, [to_px(ctr + (c - ctr) * 4.0)], 1)
+        # the paper around the marker (a ruler makes it 50 mm or more wide)
+        reach = max(4.0, 70.0 / max(float(np.linalg.norm(c[0] - ctr)), 1e-6))
+        cv2.fillPoly(near, [to_px(ctr + (c - ctr) * reach)], 1)
         seeds.append(to_px(ctr + (c - ctr) * 1.35))
     if seeds:
         bright = (lab_l > np.percentile(lab_l, 60)) & (sat < 45) & (near > 0)
@@ -400,7 +402,8 @@ def _coarse_coupon(rgb, gray, calib: Calibration, roi_poly):
         L, Wd = rw / s, rh / s
     ang = (ang + 90.0) % 180.0 - 90.0  # x runs left to right in the plane
     centre = lo + (c_px + 0.5) / s
-    return centre, float(ang), float(L), float(Wd)
+    card_map = (card.astype(np.uint8), A)  # coarse plane px -> plane mm
+    return centre, float(ang), float(L), float(Wd), card_map
 
 
 def _straight_strip(plane: np.ndarray, comp: np.ndarray, allowed: np.ndarray, *, px_per_mm: float):
@@ -433,6 +436,9 @@ def _straight_strip(plane: np.ndarray, comp: np.ndarray, allowed: np.ndarray, *,
     cx, cy = (w - 1) / 2, (h - 1) / 2
     wmin, wmax = WIDTH_RANGE_MM[0] * s, WIDTH_RANGE_MM[1] * s
 
+    compf = comp[r0:r1, c0:c1].astype(np.float32)
+    total = max(float(compf.sum()), 1.0)
+
     def profile(theta):
         # rotate so that direction theta runs along the columns; sum each row
         n = (-math.sin(theta), math.cos(theta))
@@ -442,9 +448,13 @@ def _straight_strip(plane: np.ndarray, comp: np.ndarray, allowed: np.ndarray, *,
         R[1, 2] += (diag - 1) / 2 - cy
         rot = cv2.warpAffine(gn, R, (diag, diag), flags=cv2.INTER_LINEAR, borderValue=0)
         p = cv2.reduce(rot, 1, cv2.REDUCE_SUM).ravel()
-        return np.convolve(p, [0.25, 0.5, 0.25], mode="same"), rot
+        rc = cv2.reduce(cv2.warpAffine(compf, R, (diag, diag), flags=cv2.INTER_LINEAR, borderValue=0), 1, cv2.REDUCE_SUM).ravel()
+        return np.convolve(p, [0.25, 0.5, 0.25], mode="same"), np.r_[0.0, np.cumsum(rc)] / total
 
-    def best_pair(p):
+    def best_pair(prof):
+        # the pair of opposite straight steps that bounds the candidate region best:
+        # the weaker step's strength times the share of the region between them, squared
+        p, cum = prof
         inner = p[1:-1]
         is_pk = (inner >= p[:-2]) & (inner >= p[2:]) & (inner > 0)
         is_nk = (inner <= p[:-2]) & (inner <= p[2:]) & (inner < 0)
@@ -455,7 +465,10 @@ def _straight_strip(plane: np.ndarray, comp: np.ndarray, allowed: np.ndarray, *,
         pk = pk[np.argsort(-p[pk])[:12]]
         nk = nk[np.argsort(p[nk])[:12]]
         sep = np.abs(pk[:, None] - nk[None, :])
-        sc = np.minimum(p[pk][:, None], -p[nk][None, :])
+        lo_i = np.minimum(pk[:, None], nk[None, :])
+        hi_i = np.maximum(pk[:, None], nk[None, :])
+        cover = cum[np.minimum(hi_i + 1, len(cum) - 1)] - cum[lo_i]
+        sc = np.minimum(p[pk][:, None], -p[nk][None, :]) * np.clip(cover, 0, 1) ** 2
         sc = np.where((sep >= wmin) & (sep <= wmax), sc, 0.0)
         a, b = np.unravel_index(int(np.argmax(sc)), sc.shape)
         if sc[a, b] <= 0:
@@ -465,14 +478,14 @@ def _straight_strip(plane: np.ndarray, comp: np.ndarray, allowed: np.ndarray, *,
     def refine(deg):
         best = (0.0, float(deg), None)
         for d in np.arange(deg - 2.0, deg + 2.01, 0.25):
-            sc2, pair2 = best_pair(profile(math.radians(d))[0])
+            sc2, pair2 = best_pair(profile(math.radians(d)))
             if pair2 is not None and sc2 > best[0]:
                 best = (sc2, float(d), pair2)
         return best
 
     scores = []
     for deg in range(0, 180, 2):
-        sc, pair = best_pair(profile(math.radians(deg))[0])
+        sc, pair = best_pair(profile(math.radians(deg)))
         scores.append((sc, deg, pair))
     sc, deg, pair = max(scores, key=lambda t: t[0])
     if pair is None or sc <= 0:
@@ -592,7 +605,7 @@ def find_coupon(
     roi_poly = _face._roi_polygon(roi, gray.shape) if roi is not None else None
     method = "auto" if roi is None else ("roi-box" if len(roi) == 4 else "roi-corners")
     warnings: list[str] = []
-    centre, axis, L, Wd = _coarse_coupon(rgb, gray, calib, roi_poly)
+    centre, axis, L, Wd, card_map = _coarse_coupon(rgb, gray, calib, roi_poly)
 
     # fine pass at EDGE_PX_PER_MM: straight long edges from brightness steps across the coupon
     e = EDGE_PX_PER_MM
@@ -640,7 +653,8 @@ def find_coupon(
     # beside it (colour, texture)
     A2 = _face.face_frame(mid_mm, axis2, (ox, -width / 2 - m_y), px_per_mm=e)
     sub2 = _face.warp_to_face(rgb, calib.H, A2, (h, w))
-    x_lo, x_hi, ok_ends = _visible_extent(sub2, px_per_mm=e, m_y=m_y, width=width, m_x=m_x, L=L)
+    card2 = _card_in_frame(card_map, A2, (h, w))
+    x_lo, x_hi, ok_ends = _visible_extent(sub2, px_per_mm=e, m_y=m_y, width=width, m_x=m_x, L=L, card=card2)
     if not ok_ends:
         warnings.append("the coupon's ends are unclear: check the visible length on the overlay or give --roi")
     fx0, fx1 = ox + (x_lo + 0.5) / e, ox + (x_hi + 0.5) / e
@@ -652,6 +666,9 @@ def find_coupon(
     Af = _face.face_frame(mid_mm, axis2, (fx0, -width / 2), px_per_mm=px_per_mm)
     Af = _face._rescale_frame(Af, length / wf, width / hf, px_per_mm)
     img = _face.warp_to_face(rgb, calib.H, Af, (hf, wf))
+    on_card = _card_in_frame(card_map, Af, (hf, wf))
+    if on_card.any():
+        warnings.append("the reference card covers part of the coupon: that part is not assessed")
     corners = np.array([[-0.5, -0.5], [wf - 0.5, -0.5], [wf - 0.5, hf - 0.5], [-0.5, hf - 0.5]])
     poly_px = apply_h(np.linalg.inv(calib.H) @ Af, corners)
     Hp, Wp = gray.shape[:2]
@@ -660,7 +677,7 @@ def find_coupon(
     fit_ok = 0.5 * (okt.mean() + okb.mean())
     return Face(
         image=img,
-        mask=np.ones((hf, wf), bool),
+        mask=~on_card,
         px_per_mm=px_per_mm,
         A_face_to_plane=Af,
         length_mm=float(length),
@@ -699,12 +716,23 @@ def _outer_step(p: np.ndarray, lo: int, hi: int, *, outward: int) -> float:
     return j + float(np.clip(off, -0.5, 0.5))
 
 
-def _visible_extent(sub: np.ndarray, *, px_per_mm: float, m_y: float, width: float, m_x: float, L: float):
+def _card_in_frame(card_map, A_frame: np.ndarray, shape) -> np.ndarray:
+    """The card mask (coarse plane grid) sampled on another frame's pixel grid."""
+    card, A_coarse = card_map
+    M = np.linalg.inv(A_coarse) @ A_frame  # frame px -> coarse px
+    out = cv2.warpPerspective(card, M, (int(shape[1]), int(shape[0])), flags=cv2.INTER_NEAREST | cv2.WARP_INVERSE_MAP,
+                              borderMode=cv2.BORDER_CONSTANT, borderValue=0)
+    return out > 0
+
+
+def _visible_extent(sub: np.ndarray, *, px_per_mm: float, m_y: float, width: float, m_x: float, L: float, card=None):
     """Columns where the coupon starts and ends in a sub-image whose rows are centred on it.
 
-    Per column, the coupon's features (colour, texture) between its edges are
-    compared with the table's just outside them; the coupon lasts while the
-    difference stays above 35 % of its typical value in the middle.
+    Per column, the features (colour, texture) just inside each long edge are
+    compared with those just outside it: the coupon lasts while both edges
+    are there, above 35 % of their typical difference in the middle.  When
+    the edges do not differ enough anywhere, the whole strip between them is
+    compared with the table beside it instead.
     """
     e = px_per_mm
     h, w = sub.shape[:2]
@@ -738,7 +766,11 @@ def _visible_extent(sub: np.ndarray, *, px_per_mm: float, m_y: float, width: flo
     n2, span2 = normalised(c_edge)
     if span1 < 6.0 and span2 < 6.0:
         return m_x * e, (m_x + L) * e, False
-    c = np.maximum(n1 if span1 >= 6.0 else 0 * n1, n2 if span2 >= 6.0 else 0 * n2)
+    # the long edges decide where there is coupon; the colour difference only when the
+    # edges cannot be seen (a shadow or the card beside the strip fools the colour)
+    c = n2 if span2 >= 6.0 else n1
+    if card is not None:
+        c = np.where(card[int(m_y * e) : int((m_y + width) * e) + 1].mean(axis=0) > 0.2, 0.0, c)  # the card is not coupon
     mid, out_lvl = 1.0, 0.0
     level = out_lvl + 0.35 * (mid - out_lvl)
     below = c < level
@@ -901,7 +933,7 @@ def detect(
             f"lengths along the coupon corrected to the curved surface (outer radius {R:.1f} mm, {why}; "
             f"apex taken at the centre of the visible bend, x = {apex:.1f} mm)"
         )
-    dets = find_openings(face.image, px_per_mm=face.px_per_mm, photo_px_per_mm=photo_px_per_mm, min_size_mm=settings.min_size_mm)
+    dets = find_openings(face.image, px_per_mm=face.px_per_mm, photo_px_per_mm=photo_px_per_mm, min_size_mm=settings.min_size_mm, mask=face.mask)
     return dets, face, length_factor, notes
 
 
@@ -912,6 +944,7 @@ def find_openings(
     photo_px_per_mm: float,
     min_size_mm: float = 0.3,
     sensitivity: float = 1.0,
+    mask: np.ndarray | None = None,
 ) -> list[Detection]:
     """Open discontinuities on a rectified coupon image (column = x along it, rows between the long edges).
 
@@ -928,6 +961,8 @@ def find_openings(
         Smallest greatest dimension reported.
     sensitivity : float
         Multiplies the thresholds (lower finds fainter openings).
+    mask : (h, w) bool ndarray, optional
+        True where the coupon is seen (False under the reference card).
 
     Returns
     -------
@@ -948,6 +983,9 @@ def find_openings(
     seed_mask[-ign:] = False
     seed_mask[:, :ign_x] = False
     seed_mask[:, -ign_x:] = False
+    if mask is not None and not mask.all():
+        # keep clear of whatever covers the coupon (the card's edge)
+        seed_mask &= cv2.erode(mask.astype(np.uint8), _disk(END_IGNORE_MM * mm)) > 0
     sig = _robust_sigma(rel[seed_mask])
     hi = sensitivity * max(6.0 * sig, 0.10)
     lo = sensitivity * max(3.0 * sig, 0.05)
