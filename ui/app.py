@@ -693,7 +693,8 @@ def save_panel(w, auto: dict, reviewed: dict) -> None:
     with st.container(border=True, key="step_save"):
         st.subheader("6 · Save and export")
         show_flashes()
-        unsaved = w.saved_id is None or (w.review.touched and w.saved_review != _review_fingerprint(reviewed))
+        reviewing = w.review.touched or bool(w.review.reviewer.strip())
+        unsaved = w.saved_id is None or (reviewing and w.saved_review != _review_fingerprint(reviewed))
         if w.saved_id is not None:
             st.markdown(f"Record: assessment **{w.saved_id}**" + (" — your latest changes are not saved yet."
                                                                 if unsaved else " — saved."))
@@ -1007,9 +1008,10 @@ def sidebar() -> str:
         if len(ws) > 1:
             keys = list(ws)[::-1]
             cur = st.session_state.get("current")
+            wkey = f"pick_work_{cur}"  # a new widget whenever the shown photo changes elsewhere
             st.radio("Photos in this session", keys, index=keys.index(cur) if cur in keys else 0,
                      format_func=lambda k: ws[k].name + (f" (record {ws[k].saved_id})" if ws[k].saved_id else ""),
-                     key="pick_work", on_change=lambda: st.session_state.update(current=st.session_state["pick_work"]))
+                     key=wkey, on_change=lambda: st.session_state.update(current=st.session_state[wkey]))
         st.divider()
         st.caption(f"Records: `{S.db_path()}`")
         st.caption("This page runs on this computer only (127.0.0.1).")

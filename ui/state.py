@@ -51,7 +51,9 @@ class Work:
 
     def auto(self, settings: Settings, limit_set) -> dict:
         """The automatic assessment judged with ``settings``' nominal sizes and ``limit_set``."""
-        k = (settings.key(), limit_set.name, limit_set.version, hash(limit_set))
+        from surfaces.limits import to_toml
+
+        k = (settings.key(), to_toml(limit_set))
         if k not in self._judged:
             base = copy.deepcopy(self.auto_base)
             base["settings"] = asdict(settings)
