@@ -307,28 +307,58 @@ def _loadavg() -> float | None:
 
 def _render_one(job: tuple) -> str:
     """Worker: render one generated photo and save it with its truth; returns the path."""
-    folder, k, seed, test, mp = job
+    folder, k, seed, test, mp, defects = job
     synth = _synth()
+    kw = {} if defects is None else {"defects": defects}
     if test == "bend":
-        ph = synth.render_bend(seed, megapixels=mp)
+        ph = synth.render_bend(seed, megapixels=mp, **kw)
     else:
-        ph = synth.render_fracture(seed, test=test, megapixels=mp)
-    return str(ph.save(Path(folder) / f"gen_{k:03d}_{test}_seed{seed}_{mp:.1f}mp.jpg"))
+        ph = synth.render_fracture(seed, test=test, megapixels=mp, **kw)
+    tag = "gen" if defects is None else "limit"
+    return str(ph.save(Path(folder) / f"{tag}_{k:03d}_{test}_seed{seed}_{mp:.1f}mp.jpg"))
+
+
+#: Imperfections placed right at a default preset's limit (REFERENCES.md):
+#: AWS D1.1 fillet break, pore 3/32 in = 2.38 mm; API 1104 nick-break, gas
+#: pocket 1/16 in = 1.59 mm; AWS D1.1 bend, discontinuity 1/8 in, 3 mm.
+AT_LIMIT = (
+    ("fillet-break", "pore", "d_mm", 2.38),
+    ("nick-break", "pore", "d_mm", 1.59),
+    ("bend", "crack", "length_mm", 3.0),
+)
+AT_LIMIT_OFFSETS_MM = (-0.08, 0.0, 0.08)
+
+
+def _at_limit_jobs(folder: Path, *, n: int, seed: int, start: int) -> list[tuple]:
+    jobs = []
+    for j in range(n):
+        test, kind, key, value = AT_LIMIT[j % len(AT_LIMIT)]
+        off = AT_LIMIT_OFFSETS_MM[(j // len(AT_LIMIT)) % len(AT_LIMIT_OFFSETS_MM)]
+        spec = {"kind": kind, key: round(value + off, 3)}
+        if kind == "crack":
+            spec.update(edge="", width_mm=0.25)
+        jobs.append((str(folder), start + j, int(seed) + 50000 + j, test, 3.0, [spec]))
+    return jobs
 
 
 def generated_set(folder: Path, *, n: int, seed: int, mp_range=(2.0, 12.0), extra_mp: tuple[float, ...] = (),
-                  tests=("fillet-break", "nick-break", "bend"), workers: int = 2, say=print) -> list[Path]:
+                  at_limit: int = 0, tests=("fillet-break", "nick-break", "bend"), workers: int = 2,
+                  say=print) -> list[Path]:
     """Write ``n`` seeded synthetic photos (mixed tests, sizes, tilts, scales) into ``folder``.
 
     Photo ``k`` uses seed ``seed + k`` and the test ``tests[k % len(tests)]``;
     its size is drawn here in ``mp_range`` (``extra_mp`` adds photos of those
     exact sizes after the ``n``); the generator draws tilt (0-30 deg) and
-    scale (8-25 px/mm at the face) from its own seeded ranges.  Rendering
+    scale (8-25 px/mm at the face) from its own seeded ranges and the
+    imperfections from its ``mixed`` set.  ``at_limit`` adds 3 MP photos with
+    one imperfection within 0.08 mm of a default preset's limit
+    (:data:`AT_LIMIT`): coupons the tool must send to ``review``.  Rendering
     runs in ``workers`` processes; the result does not depend on it.
     """
     rng = np.random.default_rng([int(seed), 424242])
     sizes = [float(rng.uniform(*mp_range)) for _ in range(n)] + [float(m) for m in extra_mp]
-    jobs = [(str(folder), k, int(seed) + k, tests[k % len(tests)], mp) for k, mp in enumerate(sizes)]
+    jobs = [(str(folder), k, int(seed) + k, tests[k % len(tests)], mp, None) for k, mp in enumerate(sizes)]
+    jobs += _at_limit_jobs(folder, n=at_limit, seed=seed, start=len(jobs))
     if workers > 1 and len(jobs) > 1:
         import multiprocessing as mpc
         from concurrent.futures import ProcessPoolExecutor
@@ -703,7 +733,7 @@ def format_table(report: dict) -> str:
 
 
 def run_bench(*, n: int = 30, seed: int = 1, sizes=(3.0, 8.0, 12.0), repeat: int = 3, folder=None,
-              realdata=None, skip_speed: bool = False, skip_accuracy: bool = False, batch_n: int = 6,
+              realdata=None, skip_speed: bool = False, skip_accuracy: bool = False, batch_n: int = 6, at_limit: int = 6,
               workers: int = 2, workdir=None, say=print) -> dict:
     """Run the bench and return the report dict (also what ``--json`` writes)."""
     from . import __version__
@@ -719,14 +749,15 @@ def run_bench(*, n: int = 30, seed: int = 1, sizes=(3.0, 8.0, 12.0), repeat: int
                                         workdir=wd, say=say)
         if not skip_accuracy:
             acc = {}
-            if n > 0:
+            if n > 0 or at_limit > 0:
                 gdir = wd / "generated"
                 gdir.mkdir(exist_ok=True)
-                say(f"accuracy: generating {n} photos (seed {seed}) ...")
-                paths = generated_set(gdir, n=n, seed=seed, workers=workers, say=say)
+                say(f"accuracy: generating {n} + {at_limit} photos at limits (seed {seed}) ...")
+                paths = generated_set(gdir, n=n, seed=seed, at_limit=at_limit, workers=workers, say=say)
                 say(f"accuracy: assessing {n} photos with {workers} processes ...")
                 acc["generated"] = score_results(assess_folder(paths, workers=workers))
                 acc["generated"]["n"] = n
+                acc["generated"]["at_limit"] = at_limit
             if folder:
                 paths = _photo_list(Path(folder))
                 if not paths:
@@ -781,7 +812,7 @@ def cmd_bench(a: argparse.Namespace) -> int:
     if a.json and Path(a.json).exists() and not a.force:
         raise BenchError(f"{a.json} exists: give another --json name or --force to overwrite")
     rep = run_bench(n=a.n, seed=a.seed, sizes=a.sizes, repeat=a.repeat, folder=a.folder, realdata=a.realdata,
-                    skip_speed=a.skip_speed, skip_accuracy=a.skip_accuracy, batch_n=a.batch_n, workers=a.workers,
+                    skip_speed=a.skip_speed, skip_accuracy=a.skip_accuracy, batch_n=a.batch_n, at_limit=a.at_limit, workers=a.workers,
                     say=(lambda m: None) if a.quiet else (lambda m: print(m, file=sys.stderr)))
     print(format_table(rep))
     if a.json:
@@ -814,6 +845,8 @@ def add_commands(sub) -> None:
     p.add_argument("--seed", type=_nonneg_int, default=1, help="seed of the generated photos (default 1)")
     p.add_argument("--sizes", type=_sizes, default=[3.0, 8.0, 12.0], help="photo sizes for speed, MP (default 3,8,12)")
     p.add_argument("--repeat", type=_pos_int, default=3, help="timed runs per size after one warm-up (default 3)")
+    p.add_argument("--at-limit", type=_nonneg_int, default=6,
+                   help="extra generated photos with one imperfection at a preset's limit (default 6)")
     p.add_argument("--batch-n", type=_pos_int, default=6, help="photos in the batch throughput run (default 6)")
     p.add_argument("--workers", type=_pos_int, default=2, help="processes for the accuracy runs (default 2)")
     p.add_argument("--folder", help="also score a folder of photos with <name>.truth.json beside each")

@@ -1,7 +1,8 @@
 """Accuracy on a seeded synthetic set, against truth known by construction.
 
 The set: 30 photos of 2 to 4 MP plus 3 of 12 MP, fillet-break, nick-break
-and bend faces in turn; the generator draws camera tilt (0 to 30 degrees)
+and bend faces in turn, plus 6 photos of 3 MP with one imperfection at a
+default preset's limit (which must go to ``review``); the generator draws camera tilt (0 to 30 degrees)
 and scale (8 to 25 px/mm at the face) from its seeded ranges.  Every photo
 is assessed with the settings an inspector would give (test, marker side,
 nominal sizes) and matched to its truth by :func:`surfaces.evaluate.match`.
@@ -31,6 +32,7 @@ from surfaces import bench
 pytestmark = pytest.mark.slow  # about 5 minutes on 2 cores
 
 N_SMALL, EXTRA_12MP, SEED = 30, (12.0, 12.0, 12.0), 20261
+AT_LIMIT = 6  # 3 MP photos with one imperfection within 0.08 mm of a preset's limit
 FRAC_WITHIN_TARGET = 0.90
 
 
@@ -38,7 +40,7 @@ FRAC_WITHIN_TARGET = 0.90
 def scored(tmp_path_factory):
     folder = tmp_path_factory.mktemp("accuracy_set")
     paths = bench.generated_set(folder, n=N_SMALL, seed=SEED, mp_range=(2.0, 4.0), extra_mp=EXTRA_12MP,
-                                workers=2, say=None)
+                                at_limit=AT_LIMIT, workers=2, say=None)
     results = bench.assess_folder(paths, workers=2)
     s = bench.score_results(results)
     # leave the figures beside the set for whoever reads the test log
@@ -49,7 +51,7 @@ def scored(tmp_path_factory):
 
 def test_the_set_spans_the_stated_ranges(scored):
     _, truths = scored
-    assert len(truths) >= 30
+    assert len(truths) >= 30 + AT_LIMIT
     mp = [t["photo_size"][0] * t["photo_size"][1] / 1e6 for t in truths]
     tilt = [t["tilt_deg"] for t in truths]
     ppm = [t["px_per_mm_face"] for t in truths]
@@ -131,5 +133,6 @@ def test_no_false_accepts_and_borderline_goes_to_review(scored):
     s, _ = scored
     assert s["n_false_accepts"] == 0, f"{s['n_false_accepts']} false accept(s): {s['false_accepts'][:3]}"
     b = s["borderline"]
+    assert b["n"] >= AT_LIMIT, f"only {b['n']} borderline coupon/limit pairs in the set"
     wrong = [i for i in b["items"] if i["tool"] != "review"]
     assert not wrong, f"borderline sent to review: {b['review']}/{b['n']}; not: {wrong[:3]}"
