@@ -76,7 +76,7 @@ class FractureBuilder:
             y_root, y_free = np.full_like(x, W), wav
         face = np.r_[np.c_[x, y_root], np.c_[x[::-1], y_free[::-1]]]
         area = _shapes.polygon_area(face)
-        params = {"wander_mm": float(amp), "true_area_mm2": area}
+        params = {"wander_mm": float(amp), "true_area_mm2": area, "root_y_mm": 0.0 if root == "y0" else float(W)}
         toe_sign = 1.0 if root == "y0" else -1.0
         if fillet:
             bead = rng.uniform(0.6, 1.3) * W
@@ -208,7 +208,7 @@ class FractureBuilder:
             if tint not in TINTS:
                 raise SynthError(f"unfused tint {tint!r} is unknown (use {', '.join(TINTS)})")
             if side == "root":
-                y_edge = 0.0 if g.root_side == "y0" else W
+                y_edge = g.params["root_y_mm"]  # the straight root edge itself
                 sign = 1.0 if g.root_side == "y0" else -1.0
                 poly = _shapes.band(rng, x0, x0 + length, y_edge, wid, sign=sign)
                 iso = "4021"
@@ -321,7 +321,7 @@ class FractureBuilder:
             sub = sub * (1 - 0.35 * tint_w * band[..., None]) + 0.35 * tint_w * band[..., None] * tcol * sub.mean()
             rgb[r0:r1] = sub * (1 - a_b) + bead_rgb * a_b
             # the root line: the gap the web plate left
-            y_r = 0.0 if root0 else W
+            y_r = g.params["root_y_mm"]
             q0 = max(0, int((y_r - 2.0 - lo[1]) * r))
             q1 = min(h, int(math.ceil((y_r + 2.0 - lo[1]) * r)) + 1)
             Xq, Yq = X[q0:q1], Y[q0:q1]

@@ -244,7 +244,11 @@ def render_scene(
         ruler = bool(rs["card"].random() < 0.4)
 
     # ---- geometry + card placement, shrinking a long face until it fits the wanted scale
-    ppm_want = float(px_per_mm) if px_per_mm is not None else float(rs["camera"].uniform(8.0, 25.0))
+    if px_per_mm is not None:
+        ppm_want = float(px_per_mm)
+    else:
+        # half the time shorten a long face towards a close-up, half the time keep its length
+        ppm_want = float(rs["camera"].uniform(8.0, 25.0)) if rs["camera"].random() < 0.5 else 8.0
     card_rng_state = rs["card"].bit_generator.state
     shrink, last_len = 1.0, None
     for attempt in range(40):
