@@ -480,3 +480,13 @@ def test_face_box_runs_again_and_back(at, photos):
     at.button(key=f"roi_auto_{w2.key}").click().run()
     assert not at.exception
     assert w2.sha256 not in at.session_state["roi"]  # the box is gone: the next analysis is automatic again
+
+
+def test_page_wording_names_the_page_controls():
+    from ui.helpers import page_wording
+
+    msg = page_wording("could not find the face automatically: give --roi X0,Y0,X1,Y1 (a rough box around "
+                       "the face in photo pixels)")
+    assert "--" not in msg and "box" in msg
+    assert page_wording("no marker: retake it, or give --px-per-mm or --ruler") == \
+        "no marker: retake it, or type the scale by hand below"

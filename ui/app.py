@@ -268,7 +268,7 @@ def view_assess() -> None:
             failure = load_and_analyse(data, name, origin, coupon, settings, hold=hold)
         except SurfacesError as err:  # bad file: say so, keep earlier work
             bad_input = True
-            st.error(f":material/error: {err}")
+            st.error(f":material/error: {H.page_wording(str(err))}")
 
     w = S.current()
     if (failure or bad_input) and w is not None:
@@ -280,8 +280,9 @@ def view_assess() -> None:
             sha, Wp, Hp = st.session_state["failed_photo"]
             with st.container(border=True, key="step_face_failed"):
                 st.subheader("3 · Face region")
-                st.markdown("Draw a rough box around the face (photo pixels: x to the right, y down from the "
-                            "top-left corner) and run again.")
+                st.error(f":material/error: {failure[0]}")
+                st.markdown(f"Draw a rough box around the face in photo pixels (x to the right, y down from the "
+                            f"top-left corner; this photo is {Wp} × {Hp}) and run again.")
                 face_box_inputs(sha, Wp, Hp, (Wp * 0.25, Hp * 0.25, Wp * 0.75, Hp * 0.75), "failed")
     if w is None:
         if picked is None:
@@ -345,7 +346,7 @@ def load_and_analyse(data: bytes, name: str, origin: str, coupon: dict, settings
     except SurfacesError as err:
         st.session_state["last_input"] = marker
         st.session_state["failed_photo"] = (sha, photo.width, photo.height)
-        return str(err), type(err).__name__
+        return H.page_wording(str(err)), type(err).__name__
     w = S.Work(key=key, name=name, sha256=sha, data=data, photo=photo, result=res,
                auto_base=res.assessment, settings=settings, coupon=coupon, origin=origin)
     S.add_work(w)
@@ -356,7 +357,9 @@ def load_and_analyse(data: bytes, name: str, origin: str, coupon: dict, settings
 def scale_panel(w, failure, have_input: bool) -> None:
     with st.container(border=True, key="step_scale"):
         st.subheader("2 · Scale")
-        if failure:
+        if failure and failure[1] == "FaceError":
+            st.info("The scale is measured together with the face: see 3 · Face region below.")
+        elif failure:
             st.error(f":material/error: {failure[0]}")
             if failure[1] == "CalibrationError":
                 st.markdown("**What to check before retaking:**\n" + "\n".join(f"- {h}" for h in H.NO_MARKER_HINTS))
@@ -405,14 +408,13 @@ def face_panel(w, auto: dict) -> None:
 
 def face_box_inputs(sha: str, Wp: int, Hp: int, box, key: str) -> None:
     """Four numbers for a face box (photo px) and the buttons to run again with it or without it."""
-    cols = st.columns(4)
+    cols = [*st.columns(2), *st.columns(2)]
     vals = []
     for col, lab, v, hi in zip(cols, ("left x", "top y", "right x", "bottom y"), box, (Wp, Hp, Wp, Hp)):
         vals.append(col.number_input(f"Face box {lab} (px)", min_value=0, max_value=int(hi),
                                      value=int(round(min(max(float(v), 0), hi))), step=10,
                                      key=f"roi_{lab}_{key}"))
-    b1, b2 = st.columns(2)
-    if b1.button("Run again with this box", key=f"roi_run_{key}", icon=":material/crop:"):
+    if st.button("Run again with this box", key=f"roi_run_{key}", icon=":material/crop:"):
         bx0, by0, bx1, by1 = vals
         if bx1 <= bx0 or by1 <= by0:
             st.error("The box needs left < right and top < bottom: check the four numbers.")
@@ -420,7 +422,7 @@ def face_box_inputs(sha: str, Wp: int, Hp: int, box, key: str) -> None:
             st.session_state.setdefault("roi", {})[sha] = tuple(float(v) for v in vals)
             st.session_state.pop("last_input", None)
             st.rerun()
-    if b2.button("Back to the automatic outline", key=f"roi_auto_{key}",
+    if st.button("Back to the automatic outline", key=f"roi_auto_{key}",
                  disabled=st.session_state.get("roi", {}).get(sha) is None):
         st.session_state["roi"].pop(sha, None)
         st.session_state.pop("last_input", None)
@@ -953,6 +955,8 @@ def run_uploaded_batch(ups, *, test: str, limits: str, batch: str, common: dict)
         bar.progress(1.0, text=f"done: {len(names)} photo(s)")
     if refused:
         df = pd.concat([df, pd.DataFrame(refused)], ignore_index=True)
+    if "error" in df:
+        df["error"] = df["error"].map(lambda e: H.page_wording(e) if isinstance(e, str) else e)
     return df
 
 
@@ -1029,7 +1033,7 @@ def main() -> None:
     try:
         {VIEWS[0]: view_assess, VIEWS[1]: view_batch, VIEWS[2]: view_histories, VIEWS[3]: view_limits}[view]()
     except SurfacesError as err:
-        st.error(f":material/error: {err}")
+        st.error(f":material/error: {H.page_wording(str(err))}")
     except Exception as err:  # never a traceback on the page; the log has it
         log.exception("page error")
         st.error(f":material/error: Something went wrong on the page ({err.__class__.__name__}: {err}). "

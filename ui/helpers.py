@@ -71,6 +71,24 @@ def check_upload(data: bytes, name: str, *, max_mb: int = MAX_UPLOAD_MB) -> None
 
 # --------------------------------------------------------------------------- wording
 
+_CLI_WORDS = (
+    (r"give --roi X0,Y0,X1,Y1 \([^)]*\)", "draw a rough box around it below"),
+    (r"give --roi (around|tightly around|inside)", r"draw the face box \1"),
+    (r"or give --px-per-mm or --ruler", "or type the scale by hand below"),
+    (r"give --px-per-mm or --ruler", "type the scale by hand below"),
+    (r"--roi", "the face box"), (r"--px-per-mm", "the typed scale"), (r"--marker-mm", "the marker size"),
+    (r"--former-mm", "the former diameter"), (r"--thickness-mm", "the thickness"),
+    (r"--bend-angle", "the bend angle"), (r"--min-size-mm", "the smallest size reported"),
+)
+
+
+def page_wording(message: str) -> str:
+    """A core message with the command-line option names replaced by the page's own controls."""
+    out = str(message)
+    for pattern, repl in _CLI_WORDS:
+        out = re.sub(pattern, repl, out)
+    return out
+
 
 def fmt_pm(v, u, nd: int = 2) -> str:
     """``1.23 ± 0.05`` (1-sigma), ``-`` when missing."""

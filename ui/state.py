@@ -109,9 +109,10 @@ def _cached_assess(photo_sha256: str, settings_key: str, _photo: Photo, _setting
     def say(msg: str, frac: float) -> None:
         bar.progress(min(max(float(frac), 0.0), 1.0), text=msg)
 
-    res = assess(_photo, _settings, progress=say)
-    box.empty()
-    return res
+    try:
+        return assess(_photo, _settings, progress=say)
+    finally:  # also when the analysis fails: no half-full bar left on the page
+        box.empty()
 
 
 def analyse(photo: Photo, settings: Settings):
