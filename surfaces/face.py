@@ -216,6 +216,11 @@ def _card_mask(val: np.ndarray, quad_px: np.ndarray, s: float) -> np.ndarray:
             cv2.floodFill(img.copy(), mask, (x, y), 255, loDiff=int(0.18 * white), upDiff=255,
                           flags=8 | cv2.FLOODFILL_MASK_ONLY | (255 << 8))
     card = mask[1:-1, 1:-1] > 0
+    side_px = float(np.mean(np.linalg.norm(np.roll(q, -1, 0) - q, axis=1)))
+    # a flood that leaks into a pale table is no card: an A4 sheet is the largest we print
+    if card.sum() > min(70000.0 * s * s, 0.4 * h * w, 400.0 * side_px**2):
+        card = np.zeros((h, w), bool)
+        cv2.fillPoly(card.view(np.uint8), [np.round(ctr + (q - ctr) * 2.6).astype(np.int32)], 1)
     marker = np.zeros((h, w), np.uint8)
     cv2.fillPoly(marker, [np.round(ctr + (q - ctr) * 1.3).astype(np.int32)], 1)
     card |= marker > 0

@@ -77,6 +77,13 @@ def assess(photo: Photo, settings: Settings, *, progress: Callable[[str, float],
     t["face_s"] = time.perf_counter() - t1
     centre = face.polygon_px.mean(axis=0)
     ppm_photo = calib.px_per_mm_at(float(centre[0]), float(centre[1]))
+    if calib.markers:
+        # the scale's uncertainty where it is used: at the face, not at the marker
+        from dataclasses import replace
+
+        from .calibrate import scale_uncertainty_pct
+
+        calib = replace(calib, uncertainty_pct=float(scale_uncertainty_pct(calib, float(centre[0]), float(centre[1]))))
     say("finding imperfections", 0.55)
     t2 = time.perf_counter()
     length_factor = None
