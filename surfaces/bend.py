@@ -55,6 +55,8 @@ __all__ = ["find_coupon", "detect", "outer_radius", "arc_length_map", "STEEP_SLO
 
 _DEBUG: dict = {}
 COARSE_PX_PER_MM = 4.0
+EDGE_PRESENCE = 3.0  # a long edge is there while it differs 3x more than the table varies
+END_LEVEL = 0.25  # the coupon ends where its edges fade below this share of their contrast mid-coupon
 EDGE_PX_PER_MM = 8.0  # resolution of the pass that places the long edges
 WIDTH_RANGE_MM = (5.0, 70.0)  # coupons accepted (typical 10-40 mm)
 LENGTH_RANGE_MM = (15.0, 320.0)  # visible length accepted (typical 40-150 mm)
@@ -81,7 +83,11 @@ END_IGNORE_MM = 1.0
 END_ZONE_MM = 2.5  # an opening wholly this close to an end, touching the ignored strip, is not trusted
 BACKGROUND_MM = 6.0  # window of the local background median
 SCRATCH_ALIGN_DEG = 12.0
+MIN_CNR = 4.5  # an opening's depth must stand this many texture spreads out of the surface
+SCRATCH_MAX_CONTRAST = 0.3  # grinding marks are shallow: less than 30 % darker than the surface
 MERGE_GAP_MM = 0.4  # pieces of one opening closer than this are one opening
+LINE_MM = 1.0  # length of the oriented line filter
+LINE_SIGMAS = 7.0  # its detection threshold, in its own robust spreads
 TIP_DEPTH = 0.38  # fraction of an elongated opening's depth at which its outline is taken
 
 
@@ -729,10 +735,12 @@ def _visible_extent(sub: np.ndarray, *, px_per_mm: float, m_y: float, width: flo
     """Columns where the coupon starts and ends in a sub-image whose rows are centred on it.
 
     Per column, the features (colour, texture) just inside each long edge are
-    compared with those just outside it: the coupon lasts while both edges
-    are there, above 35 % of their typical difference in the middle.  When
-    the edges do not differ enough anywhere, the whole strip between them is
-    compared with the table beside it instead.
+    compared with those just outside it, in units of how much the table
+    itself varies (just outside against further out): the coupon lasts while
+    both edges stand :data:`EDGE_PRESENCE` times out of that (or
+    :data:`END_LEVEL` of their contrast mid-coupon, if lower).  When the edges
+    do not stand out anywhere, the whole strip between them is compared with
+    the table beside it instead.
     """
     e = px_per_mm
     h, w = sub.shape[:2]
@@ -744,35 +752,46 @@ def _visible_extent(sub: np.ndarray, *, px_per_mm: float, m_y: float, width: flo
     out_a = np.median(feat[o1], axis=0)
     out_b = np.median(feat[o2], axis=0)
     c_mid = np.minimum(_difference(inside[None], out_a[None])[0], _difference(inside[None], out_b[None])[0])
-    # the long edges themselves: just inside against just outside each edge
-    bands = []
+    # the long edges themselves: just inside against just outside each edge, in units of
+    # the table's own variation (just outside against further out)
+    ratios = []
+    Lg = cv2.GaussianBlur(_lab(sub)[..., 0], (0, 0), max(0.6, 0.1 * e))
+    G = np.abs(cv2.Sobel(Lg, cv2.CV_32F, 0, 1, ksize=3))
     for edge, sgn in ((m_y, 1), (m_y + width, -1)):
-        a = sorted((int((edge + sgn * 0.3) * e), int((edge + sgn * 1.3) * e)))
-        b = sorted((int((edge - sgn * 0.3) * e), int((edge - sgn * 1.3) * e)))
-        fin = np.median(feat[max(0, a[0]) : max(1, a[1])], axis=0)
-        fout = np.median(feat[max(0, b[0]) : max(1, b[1])], axis=0)
-        bands.append(_difference(fin[None], fout[None])[0])
-    c_edge = np.minimum(bands[0], bands[1])
+        def band(d0, d1):
+            r = sorted((int((edge + sgn * d0) * e), int((edge + sgn * d1) * e)))
+            return np.median(feat[min(max(0, r[0]), h - 1) : min(max(1, r[1]), h)], axis=0)
+        fin, fout, ffar = band(0.3, 1.3), band(-0.3, -1.3), band(-2.0, -3.5)
+        step = ndi.uniform_filter1d(_difference(fin[None], fout[None])[0], max(3, int(0.5 * e)))
+        null = ndi.uniform_filter1d(_difference(fout[None], ffar[None])[0], max(3, int(0.5 * e)))
+        r_feat = step / (float(np.median(null)) + 1.0)
+        # the edge as a sharp step or line of its own (a coupon as bright as the table still
+        # shows its edge), against the table's gradients further out
+        e0, e1 = int((edge - 0.35) * e), int((edge + 0.35) * e) + 1
+        g_edge = G[max(0, e0) : min(h, e1)].max(axis=0)
+        far = sorted((int((edge - sgn * 1.5) * e), int((edge - sgn * 3.5) * e)))
+        g_noise = float(np.median(G[max(0, far[0]) : min(h, max(far[1], far[0] + 1))])) + 1e-3
+        r_grad = ndi.uniform_filter1d(g_edge, max(3, int(0.5 * e))) / (3.0 * g_noise)
+        ratios.append(np.maximum(r_feat, r_grad))
+    c_edge = np.minimum(ratios[0], ratios[1])
     c0, c1 = int((m_x + 0.3 * L) * e), int((m_x + 0.7 * L) * e)
     nout = max(2, int(0.4 * m_x * e))
-
-    def normalised(c):
-        c = ndi.uniform_filter1d(c, max(3, int(0.5 * e)))
+    mid_edge = float(np.median(c_edge[c0:c1]))
+    if mid_edge >= EDGE_PRESENCE:
+        # the long edges decide where there is coupon (a shadow or the card beside the
+        # strip fools the colour); it lasts while both edges stand out of the table's variation
+        c = c_edge
+        out_lvl = 1.0
+        level = 1.0 + min(END_LEVEL * (mid_edge - 1.0), EDGE_PRESENCE - 1.0)
+    else:
+        c = ndi.uniform_filter1d(c_mid, max(3, int(0.5 * e)))
         mid = float(np.median(c[c0:c1]))
-        out = float(np.median(np.r_[c[:nout], c[-nout:]]))
-        return (c - out) / max(mid - out, 1e-6), mid - out
-
-    n1, span1 = normalised(c_mid)
-    n2, span2 = normalised(c_edge)
-    if span1 < 6.0 and span2 < 6.0:
-        return m_x * e, (m_x + L) * e, False
-    # the long edges decide where there is coupon; the colour difference only when the
-    # edges cannot be seen (a shadow or the card beside the strip fools the colour)
-    c = n2 if span2 >= 6.0 else n1
+        out_lvl = float(np.median(np.r_[c[:nout], c[-nout:]]))
+        if mid - out_lvl < 6.0:
+            return m_x * e, (m_x + L) * e, False
+        level = out_lvl + END_LEVEL * (mid - out_lvl)
     if card is not None:
         c = np.where(card[int(m_y * e) : int((m_y + width) * e) + 1].mean(axis=0) > 0.2, 0.0, c)  # the card is not coupon
-    mid, out_lvl = 1.0, 0.0
-    level = out_lvl + 0.35 * (mid - out_lvl)
     below = c < level
     run = max(2, int(2.0 * e))  # a gap of 2 mm ends the coupon; shorter dips are highlights
     cen = (c0 + c1) // 2
@@ -843,17 +862,6 @@ def _coupon_background(gs: np.ndarray, *, px_per_mm: float) -> np.ndarray:
     rest = gs / np.maximum(sep, 1.0)
     rest_bg = background(np.clip(rest * 128.0, 0, 255), px_per_mm=mm, window_mm=BACKGROUND_MM) / 128.0
     return sep * rest_bg
-
-
-def _dominant_lines(g: np.ndarray) -> tuple[float, float]:
-    """Dominant line direction (rad, in (col,row) axes) of the face's fine structure and its coherence 0..1."""
-    gx = cv2.Sobel(g, cv2.CV_32F, 1, 0, ksize=3)
-    gy = cv2.Sobel(g, cv2.CV_32F, 0, 1, ksize=3)
-    jxx, jyy, jxy = float((gx * gx).mean()), float((gy * gy).mean()), float((gx * gy).mean())
-    # gradient direction; lines run perpendicular to it
-    theta_g = 0.5 * math.atan2(2 * jxy, jxx - jyy)
-    coh = math.hypot(jxx - jyy, 2 * jxy) / max(jxx + jyy, 1e-9)
-    return theta_g + math.pi / 2, coh
 
 
 def _angle_diff(a: float, b: float) -> float:
@@ -998,11 +1006,13 @@ def find_openings(
     rmed = float(np.median(ridge[seed_mask]))
     ridge_mask = apply_hysteresis_threshold(np.where(seed_mask, ridge - rmed, 0), sensitivity * 7 * rsig, sensitivity * 14 * rsig)
     ridge_mask &= rel > 0.6 * lo  # dark, not the bright side of a highlight
+    # faint thin openings in strong texture: darkness averaged along short oriented lines
+    line_mask, theta_lines, coherence = _line_evidence(rel, seed_mask, px_per_mm=mm, resolve_mm=resolve, sensitivity=sensitivity)
+    line_mask &= rel > 0.5 * lo
 
-    theta_lines, coherence = _dominant_lines(gs)
     # one opening seen as several pieces (a jagged crack, the two lips of a wide one) is one
     close_k = _disk(MERGE_GAP_MM / 2 * mm)
-    cand = cv2.morphologyEx((dark | ridge_mask).astype(np.uint8), cv2.MORPH_CLOSE, close_k) > 0
+    cand = cv2.morphologyEx((dark | ridge_mask | line_mask).astype(np.uint8), cv2.MORPH_CLOSE, close_k) > 0
     lab, _ = ndi.label(cand, structure=np.ones((3, 3)))
     labc = cv2.GaussianBlur(cv2.cvtColor(rgb, cv2.COLOR_RGB2LAB).astype(np.float32), (0, 0), max(0.05, resolve) * mm)
     dets: list[Detection] = []
@@ -1026,10 +1036,11 @@ def find_openings(
         if hug or hug_end:
             continue
         # grinding / machining marks: long, shallow, parallel to the face's line family
-        long_thin = f["greatest_mm"] > 2.5 or f["aspect"] > 6
-        if coherence > 0.1 and long_thin and _angle_diff(f["angle_rad"], theta_lines) < math.radians(SCRATCH_ALIGN_DEG):
-            if f["contrast"] < 0.3 or f["cnr"] < 12:
-                continue
+        if f["cnr"] < MIN_CNR:
+            continue  # no deeper than the texture itself
+        aligned = _angle_diff(f["angle_rad"], theta_lines) < math.radians(SCRATCH_ALIGN_DEG)
+        if coherence > 0.1 and f["aspect"] > 2.0 and aligned and f["contrast"] < SCRATCH_MAX_CONTRAST:
+            continue
         f["touches_edge"] = bool(min(f["y0_mm"], W - f["y1_mm"]) < 0.25)
         kind, iso, conf = _bend_kind(f)
         d.kind, d.iso6520, d.confidence = kind, iso, conf
@@ -1037,6 +1048,56 @@ def find_openings(
         dets.append(d)
     dets.sort(key=lambda d: (d.features["cx_px"], d.features["cy_px"]))
     return dets
+
+
+def _line_evidence(rel: np.ndarray, valid: np.ndarray, *, px_per_mm: float, resolve_mm: float, sensitivity: float = 1.0) -> np.ndarray:
+    """Pixels on a short dark line, of any orientation, standing out of the texture.
+
+    ``rel`` (darkness relative to the background) is filtered with a
+    zero-mean oriented line kernel, :data:`LINE_MM` long, at 12
+    orientations.  Each orientation's response is divided by its own robust
+    spread, so a texture that is itself streaky in one direction (grinding
+    marks, orange peel stretched along the coupon) raises only that
+    direction's bar.  Averaging along the line lifts a thin opening out of
+    texture whose grain is shorter than the line.  Hysteresis at
+    :data:`LINE_SIGMAS` (high) and half of it (low).
+
+    Returns
+    -------
+    mask : (h, w) bool ndarray
+    family_rad : float
+        Direction (in (col, row) axes) whose line response spreads most: the
+        grinding or machining marks, if any.
+    anisotropy : float
+        0 for texture without a line direction, towards 1 for strong marks.
+    """
+    mm = px_per_mm
+    half_len = max(2, int(round(LINE_MM / 2 * mm)))
+    sw = max(0.06, 0.7 * resolve_mm) * mm  # across: about the photo's blur
+    r = half_len + int(math.ceil(3 * sw)) + 1
+    yy, xx = np.mgrid[-r : r + 1, -r : r + 1].astype(np.float32)
+    src = np.where(valid, rel, 0).astype(np.float32)
+    best = np.full(rel.shape, -np.inf, np.float32)
+    spreads = []
+    for k in range(12):
+        th = math.pi * k / 12
+        u = xx * math.cos(th) + yy * math.sin(th)
+        v = -xx * math.sin(th) + yy * math.cos(th)
+        along = np.clip(half_len + 0.5 - np.abs(u), 0, 1)
+        line = np.exp(-0.5 * (v / sw) ** 2) * along
+        surround = np.exp(-0.5 * (v / (3 * sw)) ** 2) * along
+        ker = line / line.sum() - surround / surround.sum()
+        resp = cv2.filter2D(src, cv2.CV_32F, ker, borderType=cv2.BORDER_REFLECT)
+        vals = resp[valid]
+        med = float(np.median(vals))
+        sig = float(1.4826 * np.median(np.abs(vals - med))) or 1e-6
+        spreads.append(sig)
+        best = np.maximum(best, (resp - med) / sig)
+    best[~valid] = 0
+    mask = apply_hysteresis_threshold(best, 0.5 * LINE_SIGMAS * sensitivity, LINE_SIGMAS * sensitivity)
+    sp = np.asarray(spreads)
+    k = int(np.argmax(sp))
+    return mask, math.pi * k / 12, float((sp[k] - np.median(sp)) / sp[k])
 
 
 def _robust_sigma(x: np.ndarray) -> float:
