@@ -83,6 +83,7 @@ END_IGNORE_MM = 1.0
 END_ZONE_MM = 2.5  # an opening wholly this close to an end, touching the ignored strip, is not trusted
 BACKGROUND_MM = 6.0  # window of the local background median
 SCRATCH_ALIGN_DEG = 12.0
+SOFT_EDGE_PER_MM = 2.0  # an opening's walls go from dark to bright within about 0.5 mm
 MIN_CNR = 4.5  # an opening's depth must stand this many texture spreads out of the surface
 SCRATCH_MAX_CONTRAST = 0.3  # grinding marks are shallow: less than 30 % darker than the surface
 MERGE_GAP_MM = 0.4  # pieces of one opening closer than this are one opening
@@ -1038,6 +1039,8 @@ def find_openings(
         # grinding / machining marks: long, shallow, parallel to the face's line family
         if f["cnr"] < MIN_CNR:
             continue  # no deeper than the texture itself
+        if f["aspect"] < 2.6 and f["edge_sharpness"] < SOFT_EDGE_PER_MM and f["cnr"] < 10:
+            continue  # a soft dark patch (shading, a smudge) rather than an opening with walls
         aligned = _angle_diff(f["angle_rad"], theta_lines) < math.radians(SCRATCH_ALIGN_DEG)
         if coherence > 0.1 and f["aspect"] > 2.0 and aligned and f["contrast"] < SCRATCH_MAX_CONTRAST:
             continue
