@@ -122,7 +122,11 @@ def search(folder: Path, tries: int) -> int:
             for j in range(0, tries + 1):
                 seed = c.render["seed"] + 1000 * j
                 cc = dataclasses.replace(c, render={**c.render, "seed": seed})
-                path = render(cc).save(Path(tmp) / c.photo)
+                try:
+                    path = render(cc).save(Path(tmp) / c.photo)
+                except SurfacesError as err:  # this seed's face cannot hold the story's defects
+                    tried.append((seed, f"no fit ({str(err)[:30]})"))
+                    continue
                 try:
                     got = assess(load_photo(path), demo.settings_for(row)).assessment["verdict"]["result"]
                 except SurfacesError as err:

@@ -122,8 +122,8 @@ class DemoCoupon:
 
 
 # Photo options shared by every demo photo: 4 MP landscape, the default card,
-# a moderate camera tilt, JPEG quality 84 (keeps the folder small).
-_PHOTO = {"megapixels": 4.0, "aspect": 4 / 3, "portrait": False, "marker_mm": MARKER_MM, "jpeg_quality": 84}
+# a moderate camera tilt, JPEG quality 80 (keeps the folder small).
+_PHOTO = {"megapixels": 4.0, "aspect": 4 / 3, "portrait": False, "marker_mm": MARKER_MM, "jpeg_quality": 80}
 
 
 def _fillet(seed, defects, *, tilt, length=80.0, width=6.0, ppm=14.0, **kw):
@@ -156,7 +156,7 @@ SCENARIO: tuple[DemoCoupon, ...] = (
     DemoCoupon(
         "fb_0908_w02.jpg", "BF-2609-FB02", "BF-W02", "BF-WPS-102", "fillet-break", "2026-09-08", FB, "accept",
         "Three small pores, well under the single-size and sum limits.",
-        _fillet(7102, [{"kind": "pore", "d_mm": 0.9, "x_mm": 22, "y_mm": 3.0},
+        _fillet(8102, [{"kind": "pore", "d_mm": 0.9, "x_mm": 22, "y_mm": 3.0},
                        {"kind": "pore", "d_mm": 1.1, "x_mm": 51, "y_mm": 2.6},
                        {"kind": "pore", "d_mm": 0.8, "x_mm": 66, "y_mm": 3.4}], tilt=14.0),
         thickness_mm=12, throat_mm=6, length_mm=80),
@@ -168,8 +168,8 @@ SCENARIO: tuple[DemoCoupon, ...] = (
     DemoCoupon(
         "fb_0914_t11.jpg", "BF-2609-FB03", "BF-T11", "BF-WPS-101", "fillet-break", "2026-09-14", FB, "reject",
         "Trainee, first attempt: incomplete root fusion along part of the root.",
-        _fillet(7103, [{"kind": "unfused", "side": "root", "length_mm": 28, "width_mm": 1.6, "x_mm": 30,
-                        "tint": "straw"}], tilt=12.0),
+        _fillet(10103, [{"kind": "unfused", "side": "root", "length_mm": 24, "width_mm": 1.8, "x_mm": 28,
+                         "tint": "purple"}], tilt=12.0),
         thickness_mm=10, throat_mm=6, length_mm=80),
     DemoCoupon(
         "nb_0917_t12.jpg", "BF-2609-NB02", "BF-T12", "BF-WPS-204", "nick-break", "2026-09-17", NB, "reject",
@@ -194,12 +194,12 @@ SCENARIO: tuple[DemoCoupon, ...] = (
     DemoCoupon(
         "fb_0928_t11.jpg", "BF-2609-FB05", "BF-T11", "BF-WPS-101", "fillet-break", "2026-09-28", FB, "review",
         "Trainee, second attempt: one pore right at the 3/32 in limit.",
-        _fillet(7105, [{"kind": "pore", "d_mm": 2.42, "x_mm": 58, "y_mm": 3.0}], tilt=10.0),
+        _fillet(13105, [{"kind": "pore", "d_mm": 2.42, "x_mm": 58, "y_mm": 3.0}], tilt=10.0),
         thickness_mm=10, throat_mm=6, length_mm=80),
     DemoCoupon(
         "nb_1001_t12.jpg", "BF-2610-NB03", "BF-T12", "BF-WPS-204", "nick-break", "2026-10-01", NB, "review",
         "Trainee, second attempt: a gas pocket right at 1/16 in.",
-        _nick(7203, [{"kind": "pore", "d_mm": 1.55, "x_mm": 9, "y_mm": 5.0}], tilt=13.0),
+        _nick(10203, [{"kind": "pore", "d_mm": 1.55, "x_mm": 9, "y_mm": 5.0}], tilt=13.0),
         wall_mm=9.5, length_mm=25),
     DemoCoupon(
         "fb_1012_t11.jpg", "BF-2610-FB06", "BF-T11", "BF-WPS-101", "fillet-break", "2026-10-12", FB, "accept",
