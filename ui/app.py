@@ -335,6 +335,12 @@ def load_and_analyse(data: bytes, name: str, origin: str, coupon: dict, settings
             st.session_state["last_input"] = marker
         ws[key].coupon = coupon
         return None
+    failures = st.session_state.setdefault("failures", {})
+    if key in failures:  # the same photo and settings failed before: say so again without re-running
+        msg, kind, shape, cal = failures[key]
+        st.session_state["failed_photo"], st.session_state["failed_cal"] = shape, cal
+        st.session_state["last_input"] = marker
+        return msg, kind
     photos = st.session_state.setdefault("photos", {})
     photo = photos.get(sha)
     if photo is None:
@@ -344,9 +350,13 @@ def load_and_analyse(data: bytes, name: str, origin: str, coupon: dict, settings
     try:
         res = S.analyse(photo, settings)
     except SurfacesError as err:
-        st.session_state["last_input"] = marker
-        st.session_state["failed_photo"] = (sha, photo.width, photo.height)
-        return H.page_wording(str(err)), type(err).__name__
+        kind = type(err).__name__
+        cal = _calibration_summary(photo, settings) if kind == "FaceError" else None
+        shape = (sha, photo.width, photo.height)
+        failures[key] = (H.page_wording(str(err)), kind, shape, cal)
+        while len(failures) > 20:
+            failures.pop(next(iter(failures)))
+        return load_and_analyse(data, name, origin, coupon, settings)
     w = S.Work(key=key, name=name, sha256=sha, data=data, photo=photo, result=res,
                auto_base=res.assessment, settings=settings, coupon=coupon, origin=origin)
     S.add_work(w)
@@ -357,37 +367,57 @@ def load_and_analyse(data: bytes, name: str, origin: str, coupon: dict, settings
 def scale_panel(w, failure, have_input: bool) -> None:
     with st.container(border=True, key="step_scale"):
         st.subheader("2 · Scale")
-        if failure and failure[1] == "FaceError":
+        failed_cal = st.session_state.get("failed_cal") if failure and failure[1] == "FaceError" else None
+        if failure and failure[1] == "FaceError" and not failed_cal:
             st.info("The scale is measured together with the face: see 3 · Face region below.")
-        elif failure:
+        elif failure and not failed_cal:
             st.error(f":material/error: {failure[0]}")
             if failure[1] == "CalibrationError":
                 st.markdown("**What to check before retaking:**\n" + "\n".join(f"- {h}" for h in H.NO_MARKER_HINTS))
-        elif w is not None:
-            cal = w.auto_base.get("calibration") or {}
-            markers = cal.get("markers") or []
-            c = [*st.columns(2), *st.columns(2)]
-            if cal.get("method") in ("marker", "markers") and markers:
-                m = markers[0]
-                c[0].metric("Reference marker", "found" if len(markers) == 1 else f"{len(markers)} found",
-                            f"id {m.get('id')}, {m.get('side_px', 0):.0f} px across", delta_color="off",
-                            delta_arrow="off")
-            else:
-                c[0].metric("Reference marker", "not used", f"scale: {cal.get('method')}", delta_color="off",
-                            delta_arrow="off")
-            c[1].metric("Scale at the face (px/mm)", f"{cal.get('px_per_mm', float('nan')):.2f}")
-            tilt = cal.get("tilt_deg")
-            c[2].metric("Camera tilt", "unknown" if tilt is None else f"{tilt:.0f}°")
-            c[3].metric("Scale uncertainty (1σ)", f"± {cal.get('uncertainty_pct', float('nan')):.2f} %")
-            for warning in cal.get("warnings") or []:
-                st.warning(f":material/warning: {warning}")
-            for hint in H.calibration_hints(cal):
-                st.info(f":material/lightbulb: {hint}")
+        elif failed_cal or w is not None:
+            cal = failed_cal or w.auto_base.get("calibration") or {}
+            if failed_cal:
+                st.caption("Scale of the new photo (at its centre); its face is not found yet: see 3 · Face region.")
+            calibration_metrics(cal)
         if have_input or w is not None:
             st.number_input("Scale typed by hand (photo pixels per mm), only when the photo has no marker",
                             min_value=0.0, value=None, step=0.1, key="px_per_mm", persist_state="page",
                             help="Measure a known length in the photo (e.g. a ruler) in pixels and divide by "
                                  "its millimetres. No perspective correction is made.")
+
+
+def calibration_metrics(cal: dict) -> None:
+    """Marker found or not, scale, tilt, uncertainty; the core's warnings and the page's hints."""
+    markers = cal.get("markers") or []
+    c = [*st.columns(2), *st.columns(2)]
+    if cal.get("method") in ("marker", "markers") and markers:
+        m = markers[0]
+        c[0].metric("Reference marker", "found" if len(markers) == 1 else f"{len(markers)} found",
+                    f"id {m.get('id')}, {m.get('side_px', 0):.0f} px across", delta_color="off", delta_arrow="off")
+    else:
+        c[0].metric("Reference marker", "not used", f"scale: {cal.get('method')}", delta_color="off",
+                    delta_arrow="off")
+    c[1].metric("Scale at the face (px/mm)", f"{cal.get('px_per_mm', float('nan')):.2f}")
+    tilt = cal.get("tilt_deg")
+    c[2].metric("Camera tilt", "unknown" if tilt is None else f"{tilt:.0f}°")
+    c[3].metric("Scale uncertainty (1σ)", f"± {cal.get('uncertainty_pct', float('nan')):.2f} %")
+    for warning in cal.get("warnings") or []:
+        st.warning(f":material/warning: {warning}")
+    for hint in H.calibration_hints(cal):
+        st.info(f":material/lightbulb: {hint}")
+
+
+def _calibration_summary(photo, settings: Settings) -> dict | None:
+    """The calibration of a photo whose face was not found (the pipeline stops before reporting it)."""
+    from surfaces.calibrate import calibrate
+
+    try:
+        cal = calibrate(photo, marker_mm=settings.marker_mm, px_per_mm=settings.px_per_mm, ruler=settings.ruler)
+    except SurfacesError:
+        return None
+    return {"method": cal.method, "px_per_mm": cal.px_per_mm_at((photo.width - 1) / 2, (photo.height - 1) / 2),
+            "uncertainty_pct": cal.uncertainty_pct, "tilt_deg": cal.tilt_deg, "warnings": list(cal.warnings),
+            "markers": [{"id": m.marker_id, "side_px": m.side_px, "module_px": m.module_px} for m in cal.markers]}
 
 
 def face_panel(w, auto: dict) -> None:
