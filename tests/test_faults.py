@@ -308,6 +308,7 @@ def _assert_consistent(db: Path, reported: dict[int, str]) -> int:
     raw = sqlite3.connect(db)
     try:
         assert raw.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+        assert raw.execute("PRAGMA journal_mode").fetchone()[0] == "wal"  # the store's write-ahead log
         n_log = raw.execute("SELECT count(*) FROM log WHERE action = 'assessed'").fetchone()[0]
         n_rows = raw.execute("SELECT count(*) FROM assessments").fetchone()[0]
         n_coupons = raw.execute("SELECT count(*) FROM coupons").fetchone()[0]

@@ -25,11 +25,13 @@ from surfaces.model import PhotoError, SurfacesError
 from surfaces.photo import load_photo
 from test_bad_input import cli, good_jpeg_bytes, good_png_bytes
 
+# derandomize: CI runs the same bounded set of examples every time (a wider random search is a
+# local run with --hypothesis-seed); findings are kept below as plain regression tests.
 FUZZ = settings(max_examples=120, deadline=None, suppress_health_check=[HealthCheck.too_slow],
-                database=None)
+                database=None, derandomize=True)
 SMALL = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow,
                                                                         HealthCheck.function_scoped_fixture],
-                 database=None)
+                 database=None, derandomize=True)
 
 JPEG = good_jpeg_bytes(240, 320)  # valid, just over the loader's 200 px minimum side
 PNG = good_png_bytes(220, 260)
@@ -223,6 +225,17 @@ def test_judge_on_cut_or_garbled_json(tmp_path_factory, cut, junk):
     text = text[: cut % (len(text) + 1)] + junk.decode("latin-1")
     code, _, err, name = _judge(tmp_path_factory, text)
     _assert_clean(code, err, name)
+
+
+@pytest.mark.xfail(strict=True, reason="limits.judge_assessment calls dict() on the assessment's 'nominal': "
+                                       "a list or number there raises a bare ValueError/TypeError (a traceback "
+                                       "from `surfaces judge`) instead of a LimitsError")
+@pytest.mark.parametrize("nominal", [5, "6 mm", [[]]])
+def test_judge_with_a_nominal_that_is_not_an_object(tmp_path_factory, nominal):
+    # found by a wider run of test_judge_on_mutated_assessment (3000 examples)
+    code, _, err, name = _judge(tmp_path_factory, json.dumps({**BASE, "nominal": nominal}))
+    _assert_clean(code, err, name)
+    assert code == 2 and "nominal" in err
 
 
 def test_a_mutation_that_breaks_a_size_is_never_accepted(tmp_path_factory):
