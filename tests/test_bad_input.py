@@ -500,3 +500,21 @@ def test_page_names_each_bad_upload_and_never_shows_a_traceback(bad, tmp_path, m
             unnamed.append(case)
     # the same messages as the command line: only the known nameless ones miss the file name
     assert set(unnamed) <= set(NAMELESS), unnamed
+
+
+# --------------------------------------------------------------------------- odd option values
+
+
+@pytest.mark.parametrize("opts, words", [
+    (["--roi", "nan,nan,nan,nan"], ("not finite",)),
+    (["--ruler", "0,0,0,0,5"], ("0.0 px apart",)),
+    (["--ruler", "0,0,100,0,inf"], ("finite",)),
+    (["--marker-mm", "999999"], ("not plausible",)),
+    (["--min-size-mm", "25"], ("between 0 and 20 mm",)),
+    (["--roi", "0,0,5,5"], ("too small",)),
+    pytest.param(["--px-per-mm", "0.00001"], ("px",), marks=pytest.mark.xfail(
+        strict=True, reason="a tiny --px-per-mm reaches cv2.warpPerspective in face.py, which tries to allocate "
+                            "~10^18 bytes: cv2.error traceback, exit 1")),
+])
+def test_odd_option_values_one_line(deep_photos, opts, words):
+    assert_refused(cli("assess", deep_photos["rgb8"], "--test", "fillet-break", *opts, "-q"), words=words)
