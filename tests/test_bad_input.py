@@ -518,3 +518,30 @@ def test_page_names_each_bad_upload_and_never_shows_a_traceback(bad, tmp_path, m
 ])
 def test_odd_option_values_one_line(deep_photos, opts, words):
     assert_refused(cli("assess", deep_photos["rgb8"], "--test", "fillet-break", *opts, "-q"), words=words)
+
+
+# --------------------------------------------------------------------------- records database and other files
+
+
+@pytest.mark.parametrize("argv, words", [
+    (["records", "history"], ("not a usable records database", "--db")),
+    (["records", "check"], ("not a usable records database",)),
+    (["records", "show", "1"], ("not a usable records database",)),
+])
+def test_a_file_that_is_not_a_database(tmp_path, argv, words):
+    db = tmp_path / "records.sqlite3"
+    db.write_text("coupon list, not a database\n" * 20)
+    before = db.read_bytes()
+    assert_refused(cli(*argv, "--db", db), db.name, words=words)
+    assert db.read_bytes() == before  # never "repaired" into an empty store
+
+
+def test_judge_on_a_file_that_is_not_json(tmp_path):
+    p = tmp_path / "report.json"
+    p.write_bytes(b"%PDF-1.7 not an assessment")
+    assert_refused(cli("judge", p, "--limits", "aws-d1.1-bend"), str(p), words=("not valid JSON", "line 1"))
+
+
+def test_card_into_a_missing_folder(tmp_path):
+    assert_refused(cli("card", "--out", tmp_path / "no" / "card.pdf"), str(tmp_path / "no"),
+                   words=("does not exist",))
