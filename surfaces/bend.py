@@ -76,7 +76,7 @@ APEX_U_MIN_MM = 0.5  # the two visible ends each placed to about 0.5 mm
 CAMERA_DISTANCE_MM = 300.0
 COLUMN_MEDIAN_MM = 1.5  # running median of the shading profile along the coupon
 ROW_MEDIAN_MM = 16.0  # running median along x of the profile across (edge bands, grinding marks)
-EDGE_IGNORE_MM = 0.12  # the outermost strip of the face (edge blur) never seeds a detection
+EDGE_IGNORE_MM = 0.25  # the outermost strip of the face (edge blur) never seeds a detection
 #: The ends of the visible surface are where it turns away steepest and meets the
 #: table; nothing starts within this distance of them.
 END_IGNORE_MM = 1.0
@@ -89,7 +89,7 @@ SCRATCH_MAX_CONTRAST = 0.3  # grinding marks are shallow: less than 30 % darker 
 MERGE_GAP_MM = 0.4  # pieces of one opening closer than this are one opening
 LINE_MM = 1.0  # length of the oriented line filter
 LINE_SIGMAS = 7.0  # its detection threshold, in its own robust spreads
-TIP_DEPTH = 0.38  # fraction of an elongated opening's depth at which its outline is taken
+TIP_DEPTH = 0.33  # fraction of an elongated opening's depth at which its outline is taken
 
 
 # --------------------------------------------------------------------------
