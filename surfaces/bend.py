@@ -53,7 +53,6 @@ from .shapes import polygon_features
 
 __all__ = ["find_coupon", "detect", "outer_radius", "arc_length_map", "STEEP_SLOPE_DEG"]
 
-_DEBUG: dict = {}
 COARSE_PX_PER_MM = 4.0
 EDGE_PRESENCE = 3.0  # a long edge is there while it differs 3x more than the table varies
 END_LEVEL = 0.25  # the coupon ends where its edges fade below this share of their contrast mid-coupon
@@ -368,7 +367,6 @@ def _coarse_coupon(rgb, gray, calib: Calibration, roi_poly):
     k = max(1, int(round(1.0 * s)))
     cand = cv2.morphologyEx(cand, cv2.MORPH_OPEN, np.ones((2 * k + 1, 2 * k + 1), np.uint8))
     cand = cv2.morphologyEx(cand, cv2.MORPH_CLOSE, np.ones((2 * k + 1, 2 * k + 1), np.uint8))
-    _DEBUG.update(plane=plane, d=d, cand=cand, thr=thr, table=table, card=card)
     n, lab_cc, stats, _ = cv2.connectedComponentsWithStats(cand, connectivity=8)
     best, best_score = None, 0.0
     for i in range(1, n):
