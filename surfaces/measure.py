@@ -85,6 +85,9 @@ def measure(
         return empty_table()
     u_scale = calib.uncertainty_pct / 100.0
     L, W = face.length_mm, face.width_mm
+    # x is measured on the true surface when a length correction is given (bend
+    # curvature): the far end is then at the true length, not the projected one
+    L_true = float(getattr(length_factor, "true_length_mm", L)) if length_factor is not None else L
     sx = L / face.image.shape[1]
     sy = W / face.image.shape[0]
     rows = []
@@ -102,8 +105,12 @@ def measure(
             return math.hypot(v * ur, math.sqrt(2) * se)
 
         outline = face_to_photo(face, calib, c)
-        cen = face_to_photo(face, calib, np.array([[f["cx_mm"] / sx - 0.5, f["cy_mm"] / sy - 0.5]]))[0]
-        dist_end = min(f["x0_mm"], L - f["x1_mm"])
+        # where the imperfection is in the photo: the centroid of the outline as seen
+        # (uncorrected), not of the surface-corrected one
+        fp = polygon_features(c, px_per_mm=1.0) if length_factor is not None else None
+        cen_face = [fp["cx_mm"], fp["cy_mm"]] if fp else [f["cx_mm"] / sx - 0.5, f["cy_mm"] / sy - 0.5]
+        cen = face_to_photo(face, calib, np.array([cen_face]))[0]
+        dist_end = min(f["x0_mm"], L_true - f["x1_mm"])
         dist_edge = min(f["y0_mm"], W - f["y1_mm"])
         if face.root_side == "y0":
             dist_root = f["y0_mm"]

@@ -344,7 +344,6 @@ def _flank_row():
     return face, calib, det, measure([det], face, calib, photo_px_per_mm=10.0, length_factor=lf).iloc[0]
 
 
-@pytest.mark.xfail(strict=True, reason="measure.py maps the curvature-corrected centroid back to the photo as if it were projected")
 def test_measure_centroid_px_is_the_photo_position():
     face, calib, det, row = _flank_row()
     # analytic: the outline's own centroid, mapped face px -> photo px, is where it is in the photo
@@ -356,7 +355,6 @@ def test_measure_centroid_px_is_the_photo_position():
     assert np.hypot(*(np.asarray(row["centroid_px"]) - want)) < 2.0
 
 
-@pytest.mark.xfail(strict=True, reason="measure.py takes dist_end against the projected face length, not the true one")
 def test_measure_far_flank_is_not_at_an_end():
     # the opening is 4 mm (projected) from the far end, more on the true surface: not a corner case
     face, calib, det, row = _flank_row()
