@@ -61,6 +61,7 @@ def measure(
     *,
     photo_px_per_mm: float,
     length_factor=None,
+    edges_only: bool = False,
 ) -> pd.DataFrame:
     """The imperfection table for ``detections`` on ``face``.
 
@@ -76,6 +77,10 @@ def measure(
         ``f(contour_mm) -> (contour_true_mm, extra_rel_u)``: a correction of
         the outline to true surface lengths (bend curvature); the returned
         relative uncertainty is added in quadrature to the scale term.
+    edges_only : bool
+        ``at_edge`` from the long edges only (bend coupons: the ends of the
+        visible region are not coupon corners, and a crack there must not
+        fall under a corner rule).
 
     Returns
     -------
@@ -144,7 +149,7 @@ def measure(
                 "dist_root_mm": dist_root,
                 "dist_end_mm": dist_end,
                 "dist_edge_mm": dist_edge,
-                "at_edge": bool(dist_edge <= EDGE_BAND_MM or dist_end <= EDGE_BAND_MM),
+                "at_edge": bool(dist_edge <= EDGE_BAND_MM or (not edges_only and dist_end <= EDGE_BAND_MM)),
                 "at_root": bool(at_root),
                 "cause": d.cause,
                 "centroid_px": [round(float(cen[0]), 2), round(float(cen[1]), 2)],

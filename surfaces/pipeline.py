@@ -109,7 +109,9 @@ def assess(photo: Photo, settings: Settings, *, progress: Callable[[str, float],
     t["segment_s"] = time.perf_counter() - t2
     say("measuring", 0.8)
     t3 = time.perf_counter()
-    table = measure(dets, face, calib, photo_px_per_mm=ppm_photo, length_factor=length_factor)
+    table = measure(
+        dets, face, calib, photo_px_per_mm=ppm_photo, length_factor=length_factor, edges_only=settings.test == "bend"
+    )
     t["measure_s"] = time.perf_counter() - t3
     limit_set = load_limit_set(settings.limits or default_preset_for(settings.test))
     assessment = build_assessment(photo, settings, calib, face, table, ppm_photo, limit_set, extra_warnings=bend_notes)
