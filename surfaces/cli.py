@@ -16,6 +16,13 @@ from . import __version__
 from .model import TEST_TYPES, SurfacesError
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse that reports a usage error as one line (the CLI contract), not a usage block."""
+
+    def error(self, message: str):  # noqa: D401
+        raise SurfacesError(f"{self.prog}: {message} (see {self.prog} --help)")
+
+
 def _floats(text: str) -> tuple[float, ...]:
     try:
         return tuple(float(v) for v in text.replace(" ", "").split(",") if v != "")
@@ -98,8 +105,19 @@ def cmd_assess(a: argparse.Namespace) -> int:
     from . import report
 
     settings = settings_from_args(a)
+    # refuse before any work: an existing output without --force must not leave the others half-written
+    if not a.force:
+        for out in (a.json, a.overlay, a.csv, a.pdf):
+            if out and Path(out).exists():
+                raise SurfacesError(f"{out} already exists; pass --force to replace it or choose another name")
     photo = load_photo(a.photo)
-    res = assess(photo, settings)
+    try:
+        res = assess(photo, settings)
+    except SurfacesError as e:
+        msg = str(e)
+        if photo.name not in msg:
+            raise SurfacesError(f"photo '{photo.name}': {msg}") from None
+        raise
     ass = res.assessment
     if a.json:
         report.write_json(a.json, ass, force=a.force)
@@ -171,7 +189,7 @@ def cmd_ui(a: argparse.Namespace) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(
+    p = _Parser(
         prog="surfaces",
         description="Measure and judge weld test faces (fillet break, nick break, bend) from a photo beside the printed reference card.",
     )
@@ -222,7 +240,10 @@ def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     try:
         a = parser.parse_args(argv)
-    except SystemExit as e:  # argparse already printed a usage line
+    except SurfacesError as e:
+        print(f"surfaces: {e}", file=sys.stderr)
+        return 2
+    except SystemExit as e:  # --help / --version
         return int(e.code or 0) and 2
     if not getattr(a, "func", None):
         parser.print_help()

@@ -103,6 +103,11 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
     if np.any(hi - lo < 5):
         raise FaceError("the face region is too small or lies outside the photo: give --roi inside the photo")
     s = COARSE_PX_PER_MM
+    if (hi[0] - lo[0]) * (hi[1] - lo[1]) > (2 * MAX_SEARCH_MM) ** 2 or not np.all(np.isfinite(hi - lo)):
+        raise FaceError(
+            f"the scale makes the photo {hi[0] - lo[0]:.3g} x {hi[1] - lo[1]:.3g} mm across: "
+            "check --px-per-mm / --marker-mm (a phone photo of a test face covers a few hundred mm at most)"
+        )
     W = int(math.ceil((hi[0] - lo[0]) * s))
     Hh = int(math.ceil((hi[1] - lo[1]) * s))
     # plane grid: col -> X = lo.x + (col + .5)/s

@@ -1678,7 +1678,12 @@ def judge_assessment(assessment: dict, limit_set: LimitSet, *,
     rows = assessment.get("imperfections") or []
     if not isinstance(rows, list) or not all(isinstance(r, dict) for r in rows):
         raise LimitsError("assessment 'imperfections' must be a list of objects, one per imperfection")
-    nominal = dict(assessment.get("nominal") or {})
+    raw_nominal = assessment.get("nominal") or {}
+    if not isinstance(raw_nominal, dict):
+        raise LimitsError(
+            f"assessment 'nominal' must be a table of dimensions in mm (e.g. {{\"throat_mm\": 6}}), not {type(raw_nominal).__name__}"
+        )
+    nominal = dict(raw_nominal)
     for k, v in (nominal_override or {}).items():
         if v is not None:
             nominal[k] = v

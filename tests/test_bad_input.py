@@ -189,7 +189,7 @@ PHOTO_CASES = [
     ("roi-outside", ("--roi", "outside the photo")),
     ("bend-no-coupon", ("--roi",)),
 ]
-NAMELESS = {  # messages that do not name the photo (raised by calibrate.py / face.py / bend.py)
+NAMELESS = {  # stage messages that name the photo only because the CLI puts its name in front
     "two-marker-sizes": "calibrate.py's 'markers disagree' CalibrationError does not name the photo file",
     "roi-outside": "face.py's '--roi lies outside the photo' FaceError does not name the photo file",
     "bend-no-coupon": "bend.py's 'could not find the bend coupon' FaceError does not name the photo file",
@@ -226,8 +226,7 @@ def photo_runs(bad) -> dict:
 
 
 @pytest.mark.parametrize("case, words", [
-    pytest.param(c, w, marks=pytest.mark.xfail(strict=True, reason=NAMELESS[c])) if c in NAMELESS else (c, w)
-    for c, w in PHOTO_CASES])
+    (c, w) for c, w in PHOTO_CASES])
 def test_bad_photo_exit_2_one_line_names_file(bad, photo_runs, case, words):
     proc = photo_runs[case]
     name = bad[case].name
@@ -251,8 +250,6 @@ def test_bad_photo_writes_no_output(bad, tmp_path):
 # --------------------------------------------------------------------------- usage errors
 
 
-@pytest.mark.xfail(strict=True, reason="cli.py lets argparse print its multi-line usage block for a bad option "
-                                       "value; the contract is one 'surfaces:' line")
 @pytest.mark.parametrize("argv", [
     ["assess", "x.jpg"],  # --test missing
     ["assess", "x.jpg", "--test", "fillet-break", "--roi", "a,b"],
@@ -512,9 +509,7 @@ def test_page_names_each_bad_upload_and_never_shows_a_traceback(bad, tmp_path, m
     (["--marker-mm", "999999"], ("not plausible",)),
     (["--min-size-mm", "25"], ("between 0 and 20 mm",)),
     (["--roi", "0,0,5,5"], ("too small",)),
-    pytest.param(["--px-per-mm", "0.00001"], ("px",), marks=pytest.mark.xfail(
-        strict=True, reason="a tiny --px-per-mm reaches cv2.warpPerspective in face.py, which tries to allocate "
-                            "~10^18 bytes: cv2.error traceback, exit 1")),
+    (["--px-per-mm", "0.00001"], ("px",)),
 ])
 def test_odd_option_values_one_line(deep_photos, opts, words):
     assert_refused(cli("assess", deep_photos["rgb8"], "--test", "fillet-break", *opts, "-q"), words=words)

@@ -226,8 +226,6 @@ def test_existing_report_needs_force(force_runs, kind):
     assert _leftovers(out.parent) == []
 
 
-@pytest.mark.xfail(strict=True, reason="cli.cmd_assess checks each output only when it writes it: with --json new "
-                                       "and --pdf existing, the JSON is written and then the command exits 2")
 def test_refused_assess_writes_none_of_its_outputs(photo_args, tmp_path):
     (tmp_path / "r.pdf").write_bytes(b"old")
     proc = cli("assess", *photo_args, "--json", tmp_path / "r.json", "--pdf", tmp_path / "r.pdf", "-q")

@@ -227,9 +227,6 @@ def test_judge_on_cut_or_garbled_json(tmp_path_factory, cut, junk):
     _assert_clean(code, err, name)
 
 
-@pytest.mark.xfail(strict=True, reason="limits.judge_assessment calls dict() on the assessment's 'nominal': "
-                                       "a list or number there raises a bare ValueError/TypeError (a traceback "
-                                       "from `surfaces judge`) instead of a LimitsError")
 @pytest.mark.parametrize("nominal", [5, "6 mm", [[]]])
 def test_judge_with_a_nominal_that_is_not_an_object(tmp_path_factory, nominal):
     # found by a wider run of test_judge_on_mutated_assessment (3000 examples)
