@@ -138,6 +138,7 @@ class _Maps:
     lab: np.ndarray
     lab_med: np.ndarray
     ridge: np.ndarray
+    ridge_med: float
     ridge_sig: float
     grad: np.ndarray
     mask: np.ndarray
@@ -158,9 +159,10 @@ def _maps(rgb, mask, mm, photo_mm) -> _Maps:
     lab_med = np.median(lab[mask], axis=0)
     sig = [max(s * mm, 0.7) for s in (0.6 * resolve, 1.2 * resolve, 2.0 * resolve)]
     ridge = dark_ridges(g, sigmas=sorted(set(round(s, 2) for s in sig)))
+    ridge_med = float(np.median(ridge[mask]))
     ridge_sig = _robust_sigma(ridge[mask]) + 1e-6
     gy, gx = np.gradient(gs)
-    return _Maps(g, gs, bg, rel, tex, tex_med, lab, lab_med, ridge, ridge_sig, np.hypot(gx, gy), mask, mm, photo_mm)
+    return _Maps(g, gs, bg, rel, tex, tex_med, lab, lab_med, ridge, ridge_med, ridge_sig, np.hypot(gx, gy), mask, mm, photo_mm)
 
 
 def segment(
@@ -259,7 +261,7 @@ def _dark_candidates(M: _Maps) -> list[Detection]:
 
 
 def _ridge_candidates(M: _Maps) -> list[Detection]:
-    r = np.where(M.mask, (M.ridge - np.median(M.ridge[M.mask])) / M.ridge_sig, 0)
+    r = np.where(M.mask, (M.ridge - M.ridge_med) / M.ridge_sig, 0)
     m = hysteresis(r, 4.0, 8.0)
     lab, n = ndi.label(m, structure=np.ones((3, 3)))
     out = []
@@ -397,7 +399,7 @@ def _appearance(f: dict, reg: np.ndarray, sl, M: _Maps, *, source: str, ring_lev
     cring = lab[ring].mean(axis=0) if ring.any() else M.lab_med
     chroma_ring = float(np.hypot(cin[1] - cring[1], cin[2] - cring[2]))
     chroma_face = float(np.hypot(cin[1] - M.lab_med[1], cin[2] - M.lab_med[2]))
-    rz = (M.ridge[sl] - np.median(M.ridge[M.mask])) / M.ridge_sig
+    rz = (M.ridge[sl] - M.ridge_med) / M.ridge_sig
     ridge_frac = float((rz[reg] > 4.0).mean())
     # contact with the face's long edges (root / side wall)
     ys, xs = np.nonzero(reg)
