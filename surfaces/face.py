@@ -119,7 +119,6 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
     if f < 0.95:
         small = cv2.resize(gray, None, fx=f, fy=f, interpolation=cv2.INTER_AREA)
         small_rgb = cv2.resize(rgb, None, fx=f, fy=f, interpolation=cv2.INTER_AREA)
-        Hs = calib.H @ np.diag([1 / f, 1 / f, 1.0])
         # pixel-centre convention: x_full = (x_small + .5)/f - .5
         Hs = calib.H @ np.array([[1 / f, 0, 0.5 / f - 0.5], [0, 1 / f, 0.5 / f - 0.5], [0, 0, 1]])
     else:
@@ -497,9 +496,6 @@ def find_face(
     mask = np.ones((hf, wf), bool)
     corners_face = np.array([[-0.5, -0.5], [wf - 0.5, -0.5], [wf - 0.5, hf - 0.5], [-0.5, hf - 0.5]])
     poly_px = apply_h(np.linalg.inv(calib.H) @ Af, corners_face)
-    if roi_poly is not None:
-        # keep the user's box honest: the face must lie within the photo
-        pass
     Hp, Wp = gray.shape
     if np.any(poly_px < -2) or np.any(poly_px[:, 0] > Wp + 1) or np.any(poly_px[:, 1] > Hp + 1):
         warnings.append("part of the face lies outside the photo: retake with the whole face in frame")
