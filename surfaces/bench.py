@@ -256,7 +256,7 @@ def batch_throughput(paths: list[Path], settings_list: list, workers: int) -> di
             "verdicts": verdicts}
 
 
-def run_speed(*, sizes: list[float], repeat: int, seed: int, batch_n: int, workdir: Path,
+def run_speed(*, sizes: list[float], repeat: int, seed: int, batch_n: int, workdir: Path, batch_mp: float = 4.0,
               say=print) -> dict:
     """The speed and memory part of the bench (see the module docstring)."""
     out = {"cpu_count": os.cpu_count(), "repeat": repeat, "sizes": [], "loadavg_before": _loadavg()}
@@ -282,14 +282,14 @@ def run_speed(*, sizes: list[float], repeat: int, seed: int, batch_n: int, workd
     synth = _synth()
     bpaths, bset = [], []
     for k in range(batch_n):
-        ph = synth.render_fracture(seed + 100 + k, test="fillet-break", megapixels=4.0)
+        ph = synth.render_fracture(seed + 100 + k, test="fillet-break", megapixels=batch_mp)
         p = ph.save(workdir / f"batch_{k:02d}.jpg")
         bpaths.append(p)
         bset.append(_settings_for_truth(ph.truth))
     b1 = batch_throughput(bpaths, bset, 1)
     b2 = batch_throughput(bpaths, bset, 2)
     out["batch"] = {"one": b1, "two": b2, "ratio": b2["photos_per_s"] / b1["photos_per_s"],
-                    "megapixels": 4.0}
+                    "megapixels": batch_mp}
     out["loadavg_after"] = _loadavg()
     return out
 
@@ -734,7 +734,7 @@ def format_table(report: dict) -> str:
 
 def run_bench(*, n: int = 30, seed: int = 1, sizes=(3.0, 8.0, 12.0), repeat: int = 3, folder=None,
               realdata=None, skip_speed: bool = False, skip_accuracy: bool = False, batch_n: int = 6, at_limit: int = 6,
-              workers: int = 2, workdir=None, say=print) -> dict:
+              workers: int = 2, workdir=None, say=print, batch_mp: float = 4.0) -> dict:
     """Run the bench and return the report dict (also what ``--json`` writes)."""
     from . import __version__
 
@@ -745,7 +745,7 @@ def run_bench(*, n: int = 30, seed: int = 1, sizes=(3.0, 8.0, 12.0), repeat: int
     wd.mkdir(parents=True, exist_ok=True)
     try:
         if not skip_speed:
-            report["speed"] = run_speed(sizes=list(sizes), repeat=repeat, seed=seed, batch_n=batch_n,
+            report["speed"] = run_speed(sizes=list(sizes), repeat=repeat, seed=seed, batch_n=batch_n, batch_mp=batch_mp,
                                         workdir=wd, say=say)
         if not skip_accuracy:
             acc = {}
@@ -812,7 +812,7 @@ def cmd_bench(a: argparse.Namespace) -> int:
     if a.json and Path(a.json).exists() and not a.force:
         raise BenchError(f"{a.json} exists: give another --json name or --force to overwrite")
     rep = run_bench(n=a.n, seed=a.seed, sizes=a.sizes, repeat=a.repeat, folder=a.folder, realdata=a.realdata,
-                    skip_speed=a.skip_speed, skip_accuracy=a.skip_accuracy, batch_n=a.batch_n, at_limit=a.at_limit, workers=a.workers,
+                    skip_speed=a.skip_speed, skip_accuracy=a.skip_accuracy, batch_n=a.batch_n, batch_mp=a.batch_mp, at_limit=a.at_limit, workers=a.workers,
                     say=(lambda m: None) if a.quiet else (lambda m: print(m, file=sys.stderr)))
     print(format_table(rep))
     if a.json:
@@ -848,6 +848,7 @@ def add_commands(sub) -> None:
     p.add_argument("--at-limit", type=_nonneg_int, default=6,
                    help="extra generated photos with one imperfection at a preset's limit (default 6)")
     p.add_argument("--batch-n", type=_pos_int, default=6, help="photos in the batch throughput run (default 6)")
+    p.add_argument("--batch-mp", type=float, default=4.0, help="size of the batch photos, MP (default 4)")
     p.add_argument("--workers", type=_pos_int, default=2, help="processes for the accuracy runs (default 2)")
     p.add_argument("--folder", help="also score a folder of photos with <name>.truth.json beside each")
     p.add_argument("--realdata", help=f"folder of annotated real photos with load.py (default {DEFAULT_REALDATA})")
