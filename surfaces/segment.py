@@ -264,21 +264,7 @@ def _ridge_candidates(M: _Maps) -> list[Detection]:
     r = np.where(M.mask, (M.ridge - M.ridge_med) / M.ridge_sig, 0)
     m = hysteresis(r, 4.0, 8.0)
     lab, n = ndi.label(m, structure=np.ones((3, 3)))
-    out = []
-    for i, sl in enumerate(ndi.find_objects(lab), start=1):
-        if sl is None:
-            continue
-        reg = lab[sl] == i
-        if reg.sum() < 0.8 * M.mm:
-            continue
-        cont = _outline(reg, sl)
-        if cont is None:
-            continue
-        f = polygon_features(cont, px_per_mm=M.mm)
-        if f["greatest_mm"] < 0.5:
-            continue
-        out.append(Detection("crack", 0.0, cont, ISO6520["crack"], _appearance(f, reg, sl, M, source="ridge")))
-    return out
+    return _region_candidates(lab, M, min_px=0.8 * M.mm, min_greatest_mm=0.5, kind="crack", source="ridge")
 
 
 def _smooth_candidates(M: _Maps, taken_dets) -> list[Detection]:
@@ -293,20 +279,25 @@ def _smooth_candidates(M: _Maps, taken_dets) -> list[Detection]:
     sm = cv2.morphologyEx(smooth.astype(np.uint8), cv2.MORPH_OPEN, np.ones((k, k), np.uint8))
     sm = cv2.morphologyEx(sm, cv2.MORPH_CLOSE, np.ones((k, k), np.uint8)) > 0
     lab, n = ndi.label(sm)
+    return _region_candidates(lab, M, min_px=(0.8 * M.mm) ** 2, min_greatest_mm=1.0, kind="unfused", source="smooth")
+
+
+def _region_candidates(lab, M: _Maps, *, min_px: float, min_greatest_mm: float, kind: str, source: str) -> list[Detection]:
+    """One candidate per labelled region at least ``min_px`` pixels and ``min_greatest_mm`` long."""
     out = []
     for i, sl in enumerate(ndi.find_objects(lab), start=1):
         if sl is None:
             continue
         reg = lab[sl] == i
-        if reg.sum() < (0.8 * M.mm) ** 2:
+        if reg.sum() < min_px:
             continue
         cont = _outline(reg, sl)
         if cont is None:
             continue
         f = polygon_features(cont, px_per_mm=M.mm)
-        if f["greatest_mm"] < 1.0:
+        if f["greatest_mm"] < min_greatest_mm:
             continue
-        out.append(Detection("unfused", 0.0, cont, ISO6520["unfused"], _appearance(f, reg, sl, M, source="smooth")))
+        out.append(Detection(kind, 0.0, cont, ISO6520[kind], _appearance(f, reg, sl, M, source=source)))
     return out
 
 
