@@ -743,13 +743,14 @@ def save_panel(w, auto: dict, reviewed: dict) -> None:
             c[0].download_button(
                 "Report (PDF)", data=lambda: report.coupon_pdf(reviewed, photo_rgb, face_rgb=face_rgb,
                                                                reviewer=reviewer, coupon=coupon),
-                file_name=f"{base}-report.pdf", mime="application/pdf", key="dl_pdf", icon=":material/download:")
+                file_name=f"{base}-report.pdf", mime="application/pdf", key="dl_pdf", icon=":material/download:",
+                on_click="ignore")
         c[1].download_button("Assessment (JSON)", data=lambda: report.dumps_json(reviewed),
                              file_name=f"{base}-assessment.json", mime="application/json", key="dl_json",
-                             icon=":material/download:")
+                             icon=":material/download:", on_click="ignore")
         c[2].download_button("Imperfection table (CSV)", data=lambda: report.table_csv(reviewed),
                              file_name=f"{base}-imperfections.csv", mime="text/csv", key="dl_csv",
-                             icon=":material/download:")
+                             icon=":material/download:", on_click="ignore")
 
 
 # =========================================================================== other views
@@ -1019,9 +1020,9 @@ def view_batch() -> None:
                      width="stretch", key="batch_table")
         d1, d2 = st.columns(2)
         d1.download_button("Summary (CSV)", data=report.batch_csv(df), file_name="batch-summary.csv",
-                           mime="text/csv", key="b_csv")
+                           mime="text/csv", key="b_csv", on_click="ignore")
         d2.download_button("Summary (PDF)", data=lambda: report.batch_pdf(df), file_name="batch-summary.pdf",
-                           mime="application/pdf", key="b_pdf")
+                           mime="application/pdf", key="b_pdf", on_click="ignore")
         ids = [int(a) for a in df["assessment_id"].dropna()]
         if ids:
             pick = st.selectbox("Open a coupon for review", ids, key="b_open",
