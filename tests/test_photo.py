@@ -391,3 +391,27 @@ def test_oversized_file_refused_before_reading(tmp_path, monkeypatch):
     with pytest.raises(PhotoError) as ei:
         load_photo(path)
     _assert_one_line(ei.value, "huge.tif", "MB")
+
+
+@pytest.mark.parametrize("subsampling", [0, 2])
+def test_rgb_jpeg_pixels_are_pillows(tmp_path, subsampling):
+    # reference: Pillow's own decode of the same file (the plain-JPEG path decodes with OpenCV)
+    from skimage import data as skdata
+
+    path = tmp_path / "astronaut.jpg"
+    Image.fromarray(skdata.astronaut()).save(path, quality=90, subsampling=subsampling)
+    ref = np.asarray(Image.open(path).convert("RGB")).astype(int)
+    got = load_photo(path).rgb.astype(int)
+    assert got.shape == ref.shape
+    assert np.abs(got - ref).max() <= 1
+
+
+def test_jpeg_cut_anywhere_is_refused(tmp_path, good_jpeg):
+    # a copy cut short at any byte (the usual failed transfer) must be refused, not filled with grey
+    data = good_jpeg.read_bytes()
+    rng = np.random.default_rng(5)
+    for k, at in enumerate(sorted(rng.integers(len(data) // 10, len(data) - 3, size=12))):
+        (tmp_path / f"cut{k}.jpg").write_bytes(data[:at])
+        with pytest.raises(PhotoError) as ei:
+            load_photo(tmp_path / f"cut{k}.jpg")
+        _assert_one_line(ei.value, f"cut{k}.jpg", "truncated")
