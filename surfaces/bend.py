@@ -61,6 +61,22 @@ WIDTH_RANGE_MM = (5.0, 70.0)  # coupons accepted (typical 10-40 mm)
 LENGTH_RANGE_MM = (15.0, 320.0)  # visible length accepted (typical 40-150 mm)
 #: Surface slope beyond which lengths along the coupon are marked unreliable.
 STEEP_SLOPE_DEG = 60.0
+#: Bright bridges narrower than this do not join the card's paper to its flood (mm).
+CARD_BRIDGE_MM = 3.0
+#: The perpendicular pair of straight steps is weighed as the coupon's long edges when
+#: at least this share of the strongest pair's score (the ends can be the stronger steps).
+OTHER_PAIR_SHARE = 0.05
+#: Shading along the coupon (Lab L spread of the mean profile) that marks a bend's axis
+#: clearly: more than this, and this many times the spread across it.
+SHADING_CLEAR_L = 6.0
+SHADING_RATIO = 2.0
+#: Candidate regions weighed by their straight edges: at most this many, each at least
+#: this share of the likeliest's region score.
+CANDIDATES_CHECKED = 4
+CANDIDATE_SHARE = 0.05
+#: The edge step (Lab L per pixel of strip length) weighs a candidate within these bounds.
+STEP_FLOOR_L = 0.5
+STEP_CAP_L = 40.0
 #: Relative 1-sigma uncertainty of the outer radius when it is derived from the
 #: former diameter and thickness: spring-back and a coupon that does not wrap
 #: the former tightly make the real radius larger (common practice).
@@ -282,7 +298,15 @@ def _local_reference(feat: np.ndarray, table: np.ndarray, *, px_per_mm: float, s
 
 def _card_mask(lab_l, sat, calib, to_px, shape) -> np.ndarray:
     """The reference card: the marker and its quiet zone, and the bright, unsaturated paper
-    joined to the quiet zone, within a few marker sides of the marker."""
+    joined to the quiet zone, within a few marker sides of the marker.
+
+    The paper is told from what lies beside it by its own brightness (the
+    quiet zone's, measured beside the marker): a pixel is paper when it is
+    nearer that than the surroundings' median.  Bridges under
+    :data:`CARD_BRIDGE_MM` wide are cut before the flood, so that a bright
+    coupon (a highlight on ground metal) touching the card is not taken for
+    paper.
+    """
     card = np.zeros(shape, np.uint8)
     near = np.zeros(shape, np.uint8)
     seeds = []
@@ -295,14 +319,20 @@ def _card_mask(lab_l, sat, calib, to_px, shape) -> np.ndarray:
         cv2.fillPoly(near, [to_px(ctr + (c - ctr) * reach)], 1)
         seeds.append(to_px(ctr + (c - ctr) * 1.35))
     if seeds:
-        bright = (lab_l > np.percentile(lab_l, 60)) & (sat < 45) & (near > 0)
-        n, lab = cv2.connectedComponents(bright.astype(np.uint8), connectivity=4)
+        rings = np.zeros(shape, np.uint8)
         for ring_pts in seeds:
-            ring = np.zeros(shape, np.uint8)
-            cv2.polylines(ring, [ring_pts], True, 1, 2)
-            ids = np.unique(lab[(ring > 0) & bright])
-            for i in ids[ids > 0]:
-                card[lab == i] = 1
+            cv2.polylines(rings, [ring_pts], True, 1, 2)
+        paper = float(np.median(lab_l[rings > 0])) if (rings > 0).any() else float(np.percentile(lab_l, 90))
+        around = float(np.median(lab_l[(near > 0) & (card == 0)])) if ((near > 0) & (card == 0)).any() else float(np.median(lab_l))
+        thr = 0.5 * (paper + around) if paper > around + 8 else float(np.percentile(lab_l, 60))
+        bright = ((lab_l > thr) & (sat < 45) & (near > 0)).astype(np.uint8)
+        k = max(3, int(round(CARD_BRIDGE_MM * COARSE_PX_PER_MM)) | 1)
+        bright = cv2.morphologyEx(bright, cv2.MORPH_OPEN, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (k, k)))
+        bright = (bright > 0) | (card > 0)  # the quiet zone itself always joins
+        n, lab = cv2.connectedComponents(bright.astype(np.uint8), connectivity=4)
+        ids = np.unique(lab[(rings > 0) & bright])
+        for i in ids[ids > 0]:
+            card[lab == i] = 1
     return cv2.dilate(card, np.ones((13, 13), np.uint8)) > 0  # 1.5 mm at 4 px/mm: the paper's edge
 
 
@@ -368,7 +398,7 @@ def _coarse_coupon(rgb, gray, calib: Calibration, roi_poly):
     cand = cv2.morphologyEx(cand, cv2.MORPH_OPEN, np.ones((2 * k + 1, 2 * k + 1), np.uint8))
     cand = cv2.morphologyEx(cand, cv2.MORPH_CLOSE, np.ones((2 * k + 1, 2 * k + 1), np.uint8))
     n, lab_cc, stats, _ = cv2.connectedComponentsWithStats(cand, connectivity=8)
-    best, best_score = None, 0.0
+    cands = []
     for i in range(1, n):
         area = stats[i, cv2.CC_STAT_AREA] / s**2
         if area < WIDTH_RANGE_MM[0] * LENGTH_RANGE_MM[0]:
@@ -381,16 +411,28 @@ def _coarse_coupon(rgb, gray, calib: Calibration, roi_poly):
         ok_size = WIDTH_RANGE_MM[0] <= Wd <= WIDTH_RANGE_MM[1] and LENGTH_RANGE_MM[0] <= L <= LENGTH_RANGE_MM[1]
         contrast = float(np.median(d[lab_cc == i])) / thr
         sc = area * fill**3 * (1.0 if ok_size else 0.05) * min(contrast, 3.0)
-        if sc > best_score:
-            best_score, best = sc, (cx, cy, rw, rh, ang, i)
-    if best is None:
+        cands.append((sc, (cx, cy, rw, rh, ang), i))
+    if not cands:
         raise FaceError(
             "could not find the bend coupon: give --roi X0,Y0,X1,Y1 (a box around the coupon in photo pixels)"
         )
-    comp = lab_cc == best[5]
-    strip = _straight_strip(plane, comp, allowed, px_per_mm=s)
+    # a region that differs from the table is not yet a coupon: of the few likeliest,
+    # take the one bounded best by a pair of straight parallel steps (a patch of light
+    # or a stain on the table has no straight edges)
+    cands.sort(key=lambda t: -t[0])
+    best, best_score = None, -1.0
+    for sc, rect, i in cands[:CANDIDATES_CHECKED]:
+        if sc < CANDIDATE_SHARE * cands[0][0]:
+            break
+        comp_i = lab_cc == i
+        strip_i = _straight_strip(plane, comp_i, allowed, px_per_mm=s)
+        step = strip_i[5] if strip_i is not None else 0.0
+        final = sc * float(np.clip(step, STEP_FLOOR_L, STEP_CAP_L))
+        if final > best_score:
+            best_score, best = final, (rect, i, strip_i)
+    rect, _, strip = best
     if strip is not None:
-        theta, mid_px, Wd, x0p, x1p = strip
+        theta, mid_px, Wd, x0p, x1p, _ = strip
         ang = math.degrees(theta)
         ux = np.array([math.cos(theta), math.sin(theta)])
         uy = np.array([-math.sin(theta), math.cos(theta)])
@@ -399,7 +441,7 @@ def _coarse_coupon(rgb, gray, calib: Calibration, roi_poly):
         Wd = Wd / s
     else:
         # no pair of straight edges: the component's own rectangle
-        cx, cy, rw, rh, ang = best[:5]
+        cx, cy, rw, rh, ang = rect
         if rw < rh:
             ang += 90.0
             rw, rh = rh, rw
@@ -498,16 +540,21 @@ def _straight_strip(plane: np.ndarray, comp: np.ndarray, allowed: np.ndarray, *,
     first = refine(deg)
     other = refine((deg + 90) % 180)
     chosen = first
-    if other[2] is not None and other[0] > 0.25 * first[0]:
-        # a closed rectangle: which pair are the long edges?  the longer sides, or, for a
-        # near-square view of a bend, the pair along which the shading does not change
+    if other[2] is not None and other[0] > OTHER_PAIR_SHARE * first[0]:
+        # a closed rectangle: which pair are the long edges?  The ends of a bent coupon,
+        # where it turns away dark against the table, are often stronger steps than its
+        # long edges, so the strength of a pair does not say.  A bend is shaded along the
+        # coupon (curvature) and not across it: when that shows clearly it decides;
+        # otherwise the longer sides are the long edges.
         a = abs(first[2][0] - first[2][1])  # separation of the first pair = its width
         b = abs(other[2][0] - other[2][1])
-        if max(a, b) / max(min(a, b), 1) > 1.4:
+        va = _shading_variation(L, comp[r0:r1, c0:c1], math.radians(first[1]))
+        vb = _shading_variation(L, comp[r0:r1, c0:c1], math.radians(other[1]))
+        if max(va, vb) > SHADING_CLEAR_L and max(va, vb) > SHADING_RATIO * min(va, vb):
+            chosen = first if va >= vb else other
+        elif max(a, b) / max(min(a, b), 1) > 1.4:
             chosen = first if a < b else other
         else:
-            va = _shading_variation(L, comp[r0:r1, c0:c1], math.radians(first[1]))
-            vb = _shading_variation(L, comp[r0:r1, c0:c1], math.radians(other[1]))
             chosen = first if va >= vb else other
     sc, deg, (i, j) = chosen
     theta = math.radians(deg)
@@ -535,7 +582,11 @@ def _straight_strip(plane: np.ndarray, comp: np.ndarray, allowed: np.ndarray, *,
     ux = np.array([math.cos(th), math.sin(th)])
     uy = np.array([-math.sin(th), math.cos(th)])
     mid = 0.5 * (pa + pb)
-    return th, float(mid @ uy), float(hi_r - lo_r), float(pa @ ux), float(pb @ ux)
+    # how strongly the two edges stand out: the weaker step's mean brightness change
+    # (Lab L) per pixel of the strip's length
+    p_ch = profile(theta)[0]
+    step = min(abs(float(p_ch[i])), abs(float(p_ch[j]))) / max(float(cols[-1] - cols[0] + 1), 1.0)
+    return th, float(mid @ uy), float(hi_r - lo_r), float(pa @ ux), float(pb @ ux), step
 
 
 def _shading_variation(L: np.ndarray, region: np.ndarray, theta: float) -> float:
@@ -851,7 +902,7 @@ def _coupon_background(gs: np.ndarray, *, px_per_mm: float) -> np.ndarray:
     small = cv2.resize(gs, (max(1, int(round(gs.shape[1] * f))), gs.shape[0]), interpolation=cv2.INTER_AREA) if f < 1 else gs
     col = np.median(small, axis=0)
     k = max(3, int(round(COLUMN_MEDIAN_MM * mm * f)) | 1)
-    col = ndi.median_filter(col, size=k, mode="nearest")
+    col = _ramp_median(col, k)
     col = np.maximum(col, 1.0)
     ratio = small / col[None, :]
     kr = max(3, int(round(ROW_MEDIAN_MM * mm * f)) | 1)
@@ -861,6 +912,25 @@ def _coupon_background(gs: np.ndarray, *, px_per_mm: float) -> np.ndarray:
     rest = gs / np.maximum(sep, 1.0)
     rest_bg = background(np.clip(rest * 128.0, 0, 255), px_per_mm=mm, window_mm=BACKGROUND_MM) / 128.0
     return sep * rest_bg
+
+
+def _ramp_median(p: np.ndarray, k: int) -> np.ndarray:
+    """Running median of ``p`` over ``k`` samples that follows a ramp up to both ends.
+
+    The ends of a bent coupon darken steeply where it turns away; a median
+    padded with the end value flattens that ramp and leaves a dark residual
+    that reads as an opening.  Padding by point reflection about a robust end
+    value (the median of the outermost few samples) keeps a linear ramp
+    linear.
+    """
+    p = np.asarray(p, np.float64)
+    h = k // 2
+    if len(p) < 2 * h + 2 or h < 1:
+        return ndi.median_filter(p, size=k, mode="nearest")
+    m = max(1, h // 2)
+    a, b = float(np.median(p[:m + 1])), float(np.median(p[-m - 1 :]))
+    padded = np.r_[2 * a - p[h:0:-1], p, 2 * b - p[-2 : -h - 2 : -1]]
+    return ndi.median_filter(padded, size=k, mode="nearest")[h:-h]
 
 
 def _angle_diff(a: float, b: float) -> float:
