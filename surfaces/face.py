@@ -29,6 +29,7 @@ from .model import WORK_PX_PER_MM, Calibration, Face, FaceError
 COARSE_PX_PER_MM = 4.0
 #: Largest plane extent searched around the photo's footprint (mm).
 MAX_SEARCH_MM = 700.0
+_DEBUG = None
 
 
 # --------------------------------------------------------------------------
@@ -113,12 +114,13 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
     # plane grid: col -> X = lo.x + (col + .5)/s
     A = np.array([[1 / s, 0, lo[0] + 0.5 / s], [0, 1 / s, lo[1] + 0.5 / s], [0, 0, 1.0]])
     # downscale the photo first so the warp does not alias the texture away
+    # (one colour copy; its luma is the grey copy, as in Photo.gray)
     ppm = calib.px_per_mm_at(gray.shape[1] / 2, gray.shape[0] / 2)
     target = 6.0  # px/mm kept for the texture measure
     f = min(1.0, target / max(ppm, 1e-6))
     if f < 0.95:
-        small = cv2.resize(gray, None, fx=f, fy=f, interpolation=cv2.INTER_AREA)
         small_rgb = cv2.resize(rgb, None, fx=f, fy=f, interpolation=cv2.INTER_AREA)
+        small = cv2.cvtColor(small_rgb, cv2.COLOR_RGB2GRAY)
         # pixel-centre convention: x_full = (x_small + .5)/f - .5
         Hs = calib.H @ np.array([[1 / f, 0, 0.5 / f - 0.5], [0, 1 / f, 0.5 / f - 0.5], [0, 0, 1]])
     else:
@@ -127,15 +129,16 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
     # granular fracture texture is isotropic; brushed plate, weld ripples and
     # grinding marks are oriented: damp the energy by the structure-tensor coherence
     energy_photo *= 1.0 - _coherence(small, sigma_px=1.0 * ppm * f)
-    valid_photo = np.ones(small.shape, np.uint8)
+    # rust and paint are coloured; fracture faces are grey metal
+    mx = small_rgb.max(axis=2).astype(np.float32)
+    sat = 255.0 * (mx - small_rgb.min(axis=2)) / np.maximum(mx, 1.0)
+    energy_photo *= np.clip(1.2 - sat / 120.0, 0.2, 1.0)
     M = np.linalg.inv(Hs) @ A
     warp = lambda im, interp=cv2.INTER_LINEAR: cv2.warpPerspective(  # noqa: E731
         im, M, (W, Hh), flags=interp | cv2.WARP_INVERSE_MAP, borderMode=cv2.BORDER_CONSTANT, borderValue=0
     )
     energy = warp(energy_photo)
-    valid = warp(valid_photo, cv2.INTER_NEAREST) > 0
-    hsv = cv2.cvtColor(small_rgb, cv2.COLOR_RGB2HSV)
-    sat = warp(hsv[..., 1]).astype(np.float32)
+    valid = warp(np.ones(small.shape, np.uint8), cv2.INTER_NEAREST) > 0
     val = warp(small).astype(np.float32)
 
     # search polygon and card exclusion, in coarse plane pixels
@@ -152,42 +155,17 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
     if allowed.sum() < 50:
         raise FaceError("no room for a face beside the reference card: give --roi around the face")
 
-    e = energy.copy()
-    # rust and paint are coloured; fracture faces and bend coupons are grey metal
-    e *= np.clip(1.2 - sat / 120.0, 0.2, 1.0)
+    e = energy
     e[~allowed] = 0
-    vals = e[allowed]
-    out_level = float(np.median(vals))
-    best, best_score = None, -1.0
-    k = max(1, int(round(0.8 * s)))
-    for thr in _thresholds(vals):
-        cand = (e > thr) & allowed
-        cand = cv2.morphologyEx(cand.astype(np.uint8), cv2.MORPH_CLOSE, np.ones((2 * k + 1, 2 * k + 1), np.uint8))
-        cand = cv2.morphologyEx(cand, cv2.MORPH_OPEN, np.ones((k + 1, k + 1), np.uint8))
-        n, lab, stats, cents = cv2.connectedComponentsWithStats(cand, connectivity=8)
-        for i in range(1, n):
-            area_mm2 = stats[i, cv2.CC_STAT_AREA] / s**2
-            if area_mm2 < 15:
-                continue
-            ys, xs = np.nonzero(lab == i)
-            pts = np.c_[xs, ys].astype(np.float32)
-            (cx, cy), (rw, rh), ang = cv2.minAreaRect(pts)
-            L, Wd = max(rw, rh) / s, max(min(rw, rh), 1) / s
-            fill = area_mm2 / max(L * Wd, 1e-6)
-            # the fracture face is the most (isotropically) textured, compact region:
-            # rank by its typical texture level, filled rectangles first
-            contrast = float(np.median(e[ys, xs])) / max(out_level, 1e-6)
-            if L < 8.0:
-                continue
-            score = float(np.median(e[ys, xs])) * min(fill, 1.0) ** 2 * area_mm2**0.1
-            if score > best_score:
-                best_score, best = score, (pts, fill, contrast)
-                best_lab = (lab, n, i, float(np.median(e[ys, xs])))
-    if best is not None:
-        best = _merge_collinear(best, best_lab, e)
+    best = _best_component(e, allowed, s)
+    if _DEBUG is not None:
+        _DEBUG.update(e=e, lo=lo, val=val, allowed=allowed)
+        if best is not None:
+            _DEBUG["best"] = best[0]
     if best is None:
         raise FaceError(
-            "could not find the face automatically: give --roi X0,Y0,X1,Y1 (a rough box around the face in photo pixels)"
+            "could not find the face automatically (no region stands out as a fracture face): "
+            "give --roi X0,Y0,X1,Y1 (a rough box around the face in photo pixels)"
         )
     pts, fill, contrast = best
     (cx, cy), (rw, rh), ang = cv2.minAreaRect(pts)
@@ -196,6 +174,89 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
         rw, rh = rh, rw
     centre = lo + (np.array([cx, cy]) + 0.5) / s
     return centre, float(ang), rw / s, rh / s, float(min(fill, 1.0)), where
+
+
+#: a face must be at least this much more textured than the ring just around it
+MIN_RING_CONTRAST = 1.6
+
+
+def _best_component(e: np.ndarray, allowed: np.ndarray, s: float):
+    """The compact region that stands out most from its own surroundings.
+
+    Candidate regions are the components of ``e`` above a ladder of
+    thresholds (Otsu's split and geometric steps from the median towards the
+    top of the distribution).  Each is scored by its texture contrast against
+    a ring 1-4 mm around it (a fracture face is rougher than the plate, bead,
+    notch faces or table right beside it, whatever their absolute level),
+    times its rectangular fill squared (a face is a filled strip, a textured
+    background is ragged); components with too little ring contrast are
+    never taken.  Pieces on the winner's axis are joined (:func:`_merge_collinear`).
+    """
+    vals = e[allowed]
+    out_level = float(np.median(vals)) + 1e-6
+    top = float(np.percentile(vals, 99.9))
+    ths = {_otsu(vals)}
+    if top > out_level:
+        ths.update(out_level * (top / out_level) ** (k / 7.0) for k in range(1, 7))
+    k = max(1, int(round(0.8 * s)))
+    k_close = np.ones((2 * k + 1, 2 * k + 1), np.uint8)
+    k_open = np.ones((k + 1, k + 1), np.uint8)
+    r_in, r_out = int(round(1.0 * s)), int(round(4.0 * s))
+    H, W = e.shape
+    cands, labs = [], []
+    for thr in sorted(ths):
+        cand = ((e > thr) & allowed).astype(np.uint8)
+        cand = cv2.morphologyEx(cand, cv2.MORPH_CLOSE, k_close)
+        cand = cv2.morphologyEx(cand, cv2.MORPH_OPEN, k_open)
+        n, lab, stats, cents = cv2.connectedComponentsWithStats(cand, connectivity=8)
+        labs.append((lab, n, stats, cents))
+        for i in range(1, n):
+            area_px = stats[i, cv2.CC_STAT_AREA]
+            if area_px / s**2 < 15:
+                continue
+            x, y, bw, bh = stats[i, :4]
+            if max(bw, bh) < 8.0 * s:
+                continue
+            x0, y0 = max(0, x - r_out), max(0, y - r_out)
+            x1, y1 = min(W, x + bw + r_out), min(H, y + bh + r_out)
+            sub = (lab[y0:y1, x0:x1] == i).astype(np.uint8)
+            ys, xs = np.nonzero(sub)
+            pts = np.c_[xs + x0, ys + y0].astype(np.float32)
+            (_, _), (rw, rh), _ = cv2.minAreaRect(pts)
+            L, Wd = max(rw, rh) / s, max(min(rw, rh), 1) / s
+            if L < 8.0:
+                continue
+            fill = min(area_px / s**2 / max(L * Wd, 1e-6), 1.0)
+            ring = cv2.dilate(sub, np.ones((2 * r_out + 1, 2 * r_out + 1), np.uint8)) > 0
+            ring &= ~(cv2.dilate(sub, np.ones((2 * r_in + 1, 2 * r_in + 1), np.uint8)) > 0)
+            ring &= allowed[y0:y1, x0:x1]
+            inside = float(np.median(e[ys + y0, xs + x0]))
+            esub = e[y0:y1, x0:x1]
+            # too little ring (the component fills the search area): compare with the whole area
+            ring_level = float(np.percentile(esub[ring], 75)) if ring.sum() > 0.3 * area_px else out_level
+            contrast = inside / max(ring_level, 1e-6)
+            if contrast < MIN_RING_CONTRAST:
+                continue
+            score = inside * min(contrast, 4.0) ** 0.5 * fill**2 * (area_px / s**2) ** 0.1
+            # a point surely inside the component (for the nesting test below)
+            k_mid = int(np.argmin(np.abs(xs - xs.mean()) + np.abs(ys - ys.mean())))
+            cands.append(dict(t=len(labs) - 1, i=i, pts=pts, fill=fill, contrast=contrast, inside=inside,
+                              score=score, mid=(int(ys[k_mid] + y0), int(xs[k_mid] + x0))))
+    # a region holding a clearly more textured region that stands out on its own is
+    # the specimen (plate, bead, coupon) carrying the face, not the face
+    for c in cands:
+        lab = labs[c["t"]][0]
+        c["holds"] = any(
+            d["t"] > c["t"] and d["inside"] > 1.4 * c["inside"] and lab[d["mid"]] == c["i"] for d in cands
+        )
+    pool = [c for c in cands if not c["holds"]]
+    if not pool:
+        return None
+    c = max(pool, key=lambda c: c["score"])
+    lab, n, stats, cents = labs[c["t"]]
+    best = (c["pts"], c["fill"], c["contrast"])
+    best_lab = (lab, n, c["i"], c["inside"], stats, cents)
+    return _merge_collinear(best, best_lab, e, s)
 
 
 def _card_mask(val: np.ndarray, quad_px: np.ndarray, s: float) -> np.ndarray:
@@ -217,8 +278,8 @@ def _card_mask(val: np.ndarray, quad_px: np.ndarray, s: float) -> np.ndarray:
     white = float(np.median([img[y, x] for x, y in paper]))
     for x, y in paper:
         if img[y, x] >= 0.7 * white and not mask[y + 1, x + 1]:
-            cv2.floodFill(img.copy(), mask, (x, y), 255, loDiff=int(0.18 * white), upDiff=255,
-                          flags=8 | cv2.FLOODFILL_MASK_ONLY | (255 << 8))
+            cv2.floodFill(img.copy(), mask, (x, y), 255, loDiff=int(0.25 * white), upDiff=255,
+                          flags=8 | cv2.FLOODFILL_MASK_ONLY | cv2.FLOODFILL_FIXED_RANGE | (255 << 8))
     card = mask[1:-1, 1:-1] > 0
     side_px = float(np.mean(np.linalg.norm(np.roll(q, -1, 0) - q, axis=1)))
     # a flood that leaks into a pale table is no card: an A4 sheet is the largest we print
@@ -238,14 +299,15 @@ def _card_mask(val: np.ndarray, quad_px: np.ndarray, s: float) -> np.ndarray:
     return cv2.dilate(card.astype(np.uint8), np.ones((k, k), np.uint8)) > 0
 
 
-def _merge_collinear(best, best_lab, e):
-    """Join pieces of the same face split by a smooth (unfused) stretch or a defect.
+def _merge_collinear(best, best_lab, e, s: float = COARSE_PX_PER_MM):
+    """Join pieces of the same face split by a smooth (unfused) stretch, glare or a defect.
 
-    Components lying on the chosen one's axis, within its width, with a
-    similar texture level, are added before the outline is fitted.
+    Components whose centre lies on the chosen one's axis, within its width,
+    close to one of its ends, with a similar texture level, are added before
+    the outline is fitted.
     """
     pts, fill, contrast = best
-    lab, n, i0, level = best_lab
+    lab, n, i0, level, stats, cents = best_lab
     (cx, cy), (rw, rh), ang = cv2.minAreaRect(pts)
     if rw < rh:
         ang += 90.0
@@ -253,18 +315,21 @@ def _merge_collinear(best, best_lab, e):
     a = math.radians(ang)
     ux, uy = math.cos(a), math.sin(a)
     keep = [pts]
+    reach = 0.5 * rw + max(0.25 * rw, 8.0 * s)
     for j in range(1, n):
-        if j == i0:
+        if j == i0 or stats[j, cv2.CC_STAT_AREA] < 4:
             continue
-        ys, xs = np.nonzero(lab == j)
-        if len(xs) < 4:
+        dx, dy = cents[j, 0] - cx, cents[j, 1] - cy
+        if abs(-dx * uy + dy * ux) > 0.6 * rh + 2 or abs(dx * ux + dy * uy) > reach + 0.5 * max(stats[j, 2:4]):
             continue
-        if float(np.median(e[ys, xs])) < 0.4 * level:
+        x, y, bw, bh = stats[j, :4]
+        ys, xs = np.nonzero(lab[y : y + bh, x : x + bw] == j)
+        ys, xs = ys + y, xs + x
+        if float(np.median(e[ys, xs])) < 0.6 * level:
             continue
         across = np.abs(-(xs - cx) * uy + (ys - cy) * ux)
         along = (xs - cx) * ux + (ys - cy) * uy
-        gap_ok = np.min(np.abs(along)) < 0.5 * rw + max(rw, 40.0 * COARSE_PX_PER_MM)
-        if np.mean(across <= 0.6 * rh + 2) > 0.8 and gap_ok:
+        if np.mean(across <= 0.6 * rh + 2) > 0.8 and np.min(np.abs(along)) < reach:
             keep.append(np.c_[xs, ys].astype(np.float32))
     if len(keep) == 1:
         return best
@@ -284,20 +349,6 @@ def _coherence(gray: np.ndarray, *, sigma_px: float) -> np.ndarray:
     jyy = cv2.GaussianBlur(gy * gy, (0, 0), s)
     jxy = cv2.GaussianBlur(gx * gy, (0, 0), s)
     return np.clip(np.sqrt((jxx - jyy) ** 2 + 4 * jxy**2) / (jxx + jyy + 1e-6), 0, 1)
-
-
-def _thresholds(vals: np.ndarray) -> list[float]:
-    """Candidate texture thresholds: Otsu, and the upper class split of a 3-class Otsu."""
-    from skimage.filters import threshold_multiotsu
-
-    out = [_otsu(vals)]
-    v = vals[np.isfinite(vals)]
-    if v.size > 100:
-        try:
-            out.extend(float(t) for t in threshold_multiotsu(v, classes=3))
-        except ValueError:
-            pass
-    return sorted(set(out))
 
 
 def _otsu(vals: np.ndarray) -> float:
@@ -399,6 +450,12 @@ def _snap_to_step(profile: np.ndarray, pos: float, *, win: int) -> float:
     return float(k + np.clip(off, -0.5, 0.5))
 
 
+#: resolution of the fine pass that places the face's outline (mm pitch 0.1)
+FINE_PX_PER_MM = 10.0
+#: length of the stretches along the weld whose long edges are located separately
+EDGE_BIN_MM = 2.0
+
+
 def find_face(
     rgb: np.ndarray,
     gray: np.ndarray,
@@ -428,58 +485,104 @@ def find_face(
     -------
     Face
         Rectified image with column = x along the weld (the face's longer
-        side), row = y across it.
+        side), row = y across it.  ``image`` spans the face's bounding
+        rectangle in its own axes; ``mask`` is True on the face itself (the
+        long edges follow the break stretch by stretch, so a wandering or
+        tapered face keeps its true outline) and ``area_mm2`` is the area of
+        that outline.
+
+    Raises
+    ------
+    FaceError
+        No region stands out as a face, or the one found is too small; the
+        message asks for ``--roi``.
     """
     roi_poly = _roi_polygon(roi, gray.shape) if roi is not None else None
     warnings: list[str] = []
     centre, axis, L, Wd, fill, where = _coarse_face(gray, rgb, calib, roi_poly, test)
     method = "auto" if roi is None else ("roi-box" if len(roi) == 4 else "roi-corners")
 
+    q = FINE_PX_PER_MM
+    # texture scales follow what the photo resolves at the face (2-4 photo pixels at least)
+    c_px = apply_h(np.linalg.inv(calib.H), [centre])[0]
+    ppm_photo = calib.px_per_mm_at(float(c_px[0]), float(c_px[1])) if np.all(np.isfinite(c_px)) else q
+    fine_mm = max(0.12, 1.5 / max(ppm_photo, 1e-3))
+    win_mm = max(0.35, 3.0 / max(ppm_photo, 1e-3))
+
     # fine pass: rectify the face with a margin, find its edges from texture profiles
     margin = max(3.0, 0.6 * Wd)
     margin_x = max(5.0, 0.35 * L)
     ox, oy = -L / 2 - margin_x, -Wd / 2 - margin
-    w = int(math.ceil((L + 2 * margin_x) * px_per_mm))
-    h = int(math.ceil((Wd + 2 * margin) * px_per_mm))
-    A = face_frame(centre, axis, (ox, oy), px_per_mm=px_per_mm)
+    w = int(math.ceil((L + 2 * margin_x) * q))
+    h = int(math.ceil((Wd + 2 * margin) * q))
+    A = face_frame(centre, axis, (ox, oy), px_per_mm=q)
     g = warp_to_face(gray, calib.H, A, (h, w))
-    e = _texture_energy(g, px_per_mm=px_per_mm, fine_mm=0.12, window_mm=0.35)
-    e *= 1.0 - _coherence(g, sigma_px=0.5 * px_per_mm)
-    mrow = int(margin * px_per_mm * 0.6)
-    core_c = slice(int(w * 0.5 - L * px_per_mm * 0.3), int(w * 0.5 + L * px_per_mm * 0.3) + 1)
+    e = _texture_energy(g, px_per_mm=q, fine_mm=fine_mm, window_mm=win_mm)
+    e *= 1.0 - _coherence(g, sigma_px=max(0.5, 0.5 * win_mm / 0.35) * q)
     e = e * e  # blurred energy is linear in the blur: its half-level is the edge (sqrt would bias outward)
-    gi = cv2.GaussianBlur(g.astype(np.float32), (0, 0), 0.08 * px_per_mm)
+    gi = cv2.GaussianBlur(g.astype(np.float32), (0, 0), max(0.08, 0.5 / max(ppm_photo, 1e-3)) * q)
+    mrow = max(1, int(margin * q * 0.6))
+    core_c = slice(int(w * 0.5 - L * q * 0.3), int(w * 0.5 + L * q * 0.3) + 1)
     prof_y = np.median(e[:, core_c], axis=1)
-    inside_y = slice(int(h / 2 - Wd * px_per_mm * 0.25), int(h / 2 + Wd * px_per_mm * 0.25) + 1)
-    y_lo, y_hi, c_y = _edge_from_profile(
-        prof_y, inside_y, slice(0, mrow), slice(h - mrow, h), persist=int(0.4 * px_per_mm)
-    )
-    if y_lo is None or y_hi is None:
-        y_lo, y_hi = margin * px_per_mm, (margin + Wd) * px_per_mm
+    inside_y = slice(int(h / 2 - Wd * q * 0.25), int(h / 2 + Wd * q * 0.25) + 1)
+    snap = max(1, int(round(max(0.8, 2 * win_mm) * q)))
+    y_c0, y_c1 = margin * q, (margin + Wd) * q  # the coarse outline's edges
+    reach_out = max(1.5, 0.25 * Wd) * q
+    lv_in = float(np.percentile(prof_y[inside_y], 75))
+    lv_lo = float(np.median(prof_y[:mrow]))
+    lv_hi = float(np.median(prof_y[h - mrow :]))
+    c_y = min(lv_in - lv_lo, lv_in - lv_hi) / max(lv_in, 1e-6)
+    mid = 0.5 * (y_c0 + y_c1)
+    pers_y = max(2, int(0.4 * q))
+    y_lo = _rise_from_outside(prof_y, 0.5 * (lv_in + lv_lo), y_c0 - reach_out, mid, persist=pers_y)
+    y_hi = _rise_from_outside(prof_y, 0.5 * (lv_in + lv_hi), y_c1 + reach_out, mid, persist=pers_y)
+    if y_lo is None or y_hi is None or y_hi - y_lo < 0.3 * Wd * q:
+        y_lo, y_hi = y_c0, y_c1
         warnings.append("face edges across the weld are unclear: width taken from the coarse outline")
     else:
         prof_i = np.median(gi[:, core_c], axis=1)
-        y_lo = _snap_to_step(prof_i, y_lo, win=int(0.8 * px_per_mm))
-        y_hi = _snap_to_step(prof_i, y_hi, win=int(0.8 * px_per_mm))
+        y_lo = _snap_to_step(prof_i, y_lo, win=snap)
+        y_hi = _snap_to_step(prof_i, y_hi, win=snap)
     band = slice(int(math.ceil(y_lo + 0.15 * (y_hi - y_lo))), int(y_hi - 0.15 * (y_hi - y_lo)) + 1)
-    prof_x = np.median(e[band, :], axis=0)
-    inside_x = slice(int(w / 2 - L * px_per_mm * 0.25), int(w / 2 + L * px_per_mm * 0.25) + 1)
-    mcol = int(margin_x * px_per_mm * 0.6)
-    x_lo, x_hi, c_x = _ends_from_profile(
-        prof_x, inside_x, slice(0, mcol), slice(w - mcol, w), persist=int(2.0 * px_per_mm)
-    )
-    if x_lo is None or x_hi is None:
-        x_lo, x_hi = margin_x * px_per_mm, (margin_x + L) * px_per_mm
+    # along the face: a profile smoothed over half a millimetre, walked in from both margins
+    prof_x = cv2.blur(np.median(e[band, :], axis=0).reshape(1, -1), (max(1, int(0.5 * q)) | 1, 1)).ravel()
+    inside_x = slice(int(w / 2 - L * q * 0.25), int(w / 2 + L * q * 0.25) + 1)
+    mcol = max(1, int(margin_x * q * 0.6))
+    lv_in = float(np.percentile(prof_x[inside_x], 75))
+    lv_l, lv_r = float(np.median(prof_x[:mcol])), float(np.median(prof_x[w - mcol :]))
+    c_x = min(lv_in - lv_l, lv_in - lv_r) / max(lv_in, 1e-6)
+    pers_x = max(2, int(2.0 * q))
+    x_lo = _rise_from_outside(prof_x, 0.5 * (lv_in + lv_l), 0, w / 2, persist=pers_x)
+    x_hi = _rise_from_outside(prof_x, 0.5 * (lv_in + lv_r), w - 1, w / 2, persist=pers_x)
+    if x_lo is None or x_hi is None or x_hi - x_lo < pers_x:
+        x_lo, x_hi = margin_x * q, (margin_x + L) * q
         warnings.append("face ends are unclear: length taken from the coarse outline")
     else:
         prof_i = np.median(gi[band, :], axis=0)
-        x_lo = _snap_to_step(prof_i, x_lo, win=int(0.8 * px_per_mm))
-        x_hi = _snap_to_step(prof_i, x_hi, win=int(0.8 * px_per_mm))
-    # edges in face-centred mm (pixel centre i sits at o + (i + .5)/ppm)
-    fx0, fx1 = ox + (x_lo + 0.5) / px_per_mm, ox + (x_hi + 0.5) / px_per_mm
-    fy0, fy1 = oy + (y_lo + 0.5) / px_per_mm, oy + (y_hi + 0.5) / px_per_mm
+        x_lo = _snap_to_step(prof_i, x_lo, win=snap)
+        x_hi = _snap_to_step(prof_i, x_hi, win=snap)
+    if x_hi - x_lo <= 1 * q or y_hi - y_lo <= 0.5 * q:
+        raise FaceError("the face found is too small to assess: give --roi around the face")
+
+    # long edges stretch by stretch: a break wanders and tapers; a smooth stretch along
+    # the straight root (lack of fusion) must not pull the edge into the face
+    xb, ylo_b, yhi_b = _edges_by_stretch(
+        e, gi, x_lo, x_hi, y_lo, y_hi, out_lo=slice(0, mrow), out_hi=slice(h - mrow, h), q=q, snap=snap
+    )
+    if _DEBUG is not None:
+        _DEBUG.update(fe=e, fg=g, fb=(x_lo, x_hi, y_lo, y_hi), bins=(xb, ylo_b, yhi_b), prof_x=prof_x, prof_y=prof_y)
+    # outline in face-centred mm (pixel centre i sits at o + (i + .5)/q)
+    to_x = lambda c: ox + (np.asarray(c) + 0.5) / q  # noqa: E731
+    to_y = lambda r: oy + (np.asarray(r) + 0.5) / q  # noqa: E731
+    fx0, fx1 = float(to_x(x_lo)), float(to_x(x_hi))
+    xs_mm = np.r_[fx0, to_x(xb), fx1]
+    lo_mm = to_y(np.r_[ylo_b[0], ylo_b, ylo_b[-1]])
+    hi_mm = to_y(np.r_[yhi_b[0], yhi_b, yhi_b[-1]])
+    outline = np.r_[np.c_[xs_mm, lo_mm], np.c_[xs_mm[::-1], hi_mm[::-1]]]  # face-centred mm
+    fy0, fy1 = float(lo_mm.min()), float(hi_mm.max())
     length, width = fx1 - fx0, fy1 - fy0
-    if length <= 1 or width <= 0.5:
+    area = _shoelace(outline)
+    if length <= 1 or width <= 0.5 or area <= 0.5:
         raise FaceError("the face found is too small to assess: give --roi around the face")
     if width > length:
         warnings.append("the face is wider than long: check the weld axis on the overlay")
@@ -487,15 +590,18 @@ def find_face(
     if conf < 0.4:
         warnings.append("the face outline is uncertain: check it on the overlay or give --roi")
 
-    # final rectified face, exactly the face rectangle
-    wf = int(round(length * px_per_mm))
-    hf = int(round(width * px_per_mm))
+    # final rectified face: the outline's bounding rectangle, the outline as the mask
+    wf = max(1, int(round(length * px_per_mm)))
+    hf = max(1, int(round(width * px_per_mm)))
     Af = face_frame(centre, axis, (fx0, fy0), px_per_mm=px_per_mm)
     Af = _rescale_frame(Af, length / wf, width / hf, px_per_mm)
     img = warp_to_face(rgb, calib.H, Af, (hf, wf))
-    mask = np.ones((hf, wf), bool)
-    corners_face = np.array([[-0.5, -0.5], [wf - 0.5, -0.5], [wf - 0.5, hf - 0.5], [-0.5, hf - 0.5]])
-    poly_px = apply_h(np.linalg.inv(calib.H) @ Af, corners_face)
+    # outline -> final face pixels (corners of the image at -0.5 .. n - 0.5)
+    oc = np.c_[(outline[:, 0] - fx0) * wf / length - 0.5, (outline[:, 1] - fy0) * hf / width - 0.5]
+    mask = np.zeros((hf, wf), np.uint8)
+    cv2.fillPoly(mask, [np.round((oc + 0.5) * 16 - 8).astype(np.int32)], 1, lineType=cv2.LINE_8, shift=4)
+    mask = mask > 0
+    poly_px = apply_h(np.linalg.inv(calib.H) @ Af, oc)
     Hp, Wp = gray.shape
     if np.any(poly_px < -2) or np.any(poly_px[:, 0] > Wp + 1) or np.any(poly_px[:, 1] > Hp + 1):
         warnings.append("part of the face lies outside the photo: retake with the whole face in frame")
@@ -506,13 +612,132 @@ def find_face(
         A_face_to_plane=Af,
         length_mm=float(length),
         width_mm=float(width),
-        area_mm2=float(length * width),
+        area_mm2=float(area),
         polygon_px=poly_px,
         method=method,
         root_side="unknown",
         confidence=conf,
         warnings=tuple(warnings),
     )
+
+
+def _shoelace(poly: np.ndarray) -> float:
+    """Area of a simple polygon (N, 2) by the shoelace formula."""
+    x, y = poly[:, 0], poly[:, 1]
+    return 0.5 * abs(float(np.dot(x, np.roll(y, -1)) - np.dot(y, np.roll(x, -1))))
+
+
+def _edges_by_stretch(e, gi, x_lo, x_hi, y_lo, y_hi, *, out_lo, out_hi, q, snap):
+    """Both long edges in stretches of :data:`EDGE_BIN_MM` along the face.
+
+    Each stretch's edge is where its own texture profile crosses half-way
+    between the face's level in that stretch and the outside level, searched
+    near the whole-face edge and snapped to the brightness step.  Then on
+    each side a straight line is fitted robustly; stretches whose edge lies
+    well inside that line (a smooth band along a straight root: lack of
+    fusion, heat tint, glare) take the line instead, while a genuinely
+    wandering edge (spread of the stretches much larger than the tolerance)
+    keeps its own positions.
+
+    Returns
+    -------
+    (x, y_lo, y_hi) : three (n,) arrays, columns and rows of the fine image.
+    """
+    from .geometry import fit_line_tls
+
+    h, w = e.shape
+    W = y_hi - y_lo
+    nb = max(1, int(round((x_hi - x_lo) / (EDGE_BIN_MM * q))))
+    edges = np.linspace(x_lo, x_hi, nb + 1)
+    reach = max(1.5 * q, 0.3 * W)  # how far a stretch's edge may stray from the whole-face edge
+    persist = max(2, int(0.3 * q))
+    xb, lo_b, hi_b = [], [], []
+    for k in range(nb):
+        a0, a1 = int(math.ceil(edges[k])), int(math.floor(edges[k + 1])) + 1
+        a0, a1 = max(a0, 0), min(a1, w)
+        if a1 - a0 < 2:
+            continue
+        p = np.median(e[:, a0:a1], axis=1)
+        pi = np.median(gi[:, a0:a1], axis=1)
+        c0, c1 = int(y_lo + 0.3 * W), int(y_hi - 0.3 * W) + 1
+        inner = float(np.percentile(p[c0:max(c1, c0 + 1)], 60))
+        ol = float(np.median(p[out_lo])) if p[out_lo].size else 0.3 * inner
+        oh = float(np.median(p[out_hi])) if p[out_hi].size else 0.3 * inner
+        mid = 0.5 * (y_lo + y_hi)
+        ylo = _rise_from_outside(p, 0.5 * (inner + ol), max(0.0, y_lo - reach), min(mid, y_lo + reach), persist=persist)
+        yhi = _rise_from_outside(p, 0.5 * (inner + oh), min(h - 1.0, y_hi + reach), max(mid, y_hi - reach), persist=persist)
+        ylo = y_lo if ylo is None or inner <= 1.2 * ol else _snap_to_step(pi, ylo, win=snap)
+        yhi = y_hi if yhi is None or inner <= 1.2 * oh else _snap_to_step(pi, yhi, win=snap)
+        xb.append(0.5 * (edges[k] + edges[k + 1]))
+        lo_b.append(ylo)
+        hi_b.append(yhi)
+    xb = np.asarray(xb, float)
+    if len(xb) == 0:
+        return np.array([x_lo, x_hi]), np.array([y_lo, y_lo]), np.array([y_hi, y_hi])
+    out = []
+    for vals, inward in ((np.asarray(lo_b, float), +1.0), (np.asarray(hi_b, float), -1.0)):
+        out.append(_edge_line(xb, vals, inward, q=q))
+    # the outline's long edges: straight lines between the ends (a break's small wander
+    # averages out over a stretch; stretch-by-stretch positions carry more noise than it)
+    xe = np.array([x_lo, x_hi], float)
+    return xe, np.polyval(out[0], xe), np.polyval(out[1], xe)
+
+
+def _edge_line(x: np.ndarray, y: np.ndarray, inward: float, *, q: float) -> np.ndarray:
+    """Straight edge ``y = a x + b`` through stretch positions, robust to smooth bands inside it.
+
+    A robust total-least-squares line first; stretches lying well inside it
+    (more than ``max(2.5 sigma, 0.2 mm)``) are a smooth band along the edge,
+    not the edge, and are left out of the final fit.  With fewer than four
+    stretches the median position is used.
+    """
+    from .geometry import fit_line_tls
+
+    if len(x) < 4:
+        return np.array([0.0, float(np.median(y))])
+    keep = np.ones(len(x), bool)
+    for _ in range(3):
+        fit = fit_line_tls(np.c_[x[keep], y[keep]], robust=True, k_sigma=3.0, min_tol=0.1 * q)
+        if fit is None or abs(fit[1][0]) < 1e-6:
+            return np.array([0.0, float(np.median(y))])
+        (px_, py_), (dx, dy), _, _ = fit
+        a = dy / dx
+        line = py_ + (x - px_) * a
+        r = (y - line) * inward  # > 0: inside the line
+        sig = 1.4826 * float(np.median(np.abs(r[keep] - np.median(r[keep])))) + 1e-6
+        new = r <= max(2.5 * sig, 0.2 * q)
+        if new.sum() < max(3, 0.2 * len(x)) or np.array_equal(new, keep):
+            break
+        keep = new
+    return np.array([a, py_ - a * px_])
+
+
+def _rise_from_outside(p: np.ndarray, level: float, start: float, stop: float, *, persist: int):
+    """First place, walking from ``start`` towards ``stop``, where ``p`` rises through ``level`` to stay.
+
+    The rise counts when the next ``persist`` samples average at least
+    ``level`` with most of them above it, so a lone bright speck outside the
+    face is passed over and an internal smooth patch is never reached.
+    Returns the sub-sample position, or None.
+    """
+    p = np.asarray(p, dtype=np.float64)
+    n = len(p)
+    a = int(np.clip(round(start), 0, n - 1))
+    b = int(np.clip(round(stop), 0, n - 1))
+    step = 1 if b >= a else -1
+    idx = np.arange(a, b + step, step)
+    if len(idx) < 2:
+        return None
+    v = p[idx]
+    for k in range(1, len(v)):
+        if v[k - 1] < level <= v[k]:
+            after = v[k : k + persist]
+            if len(after) >= min(persist, len(v) - k) and after.mean() >= level and np.mean(after >= level) >= 0.7:
+                frac = (level - v[k - 1]) / (v[k] - v[k - 1])
+                return float(idx[k - 1] + frac * step)
+    if v[0] >= level and v[: persist].mean() >= level:
+        return float(idx[0])
+    return None
 
 
 def _rescale_frame(A: np.ndarray, sx_mm: float, sy_mm: float, px_per_mm: float) -> np.ndarray:
