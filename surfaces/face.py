@@ -675,8 +675,15 @@ def _edges_by_stretch(e, gi, x_lo, x_hi, y_lo, y_hi, *, out_lo, out_hi, q, snap)
     if len(xb) == 0:
         return np.array([x_lo, x_hi]), np.array([y_lo, y_lo]), np.array([y_hi, y_hi])
     out = []
-    for vals, inward in ((np.asarray(lo_b, float), +1.0), (np.asarray(hi_b, float), -1.0)):
-        out.append(_edge_line(xb, vals, inward, q=q))
+    x_mid = 0.5 * w  # the whole-face edges come from the columns around the middle
+    for vals, inward, y_all in ((np.asarray(lo_b, float), +1.0, y_lo), (np.asarray(hi_b, float), -1.0, y_hi)):
+        # the stretches give the edge's slope (a tapered face, a small axis error); its
+        # level is the whole-face edge, a median over many columns and less noisy
+        a, b = _edge_line(xb, vals, inward, q=q)
+        # ... unless a smooth band along more than half the edge pulled that median inwards:
+        # the stretches' own line (bands left out) is then the outer one
+        y_mid = min(y_all, a * x_mid + b) if inward > 0 else max(y_all, a * x_mid + b)
+        out.append(np.array([a, y_mid - a * x_mid]))
     # the outline's long edges: straight lines between the ends (a break's small wander
     # averages out over a stretch; stretch-by-stretch positions carry more noise than it)
     xe = np.array([x_lo, x_hi], float)
