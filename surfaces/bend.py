@@ -77,6 +77,7 @@ CANDIDATE_SHARE = 0.05
 #: The edge step (Lab L per pixel of strip length) weighs a candidate within these bounds.
 STEP_FLOOR_L = 0.5
 STEP_CAP_L = 40.0
+OUTER_STEP_SHARE = 0.5
 #: Relative 1-sigma uncertainty of the outer radius when it is derived from the
 #: former diameter and thickness: spring-back and a coupon that does not wrap
 #: the former tightly make the real radius larger (common practice).
@@ -711,12 +712,20 @@ def find_coupon(
     sub2 = _face.warp_to_face(rgb, calib.H, A2, (h, w))
     card2 = _card_in_frame(card_map, A2, (h, w))
     x_lo, x_hi, ok_ends = _visible_extent(sub2, px_per_mm=e, m_y=m_y, width=width, m_x=m_x, L=L, card=card2)
+    if not x_hi > x_lo:
+        raise FaceError(
+            "the bend coupon's ends cannot be told from the table beside it: give --roi X0,Y0,X1,Y1 "
+            "(a box around the coupon in photo pixels)"
+        )
     if not ok_ends:
         warnings.append("the coupon's ends are unclear: check the visible length on the overlay or give --roi")
     fx0, fx1 = ox + (x_lo + 0.5) / e, ox + (x_hi + 0.5) / e
     length = fx1 - fx0
     if length < LENGTH_RANGE_MM[0] * 0.8:
-        raise FaceError(f"the coupon found is only {length:.1f} mm long: give --roi around the coupon")
+        raise FaceError(
+            f"the strip found is only {length:.1f} mm long, shorter than a bend coupon's visible surface: "
+            "give --roi around the coupon"
+        )
 
     wf, hf = int(round(length * px_per_mm)), int(round(width * px_per_mm))
     Af = _face.face_frame(mid_mm, axis2, (fx0, -width / 2), px_per_mm=px_per_mm)
@@ -762,7 +771,7 @@ def _outer_step(p: np.ndarray, lo: int, hi: int, *, outward: int) -> float:
     top = float(seg.max())
     if top <= 0:
         return np.nan
-    peaks = [j for j in range(lo + 1, hi - 1) if gp[j] >= gp[j - 1] and gp[j] >= gp[j + 1] and gp[j] >= 0.5 * top]
+    peaks = [j for j in range(lo + 1, hi - 1) if gp[j] >= gp[j - 1] and gp[j] >= gp[j + 1] and gp[j] >= OUTER_STEP_SHARE * top]
     if not peaks:
         return np.nan
     j = min(peaks) if outward < 0 else max(peaks)
@@ -844,33 +853,65 @@ def _visible_extent(sub: np.ndarray, *, px_per_mm: float, m_y: float, width: flo
         c = np.where(card[int(m_y * e) : int((m_y + width) * e) + 1].mean(axis=0) > 0.2, 0.0, c)  # the card is not coupon
     below = c < level
     run = max(2, int(2.0 * e))  # a gap of 2 mm ends the coupon; shorter dips are highlights
-    cen = (c0 + c1) // 2
-    i = cen
-    while i > 0 and not below[max(0, i - run) : i].all():
-        i -= 1
-    j = cen
-    while j < w - 1 and not below[j + 1 : j + 1 + run].all():
-        j += 1
+    i, j = _longest_run(~below, gap=run, prefer=(c0 + c1) // 2, weight=c)
+    if j - i < run:
+        return 0.0, -1.0, False  # nothing stands out: the caller says so
     ok = i > 0 and j < w - 1
-    # place each end half-way down its own step (the flanks are often the most different
-    # part of the coupon, so the step at each end is steeper than the middle's level)
-    span = int(4.0 * e)
-    x_lo, x_hi = 0.0, float(w - 1)
-    if i > 0:
-        k = i + int(np.argmax(c[i : i + span]))
-        half = out_lvl + 0.5 * (c[k] - out_lvl)
-        q = k
-        while q > 0 and c[q] > half:
-            q -= 1
-        x_lo = _cross(c, half, q)
-    if j < w - 1:
-        k = max(0, j - span) + int(np.argmax(c[max(0, j - span) : j + 1]))
-        half = out_lvl + 0.5 * (c[k] - out_lvl)
-        q = k
-        while q < w - 1 and c[q] > half:
-            q += 1
-        x_hi = _cross(c, half, q - 1)
+    # place each end at its own step: the largest drop of the contrast from inside to
+    # outside within a few mm of where it stays low (a matched step, so a dip of the
+    # noisy contrast near the end does not stop it early), then half-way down that step
+    span, a = int(4.0 * e), max(2, int(1.5 * e))
+    x_lo = _end_step(c, i, span=span, arm=a, outward=-1) if i > 0 else 0.0
+    x_hi = _end_step(c, j, span=span, arm=a, outward=+1) if j < w - 1 else float(w - 1)
+    if not x_hi > x_lo:
+        return 0.0, -1.0, False
     return x_lo, x_hi, ok
+
+
+def _longest_run(mask: np.ndarray, *, gap: int, prefer: int, weight: np.ndarray) -> tuple[int, int]:
+    """First and last index of the run of ``mask`` (gaps under ``gap`` closed) holding ``prefer``,
+    or else the one with the largest sum of ``weight``; ``(0, -1)`` when there is none."""
+    m = np.asarray(mask, bool).copy()
+    idx = np.nonzero(m)[0]
+    if idx.size == 0:
+        return 0, -1
+    for a, b in zip(idx[:-1], idx[1:]):
+        if 1 < b - a <= gap:
+            m[a:b] = True
+    d = np.diff(np.r_[0, m.astype(np.int8), 0])
+    starts, ends = np.nonzero(d == 1)[0], np.nonzero(d == -1)[0] - 1
+    for st, en in zip(starts, ends):
+        if st <= prefer <= en:
+            return int(st), int(en)
+    k = int(np.argmax([float(np.sum(weight[st : en + 1])) for st, en in zip(starts, ends)]))
+    return int(starts[k]), int(ends[k])
+
+
+def _end_step(c: np.ndarray, at: int, *, span: int, arm: int, outward: int) -> float:
+    """Sub-pixel position of the coupon's end near index ``at`` of the contrast profile ``c``.
+
+    The end is the largest drop from the mean over ``arm`` samples inside to
+    the mean over ``arm`` samples outside, within ``span`` of ``at``; it is
+    placed where ``c`` crosses half-way between those two means.
+    """
+    n = len(c)
+    cs = np.r_[0.0, np.cumsum(np.asarray(c, np.float64))]
+    best, xb, lv = -np.inf, at, None
+    for x in range(max(arm, at - span), min(n - arm, at + span) + 1):
+        left = (cs[x] - cs[x - arm]) / arm  # samples x-arm .. x-1
+        right = (cs[x + arm] - cs[x]) / arm  # samples x .. x+arm-1
+        drop = (left - right) if outward > 0 else (right - left)
+        if drop > best:
+            best, xb, lv = drop, x, 0.5 * (left + right)
+    if lv is None:
+        return float(at)
+    # the crossing of the half level nearest the boundary between xb-1 and xb
+    lo_i, hi_i = max(0, xb - arm // 2), min(n - 2, xb + arm // 2)
+    cands = [q for q in range(lo_i, hi_i + 1) if (c[q] - lv) * (c[q + 1] - lv) <= 0 and c[q] != c[q + 1]]
+    if not cands:
+        return float(xb) - 0.5
+    q = min(cands, key=lambda q: abs(q + 0.5 - (xb - 0.5)))
+    return _cross(c, lv, q)
 
 
 def _cross(p: np.ndarray, level: float, i: int) -> float:
