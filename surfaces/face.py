@@ -130,8 +130,7 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
     # grinding marks are oriented: damp the energy by the structure-tensor coherence
     energy_photo *= 1.0 - _coherence(small, sigma_px=1.0 * ppm * f)
     # rust and paint are coloured; fracture faces are grey metal
-    mx = small_rgb.max(axis=2).astype(np.float32)
-    sat = 255.0 * (mx - small_rgb.min(axis=2)) / np.maximum(mx, 1.0)
+    sat = cv2.cvtColor(small_rgb, cv2.COLOR_RGB2HSV)[..., 1].astype(np.float32)
     energy_photo *= np.clip(1.2 - sat / 120.0, 0.2, 1.0)
     M = np.linalg.inv(Hs) @ A
     warp = lambda im, interp=cv2.INTER_LINEAR: cv2.warpPerspective(  # noqa: E731
@@ -220,9 +219,9 @@ def _best_component(e: np.ndarray, allowed: np.ndarray, s: float):
             x0, y0 = max(0, x - r_out), max(0, y - r_out)
             x1, y1 = min(W, x + bw + r_out), min(H, y + bh + r_out)
             sub = (lab[y0:y1, x0:x1] == i).astype(np.uint8)
-            ys, xs = np.nonzero(sub)
-            pts = np.c_[xs + x0, ys + y0].astype(np.float32)
-            (_, _), (rw, rh), _ = cv2.minAreaRect(pts)
+            contours, _ = cv2.findContours(sub, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_SIMPLE)
+            outline = np.concatenate(contours).reshape(-1, 2).astype(np.float32) + np.float32([x0, y0])
+            (_, _), (rw, rh), _ = cv2.minAreaRect(outline)
             L, Wd = max(rw, rh) / s, max(min(rw, rh), 1) / s
             if L < 8.0:
                 continue
@@ -230,18 +229,20 @@ def _best_component(e: np.ndarray, allowed: np.ndarray, s: float):
             ring = cv2.dilate(sub, np.ones((2 * r_out + 1, 2 * r_out + 1), np.uint8)) > 0
             ring &= ~(cv2.dilate(sub, np.ones((2 * r_in + 1, 2 * r_in + 1), np.uint8)) > 0)
             ring &= allowed[y0:y1, x0:x1]
-            inside = float(np.median(e[ys + y0, xs + x0]))
             esub = e[y0:y1, x0:x1]
+            inside = float(np.median(esub[sub > 0]))
             # too little ring (the component fills the search area): compare with the whole area
             ring_level = float(np.percentile(esub[ring], 75)) if ring.sum() > 0.3 * area_px else out_level
             contrast = inside / max(ring_level, 1e-6)
             if contrast < MIN_RING_CONTRAST:
                 continue
             score = inside * min(contrast, 4.0) ** 0.5 * fill**2 * (area_px / s**2) ** 0.1
-            # a point surely inside the component (for the nesting test below)
-            k_mid = int(np.argmin(np.abs(xs - xs.mean()) + np.abs(ys - ys.mean())))
-            cands.append(dict(t=len(labs) - 1, i=i, pts=pts, fill=fill, contrast=contrast, inside=inside,
-                              score=score, mid=(int(ys[k_mid] + y0), int(xs[k_mid] + x0))))
+            # a point surely inside the component (for the nesting test below): its
+            # pixel farthest from the background
+            dist = cv2.distanceTransform(sub, cv2.DIST_L1, 3)
+            r_mid, c_mid = np.unravel_index(int(np.argmax(dist)), dist.shape)
+            cands.append(dict(t=len(labs) - 1, i=i, sub=(sub, x0, y0), fill=fill, contrast=contrast, inside=inside,
+                              score=score, mid=(int(r_mid + y0), int(c_mid + x0))))
     # a region holding a clearly more textured region that stands out on its own is
     # the specimen (plate, bead, coupon) carrying the face, not the face
     for c in cands:
@@ -254,7 +255,9 @@ def _best_component(e: np.ndarray, allowed: np.ndarray, s: float):
         return None
     c = max(pool, key=lambda c: c["score"])
     lab, n, stats, cents = labs[c["t"]]
-    best = (c["pts"], c["fill"], c["contrast"])
+    sub, x0, y0 = c["sub"]
+    ys, xs = np.nonzero(sub)
+    best = (np.c_[xs + x0, ys + y0].astype(np.float32), c["fill"], c["contrast"])
     best_lab = (lab, n, c["i"], c["inside"], stats, cents)
     return _merge_collinear(best, best_lab, e, s)
 
@@ -647,18 +650,20 @@ def _edges_by_stretch(e, gi, x_lo, x_hi, y_lo, y_hi, *, out_lo, out_hi, q, snap)
 
     h, w = e.shape
     W = y_hi - y_lo
-    nb = max(1, int(round((x_hi - x_lo) / (EDGE_BIN_MM * q))))
-    edges = np.linspace(x_lo, x_hi, nb + 1)
+    a_start = max(0, int(math.ceil(x_lo)))
+    span = min(w, int(math.floor(x_hi)) + 1) - a_start
+    nb = max(1, int(round(span / (EDGE_BIN_MM * q))))
+    bw = span // nb
     reach = max(1.5 * q, 0.3 * W)  # how far a stretch's edge may stray from the whole-face edge
     persist = max(2, int(0.3 * q))
     xb, lo_b, hi_b = [], [], []
+    if bw < 2:
+        return np.array([x_lo, x_hi]), np.array([y_lo, y_lo]), np.array([y_hi, y_hi])
+    cols = slice(a_start, a_start + nb * bw)
+    P = np.median(e[:, cols].reshape(h, nb, bw), axis=2)
+    PI = np.median(gi[:, cols].reshape(h, nb, bw), axis=2)
     for k in range(nb):
-        a0, a1 = int(math.ceil(edges[k])), int(math.floor(edges[k + 1])) + 1
-        a0, a1 = max(a0, 0), min(a1, w)
-        if a1 - a0 < 2:
-            continue
-        p = np.median(e[:, a0:a1], axis=1)
-        pi = np.median(gi[:, a0:a1], axis=1)
+        p, pi = P[:, k], PI[:, k]
         c0, c1 = int(y_lo + 0.3 * W), int(y_hi - 0.3 * W) + 1
         inner = float(np.percentile(p[c0:max(c1, c0 + 1)], 60))
         ol = float(np.median(p[out_lo])) if p[out_lo].size else 0.3 * inner
@@ -668,7 +673,7 @@ def _edges_by_stretch(e, gi, x_lo, x_hi, y_lo, y_hi, *, out_lo, out_hi, q, snap)
         yhi = _rise_from_outside(p, 0.5 * (inner + oh), min(h - 1.0, y_hi + reach), max(mid, y_hi - reach), persist=persist)
         ylo = y_lo if ylo is None or inner <= 1.2 * ol else _snap_to_step(pi, ylo, win=snap)
         yhi = y_hi if yhi is None or inner <= 1.2 * oh else _snap_to_step(pi, yhi, win=snap)
-        xb.append(0.5 * (edges[k] + edges[k + 1]))
+        xb.append(a_start + (k + 0.5) * bw - 0.5)
         lo_b.append(ylo)
         hi_b.append(yhi)
     xb = np.asarray(xb, float)
