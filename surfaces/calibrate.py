@@ -103,6 +103,9 @@ PRINT_SCALE_PCT: float = 0.3
 #: Floor of the corner localisation sigma (px), plus a fraction of a module.
 CORNER_FLOOR_PX: float = 0.05
 CORNER_FLOOR_MODULE: float = 0.003
+#: The same floor for corners from the module-grid fit (px, and fraction of a module).
+GRID_FLOOR_PX: float = 0.005
+GRID_FLOOR_MODULE: float = 0.0003
 #: Stated uncertainty of a scale typed by hand, percent.
 MANUAL_SCALE_UNCERTAINTY_PCT: float = 2.0
 #: Click error of each ruler end, px.
@@ -120,6 +123,18 @@ EXTRAPOLATION_WARN_PCT: float = 1.0
 _MC_SAMPLES = 200
 _MC_SEED = 20260
 _EDGE_HALF_MODULES = 0.6
+#: Module-grid fit: half-width of each profile (modules; the next parallel
+#: edge is a module away), along-edge margin where another edge meets one
+#: (modules), samples per profile.
+_GRID_HALF_MODULES = 0.42
+_GRID_END_MARGIN = 0.25
+_GRID_SAMPLES = 33
+#: Smallest module (px) the grid fit is tried on: below it the profiles hold too few pixels.
+_GRID_MIN_MODULE_PX = 6.0
+#: 1-sigma of an unmodelled change of the edge bias from the marker's centre
+#: to its sides (px): overexposed paper under a brightness gradient clips more
+#: on one side.  Enters the grid fit's covariance, not the fit.
+EDGE_BIAS_GRADIENT_PX: float = 0.015
 
 _RETAKE = (
     "retake the photo with the card beside the face at the same height, the whole marker and its white "
@@ -242,6 +257,10 @@ def corner_sigma_px(hit: MarkerHit) -> float:
     expected for its size.  Either way in quadrature with the floor
     ``CORNER_FLOOR_PX + CORNER_FLOOR_MODULE * module``.
     """
+    cov = getattr(hit, "corner_cov_px2", None)
+    if cov is not None:
+        floor = GRID_FLOOR_PX + GRID_FLOOR_MODULE * hit.module_px
+        return float(math.hypot(math.sqrt(max(float(np.max(np.diag(cov))), 0.0)), floor))
     stat = float(getattr(hit, "sigma_fit_px", float("nan")))
     if not math.isfinite(stat):
         n = _edge_points_per_side(hit.side_px)
@@ -249,6 +268,21 @@ def corner_sigma_px(hit: MarkerHit) -> float:
         stat = 2.0 * rms / math.sqrt(n / 2.0)
     floor = CORNER_FLOOR_PX + CORNER_FLOOR_MODULE * hit.module_px
     return float(math.hypot(stat, floor))
+
+
+def _corner_cov_root(hit: MarkerHit) -> np.ndarray:
+    """(8, 8) matrix L with L L^T the covariance of ``hit``'s corner coordinates (px^2).
+
+    The grid fit's covariance (correlated corners) plus the floor on each
+    coordinate; for an outline-only hit, ``corner_sigma_px`` on each.
+    """
+    cov = getattr(hit, "corner_cov_px2", None)
+    if cov is None:
+        return np.eye(8) * corner_sigma_px(hit)
+    floor = GRID_FLOOR_PX + GRID_FLOOR_MODULE * hit.module_px
+    c = np.asarray(cov, np.float64) + floor**2 * np.eye(8)
+    w, v = np.linalg.eigh(0.5 * (c + c.T))
+    return v * np.sqrt(np.clip(w, 0.0, None))[None, :]
 
 
 def scale_uncertainty_pct(
@@ -350,9 +384,47 @@ def _ruler_scale(ruler, w: int, h: int) -> Calibration:
 # =========================================================================== from markers
 
 
+def _printed_hits(hits: list[MarkerHit]) -> tuple[list[MarkerHit], list[str]]:
+    """Drop detections that cannot be the printed marker(s); returns the kept hits and a warning for each drop.
+
+    * Two detections on the same spot (their centres less than half the
+      larger side apart, whatever ids they decoded as) are one marker: the
+      better measured one is kept (grid fit before outline, then more edge
+      points, then the larger side).
+    * When some detection's module-grid fit succeeded, a detection whose
+      grid fit failed is not kept: a printed marker of the same card shows
+      every edge of its bit pattern with the quiet zone around it, while a
+      square in the background texture decoded with error correction does
+      not.  (Markers too small for the grid fit are all kept.)
+    """
+    def rank(hit):
+        return (int(getattr(hit, "grid_points", 0) > 0), int(getattr(hit, "grid_points", 0)), hit.side_px)
+
+    order = sorted(range(len(hits)), key=lambda i: rank(hits[i]), reverse=True)
+    kept: list[int] = []
+    notes: list[str] = []
+    for i in order:
+        c = hits[i].corners_px.mean(axis=0)
+        twin = [j for j in kept if np.hypot(*(hits[j].corners_px.mean(axis=0) - c)) < 0.5 * max(hits[j].side_px, hits[i].side_px)]
+        if twin:
+            continue  # the same marker seen twice: nothing to warn about
+        kept.append(i)
+    if any(getattr(hits[i], "grid_points", 0) > 0 for i in kept):
+        for i in list(kept):
+            hit = hits[i]
+            if getattr(hit, "grid_points", 0) == 0 and hit.module_px >= _GRID_MIN_MODULE_PX:
+                kept.remove(i)
+                x, y = hit.corners_px.mean(axis=0)
+                notes.append(
+                    f"ignored a square at ({x:.0f}, {y:.0f}) px that decoded as marker id {hit.marker_id}: its edges do not "
+                    "show a printed marker's pattern and quiet zone (background texture, or a marker half covered)"
+                )
+    return [hits[i] for i in sorted(kept)], notes
+
+
 def _calibrate_from_hits(hits, side_mm, eval_pt, hint, size) -> Calibration:
     w, h = size
-    warnings: list[str] = []
+    hits, warnings = _printed_hits(list(hits))
     centres = np.array([hit.corners_px.mean(axis=0) for hit in hits])
     if hint is not None:
         ref = int(np.argmin(np.hypot(*(centres - np.asarray(hint)).T)))
@@ -612,9 +684,11 @@ def _mc_scale_pct(hits, side_mm, ref, joint, pt) -> float:
 def _monte_carlo(hits, side_mm, ref, joint, pt, K=None) -> tuple[float, float]:
     """Seeded Monte-Carlo of the corner errors: (scale std in % at ``pt``, tilt std in deg or NaN)."""
     rng = np.random.default_rng(_MC_SEED)
-    sig = np.array([corner_sigma_px(hit) for hit in hits])
     corners = np.stack([np.asarray(h.corners_px, np.float64) for h in hits])  # (M, 4, 2)
-    moved = corners[None] + rng.normal(0.0, 1.0, (_MC_SAMPLES,) + corners.shape) * sig[None, :, None, None]
+    z = rng.normal(0.0, 1.0, (_MC_SAMPLES, len(hits), 8))
+    moved = corners[None] + np.einsum("mij,smj->smi", np.stack([_corner_cov_root(h) for h in hits]), z).reshape(
+        (_MC_SAMPLES,) + corners.shape
+    )
     with np.errstate(all="ignore"):
         if joint:
             nominal = _joint_batch(corners[None], side_mm, ref)
@@ -730,6 +804,13 @@ class MeasuredMarker(MarkerHit):
     """
 
     sigma_fit_px: float = float("nan")
+    #: (8, 8) covariance of the corner coordinates (x0, y0, ..., x3, y3), px^2,
+    #: from the module-grid fit; None when only the outline was measured.
+    corner_cov_px2: np.ndarray | None = None
+    #: Edge bias the grid fit removed (px, black towards white); NaN without it.
+    edge_bias_px: float = float("nan")
+    #: Edge points the grid fit used (0 without it).
+    grid_points: int = 0
 
 
 def _edge_points_per_side(side_px: float) -> int:
@@ -739,8 +820,37 @@ def _edge_points_per_side(side_px: float) -> int:
 
 
 def _measure_marker(gray: np.ndarray, marker_id: int, corners0: np.ndarray) -> MarkerHit:
-    """Refine one detected marker's corners on the full-resolution grey image."""
+    """Refine one detected marker's corners on the full-resolution grey image.
+
+    First the module-grid fit straight from the detector's corners; when it
+    fails (or for modules under ``_GRID_MIN_MODULE_PX``), the outline fit of
+    the four sides, and the grid fit again from its corners.
+    """
     corners = np.asarray(corners0, np.float64).copy()
+    module0 = float(np.mean(np.hypot(*(np.roll(corners, -1, axis=0) - corners).T))) / MODULES
+    grid = _grid_fit(gray, marker_id, corners)
+    if grid is not None and np.abs(grid.corners - corners).max() <= max(3.0, 0.5 * module0):
+        return _grid_hit(marker_id, grid)
+    return _measure_outline(gray, marker_id, corners)
+
+
+def _grid_hit(marker_id: int, grid: _GridFit) -> MeasuredMarker:
+    side_px = float(np.mean(np.hypot(*(np.roll(grid.corners, -1, axis=0) - grid.corners).T)))
+    return MeasuredMarker(
+        marker_id=marker_id,
+        corners_px=grid.corners,
+        side_px=side_px,
+        module_px=side_px / MODULES,
+        reproj_rms_px=grid.rms_px,
+        sigma_fit_px=float(math.sqrt(max(float(np.max(np.diag(grid.cov))), 0.0))),
+        corner_cov_px2=grid.cov,
+        edge_bias_px=grid.bias_px,
+        grid_points=grid.n_points,
+    )
+
+
+def _measure_outline(gray: np.ndarray, marker_id: int, corners: np.ndarray) -> MarkerHit:
+    """Corners from straight lines fitted to the four outer sides (then the grid fit from them)."""
     x0, y0 = np.floor(corners.min(axis=0)).astype(int)
     x1, y1 = np.ceil(corners.max(axis=0)).astype(int)
     side0 = float(np.mean(np.hypot(*(np.roll(corners, -1, axis=0) - corners).T)))
@@ -778,6 +888,9 @@ def _measure_marker(gray: np.ndarray, marker_id: int, corners0: np.ndarray) -> M
         sigma_fit = 0.3 + 0.1 * module0  # pessimistic: OpenCV's corners are good to a fraction of a module
     else:
         refined = refined + offset
+    grid = _grid_fit(gray, marker_id, refined)
+    if grid is not None and np.abs(grid.corners - refined).max() <= max(1.0, 0.15 * module0):
+        return _grid_hit(marker_id, grid)
     sides = np.hypot(*(np.roll(refined, -1, axis=0) - refined).T)
     side_px = float(np.mean(sides))
     return MeasuredMarker(
@@ -984,6 +1097,256 @@ def _fit_one_side(roi, a, b, centre, inner_black, to_photo, side) -> _SideFit | 
     expected = 2.0 * rms / math.sqrt(max(n_eff / 2.0, 1.0))  # what noise alone gives a half-side line
     sigma = math.hypot(2.0 * rms / math.sqrt(n_eff), math.sqrt(max(bend**2 - expected**2, 0.0)))
     return _SideFit(point=point, direction=direction, rms=rms, n=n_in, n_eff=n_eff, sigma_px=sigma)
+
+
+# =========================================================================== module-grid fit
+
+
+@dataclass(frozen=True)
+class _GridFit:
+    corners: np.ndarray  # (4, 2) photo px, bias removed
+    cov: np.ndarray  # (8, 8) covariance of the corner coordinates (x0, y0, x1, ...), px^2
+    bias_px: float  # how far every edge appears shifted from black towards white
+    rms_px: float
+    n_points: int
+    n_segments: int
+
+
+@lru_cache(maxsize=64)
+def _grid_segments(marker_id: int) -> np.ndarray:
+    """Every black/white edge of the marker's module grid, one row per module-long segment.
+
+    Columns: ``axis`` (0: the line U = k, 1: the line V = k, in modules with
+    U along corner 0 -> 1 and V along corner 0 -> 3), ``k``, ``j`` (the
+    segment covers j..j+1 along the line), ``polarity`` (+1 where the lower
+    side of the line is black), and the along-line margins at its two ends
+    (``_GRID_END_MARGIN`` where another edge meets or crosses there, else 0).
+    The quiet zone outside the square counts as white.
+    """
+    black = _marker_black(marker_id)  # [V, U]
+
+    def colour(u: int, v: int) -> bool:
+        return bool(black[v, u]) if 0 <= u < MODULES and 0 <= v < MODULES else False
+
+    rows = []
+    for axis in (0, 1):
+        for k in range(MODULES + 1):
+
+            def pair(j: int) -> tuple[bool, bool]:
+                return (colour(k - 1, j), colour(k, j)) if axis == 0 else (colour(j, k - 1), colour(j, k))
+
+            for j in range(MODULES):
+                lo, hi = pair(j)
+                if lo == hi:
+                    continue
+                m0 = 0.0 if pair(j - 1) == (lo, hi) else _GRID_END_MARGIN
+                m1 = 0.0 if pair(j + 1) == (lo, hi) else _GRID_END_MARGIN
+                rows.append((axis, k, j, 1.0 if lo else -1.0, m0, m1))
+    out = np.array(rows, np.float64)
+    out.flags.writeable = False
+    return out
+
+
+def _grid_fit(gray: np.ndarray, marker_id: int, corners0: np.ndarray, *, passes: int = 3) -> _GridFit | None:
+    """Fit the marker's homography to every edge of its module grid (outer square and data modules).
+
+    Each black/white boundary between modules lies on a known grid line
+    (U = k or V = k, in modules).  Grey-level profiles across every
+    module-long segment (``_GRID_HALF_MODULES`` either side, so that only
+    this one edge is inside the window) give sub-pixel edge points by the
+    area rule; then one Gauss-Newton fit puts every point on its line:
+    8 homography parameters plus one *edge bias* ``b`` (px), the shift of
+    every edge from black towards white that a tone curve, overexposure or
+    ink spread give a blurred edge.  Edges of both polarities lie on the
+    same lines inside the marker, so the bias separates from the scale;
+    the outer outline alone cannot tell them apart.  A few hundred to a
+    thousand points spread over the whole marker pin its perspective far
+    better than four corners.
+
+    Returns None when too few edges are seen (occlusion, glare, tiny marker).
+    """
+    corners0 = np.asarray(corners0, np.float64)
+    unit = np.array([[0.0, 0.0], [MODULES, 0.0], [MODULES, MODULES], [0.0, MODULES]])
+    with np.errstate(all="ignore"):
+        G = _dlt(unit[None], corners0[None])[0]  # modules -> photo px
+    if not np.all(np.isfinite(G)):
+        return None
+    side = float(np.mean(np.hypot(*(np.roll(corners0, -1, axis=0) - corners0).T)))
+    module = side / MODULES
+    if module < _GRID_MIN_MODULE_PX:
+        return None
+    segs = _grid_segments(marker_id)
+
+    # sample positions along every segment, about one per pixel (at most 24 per module)
+    step = max(1.0, module / 24.0)
+    lengths = (1.0 - segs[:, 4] - segs[:, 5]) * module
+    counts = np.maximum(2, np.round(lengths / step).astype(int))
+    seg = np.repeat(np.arange(len(segs)), counts)
+    first = np.cumsum(counts) - counts
+    frac = (np.arange(len(seg)) - first[seg] + 0.5) / counts[seg]
+    axis = segs[seg, 0]
+    kk = segs[seg, 1]
+    pol = segs[seg, 3]
+    t = segs[seg, 2] + segs[seg, 4] + frac * (1.0 - segs[seg, 4] - segs[seg, 5])
+    on_u = axis == 0
+    P = np.where(on_u[:, None], np.c_[kk, t], np.c_[t, kk])  # module coordinates of the samples
+    across_unit = np.where(on_u[:, None], [[1.0, 0.0]], [[0.0, 1.0]])
+    along_unit = across_unit[:, ::-1]
+
+    h_img, w_img = gray.shape
+    pad = int(math.ceil(module)) + 4
+    x0, y0 = (np.floor(corners0.min(axis=0)).astype(int) - pad).clip(0)
+    x1 = min(int(math.ceil(corners0[:, 0].max())) + pad, w_img - 1)
+    y1 = min(int(math.ceil(corners0[:, 1].max())) + pad, h_img - 1)
+    if x1 - x0 < 8 or y1 - y0 < 8:
+        return None
+    roi = gray[y0 : y1 + 1, x0 : x1 + 1].astype(np.float32)
+    off = np.array([x0, y0], np.float64)
+    nu = _GRID_SAMPLES
+    kq = max(2, nu // 8)
+    s_unit = np.linspace(-1.0, 1.0, nu)
+
+    sigma_blur = None
+    bias = 0.0
+    fit = None
+    for _ in range(passes):
+        eps = 1e-3
+        q0 = apply_h(G, P) - off
+        d_across = (apply_h(G, P + eps * across_unit) - off - q0) / eps  # px per module, across the line
+        d_along = apply_h(G, P + eps * along_unit) - off - q0
+        d_along /= np.maximum(np.linalg.norm(d_along, axis=1, keepdims=True), 1e-12)
+        nrm = np.c_[-d_along[:, 1], d_along[:, 0]]
+        nrm *= np.sign(np.sum(nrm * d_across, axis=1))[:, None]  # unit normal towards +U (+V)
+        mod_n = np.sum(nrm * d_across, axis=1)  # px per module along that normal
+        hmax = _GRID_HALF_MODULES * mod_n
+        half = np.minimum(hmax, 10.0) if sigma_blur is None else np.clip(3.5 * sigma_blur + 1.5, 2.5, hmax)
+        u = s_unit[None, :] * half[:, None]
+        dirn = nrm * pol[:, None]  # from black to white
+        grid = q0[:, None, :] + u[..., None] * dirn[:, None, :]
+        prof = cv2.remap(
+            roi,
+            np.ascontiguousarray(grid[..., 0], np.float32),
+            np.ascontiguousarray(grid[..., 1], np.float32),
+            cv2.INTER_LINEAR,
+            borderMode=cv2.BORDER_CONSTANT,
+            borderValue=np.nan,
+        )
+        lo = prof[:, :kq].mean(axis=1)
+        hi = prof[:, -kq:].mean(axis=1)
+        contrast = hi - lo
+        good = np.isfinite(contrast) & (contrast > 8.0)
+        if good.sum() < 24:
+            return None
+        good &= contrast > 0.35 * float(np.median(contrast[good]))
+        norm = (prof - lo[:, None]) / np.where(good, contrast, 1.0)[:, None]
+        du = 2.0 * half / (nu - 1)
+        e = half - du * (norm.sum(axis=1) - 0.5 * (norm[:, 0] + norm[:, -1]))  # area rule, along dirn
+        good &= np.abs(e) < 0.8 * half
+        if sigma_blur is None:
+            ref = good & (np.abs(e) < 0.3 * half)
+            if ref.sum() < 12:
+                return None
+            hh = float(np.median(half[ref]))
+            sel = ref & (np.abs(half - hh) < 0.2 * hh + 0.5)
+            width = _quartile_width(s_unit * hh, np.nanmedian(norm[sel], axis=0))
+            sigma_blur = float(np.clip(width / 1.349, 0.3, 0.3 * module)) if np.isfinite(width) else 0.3 * module
+        pts = q0 + e[:, None] * dirn + off
+        fit = _grid_solve(pts, good, on_u, kk, pol, nrm, mod_n, seg, G, bias, module, P)
+        if fit is None:
+            return None
+        G, bias = fit[0], fit[1]
+    G, bias, cov_p, rms, n_used, n_segs, A_to_corners = fit
+    corners = apply_h(G, unit)
+    if not (np.all(np.isfinite(corners)) and _convex(corners)) or n_used < max(24, 0.4 * len(seg)) or rms > 0.25 * module:
+        return None
+    cov = A_to_corners @ cov_p @ A_to_corners.T
+    return _GridFit(corners, cov, float(bias), float(rms), int(n_used), int(n_segs))
+
+
+def _grid_solve(pts, good, on_u, kk, pol, nrm, mod_n, seg, G, bias, module, P):
+    """Gauss-Newton for :func:`_grid_fit`: (G, bias, cov of the 8 H parameters, rms, n, segments, dcorners/dp).
+
+    Unknowns: photo -> module homography ``H`` in coordinates centred on the
+    points and scaled by the module (h33 = 1), and the edge bias.  Residual
+    of a point: (its U or V through ``H`` after removing the bias) minus its
+    line's k, times the module's length in px.  Points beyond 3.5 robust
+    sigma are dropped.  The covariance is cluster-robust over segments
+    (points along one segment share JPEG blocks, paper grain and print
+    defects, so they are not independent) plus the effect of an unmodelled
+    change of the bias across the marker (``EDGE_BIAS_GRADIENT_PX``).
+    """
+    if good.sum() < 24:
+        return None
+    cen = pts[good].mean(axis=0)
+    L = module
+    T = np.array([[1.0 / L, 0.0, -cen[0] / L], [0.0, 1.0 / L, -cen[1] / L], [0.0, 0.0, 1.0]])
+    Hn = np.linalg.inv(G) @ np.linalg.inv(T)
+    if not np.all(np.isfinite(Hn)) or abs(Hn[2, 2]) < 1e-12:
+        return None
+    Hn = Hn / Hn[2, 2]
+    p = np.r_[Hn.ravel()[:8], bias / L]
+    qn = (pts - cen) / L
+    shift_dir = pol[:, None] * nrm
+    use = good.copy()
+    ones = np.ones(len(qn))
+    J = r = None
+    for it in range(8):
+        H = np.r_[p[:8], 1.0].reshape(3, 3)
+        qq = qn - p[8] * shift_dir
+        xt = np.c_[qq, ones]
+        a = np.where(on_u[:, None], H[0][None, :], H[1][None, :])
+        den = xt @ H[2]
+        F = np.sum(xt * a, axis=1) / den
+        r = (F - kk) * mod_n
+        J = np.zeros((len(qn), 9))
+        g = xt / den[:, None]
+        J[:, 0:3] = np.where(on_u[:, None], g, 0.0)
+        J[:, 3:6] = np.where(on_u[:, None], 0.0, g)
+        J[:, 6] = -F * g[:, 0]
+        J[:, 7] = -F * g[:, 1]
+        J[:, 8] = -np.sum((a[:, :2] - F[:, None] * H[2][None, :2]) * shift_dir, axis=1) / den
+        J *= mod_n[:, None]
+        if it >= 2:
+            mad = 1.4826 * float(np.median(np.abs(r[use])))
+            use = good & (np.abs(r) < max(3.5 * mad, 0.05))
+        if use.sum() < 24:
+            return None
+        dp = np.linalg.lstsq(J[use], -r[use], rcond=None)[0]
+        if not np.all(np.isfinite(dp)):
+            return None
+        p = p + dp
+        if np.abs(dp).max() < 1e-10:
+            break
+    Ju, ru, sg = J[use], r[use], seg[use]
+    A = np.linalg.pinv(Ju.T @ Ju)
+    per_seg = np.zeros((int(seg.max()) + 1, 9))
+    np.add.at(per_seg, sg, Ju * ru[:, None])
+    n_cl = len(np.unique(sg))
+    cov_p = A @ (per_seg.T @ per_seg) @ A * (n_cl / max(n_cl - 9, 1))
+    # an edge bias that changes linearly across the marker would move the fit by dp_grad
+    for coord in (P[use, 0], P[use, 1]):
+        grad_col = Ju[:, 8] * (coord - MODULES / 2.0) / (MODULES / 2.0) * (EDGE_BIAS_GRADIENT_PX / L)
+        dp_grad = -A @ (Ju.T @ grad_col)
+        cov_p = cov_p + np.outer(dp_grad, dp_grad)
+    H = np.r_[p[:8], 1.0].reshape(3, 3)
+    Hpx = H @ T
+    Gnew = np.linalg.inv(Hpx)
+    Gnew = Gnew / Gnew[2, 2]
+    # corner coordinates as functions of the 8 homography parameters (numeric)
+    unit = np.array([[0.0, 0.0], [MODULES, 0.0], [MODULES, MODULES], [0.0, MODULES]])
+
+    def corners_of(q):
+        return apply_h(np.linalg.inv(np.r_[q, 1.0].reshape(3, 3) @ T), unit).ravel()
+
+    c0 = corners_of(p[:8])
+    D = np.zeros((8, 9))
+    for i in range(8):
+        h = 1e-7 * max(1.0, abs(p[i]))
+        dq = p[:8].copy()
+        dq[i] += h
+        D[:, i] = (corners_of(dq) - c0) / h
+    rms = float(np.sqrt(np.mean(ru**2)))
+    return Gnew, float(p[8] * L), cov_p, rms, int(use.sum()), n_cl, D
 
 
 def _phi(x: np.ndarray) -> np.ndarray:
