@@ -459,52 +459,20 @@ FINE_PX_PER_MM = 10.0
 EDGE_BIN_MM = 2.0
 
 
-def find_face(
-    rgb: np.ndarray,
-    gray: np.ndarray,
-    calib: Calibration,
-    *,
-    roi: tuple[float, ...] | None = None,
-    test: str = "fillet-break",
-    px_per_mm: float = WORK_PX_PER_MM,
-) -> Face:
-    """Locate the face and rectify it.
-
-    Parameters
-    ----------
-    rgb, gray : (H, W, 3) and (H, W) uint8 ndarrays
-        The photo (after EXIF orientation).
-    calib : Calibration
-        Photo px -> plane mm.
-    roi : 4 or 8 numbers, optional
-        A rough box ``x0, y0, x1, y1`` or four corners ``x0, y0, ..., x3, y3``
-        in photo pixels; the face is searched within it.
-    test : str
-        Test type; kept for the face's warnings.
-    px_per_mm : float
-        Resolution of the rectified face image.
+def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: float):
+    """The face's outline around a rough frame (centre, axis, size), from texture profiles.
 
     Returns
     -------
-    Face
-        Rectified image with column = x along the weld (the face's longer
-        side), row = y across it.  ``image`` spans the face's bounding
-        rectangle in its own axes; ``mask`` is True on the face itself (the
-        long edges follow the break stretch by stretch, so a wandering or
-        tapered face keeps its true outline) and ``area_mm2`` is the area of
-        that outline.
-
-    Raises
-    ------
-    FaceError
-        No region stands out as a face, or the one found is too small; the
-        message asks for ``--roi``.
+    outline : (N, 2) ndarray
+        Polygon in mm, face axes of the given frame, origin at ``centre``.
+    c_x, c_y : float
+        Texture contrast of the ends and of the long edges (0..1).
+    warnings : list of str
+    slope_deg : float
+        Mean direction of the two long edges relative to ``axis``.
     """
-    roi_poly = _roi_polygon(roi, gray.shape) if roi is not None else None
     warnings: list[str] = []
-    centre, axis, L, Wd, fill, where = _coarse_face(gray, rgb, calib, roi_poly, test)
-    method = "auto" if roi is None else ("roi-box" if len(roi) == 4 else "roi-corners")
-
     q = FINE_PX_PER_MM
     # texture scales follow what the photo resolves at the face (2-4 photo pixels at least)
     c_px = apply_h(np.linalg.inv(calib.H), [centre])[0]
@@ -572,17 +540,83 @@ def find_face(
     xb, ylo_b, yhi_b = _edges_by_stretch(
         e, gi, x_lo, x_hi, y_lo, y_hi, out_lo=slice(0, mrow), out_hi=slice(h - mrow, h), q=q, snap=snap
     )
-    if _DEBUG is not None:
-        _DEBUG.update(fe=e, fg=g, fb=(x_lo, x_hi, y_lo, y_hi), bins=(xb, ylo_b, yhi_b), prof_x=prof_x, prof_y=prof_y)
     # outline in face-centred mm (pixel centre i sits at o + (i + .5)/q)
     to_x = lambda c: ox + (np.asarray(c) + 0.5) / q  # noqa: E731
     to_y = lambda r: oy + (np.asarray(r) + 0.5) / q  # noqa: E731
-    fx0, fx1 = float(to_x(x_lo)), float(to_x(x_hi))
-    xs_mm = np.r_[fx0, to_x(xb), fx1]
-    lo_mm = to_y(np.r_[ylo_b[0], ylo_b, ylo_b[-1]])
-    hi_mm = to_y(np.r_[yhi_b[0], yhi_b, yhi_b[-1]])
-    outline = np.r_[np.c_[xs_mm, lo_mm], np.c_[xs_mm[::-1], hi_mm[::-1]]]  # face-centred mm
-    fy0, fy1 = float(lo_mm.min()), float(hi_mm.max())
+    xs_mm = to_x(xb)
+    lo_mm, hi_mm = to_y(ylo_b), to_y(yhi_b)
+    outline = np.r_[np.c_[xs_mm, lo_mm], np.c_[xs_mm[::-1], hi_mm[::-1]]]
+    slope = 0.5 * ((ylo_b[-1] - ylo_b[0]) + (yhi_b[-1] - yhi_b[0])) / max(xb[-1] - xb[0], 1e-6)
+    return outline, c_x, c_y, warnings, math.degrees(math.atan(slope))
+
+
+def find_face(
+    rgb: np.ndarray,
+    gray: np.ndarray,
+    calib: Calibration,
+    *,
+    roi: tuple[float, ...] | None = None,
+    test: str = "fillet-break",
+    px_per_mm: float = WORK_PX_PER_MM,
+) -> Face:
+    """Locate the face and rectify it.
+
+    Parameters
+    ----------
+    rgb, gray : (H, W, 3) and (H, W) uint8 ndarrays
+        The photo (after EXIF orientation).
+    calib : Calibration
+        Photo px -> plane mm.
+    roi : 4 or 8 numbers, optional
+        A rough box ``x0, y0, x1, y1`` or four corners ``x0, y0, ..., x3, y3``
+        in photo pixels; the face is searched within it.
+    test : str
+        Test type; kept for the face's warnings.
+    px_per_mm : float
+        Resolution of the rectified face image.
+
+    Returns
+    -------
+    Face
+        Rectified image with column = x along the weld (the face's longer
+        side), row = y across it.  ``image`` spans the face's bounding
+        rectangle in its own axes; ``mask`` is True on the face itself (the
+        long edges follow the break stretch by stretch, so a wandering or
+        tapered face keeps its true outline) and ``area_mm2`` is the area of
+        that outline.
+
+    Raises
+    ------
+    FaceError
+        No region stands out as a face, or the one found is too small; the
+        message asks for ``--roi``.
+    """
+    roi_poly = _roi_polygon(roi, gray.shape) if roi is not None else None
+    warnings: list[str] = []
+    centre, axis, L, Wd, fill, where = _coarse_face(gray, rgb, calib, roi_poly, test)
+    method = "auto" if roi is None else ("roi-box" if len(roi) == 4 else "roi-corners")
+
+    for attempt in range(3):
+        outline, c_x, c_y, fine_notes, slope = _fine_outline(gray, calib, centre, axis, L, Wd)
+        lo_o, hi_o = outline.min(axis=0), outline.max(axis=0)
+        size = hi_o - lo_o
+        mid = 0.5 * (lo_o + hi_o)
+        a = math.radians(axis)
+        new_centre = np.asarray(centre, float) + mid[0] * np.array([math.cos(a), math.sin(a)]) + mid[1] * np.array(
+            [-math.sin(a), math.cos(a)]
+        )
+        if attempt < 2 and size[1] > 1.15 * size[0]:
+            # the coarse region's long side was across the weld: turn the frame
+            centre, axis, L, Wd = new_centre, axis + 90.0, float(size[1]), float(size[0])
+            continue
+        if attempt < 2 and abs(slope) > 0.5:
+            # both long edges lean: the coarse axis was off by that much
+            centre, axis, L, Wd = new_centre, axis + slope, float(size[0]), float(size[1])
+            continue
+        break
+    warnings.extend(fine_notes)
+    fx0, fx1 = float(lo_o[0]), float(hi_o[0])
+    fy0, fy1 = float(lo_o[1]), float(hi_o[1])
     length, width = fx1 - fx0, fy1 - fy0
     area = _shoelace(outline)
     if length <= 1 or width <= 0.5 or area <= 0.5:
@@ -602,7 +636,7 @@ def find_face(
     # outline -> final face pixels (corners of the image at -0.5 .. n - 0.5)
     oc = np.c_[(outline[:, 0] - fx0) * wf / length - 0.5, (outline[:, 1] - fy0) * hf / width - 0.5]
     mask = np.zeros((hf, wf), np.uint8)
-    cv2.fillPoly(mask, [np.round((oc + 0.5) * 16 - 8).astype(np.int32)], 1, lineType=cv2.LINE_8, shift=4)
+    cv2.fillPoly(mask, [np.round(oc * 16).astype(np.int32)], 1, lineType=cv2.LINE_8, shift=4)  # pixel centres inside
     mask = mask > 0
     poly_px = apply_h(np.linalg.inv(calib.H) @ Af, oc)
     Hp, Wp = gray.shape
