@@ -14,6 +14,7 @@ Checks against the outside world:
 from __future__ import annotations
 
 import math
+import re
 
 import cv2
 import numpy as np
@@ -359,3 +360,138 @@ def test_measure_far_flank_is_not_at_an_end():
     # the opening is 4 mm (projected) from the far end, more on the true surface: not a corner case
     face, calib, det, row = _flank_row()
     assert not bool(row["at_edge"]), row["dist_end_mm"]
+
+
+# --------------------------------------------------------------------------
+# finding the coupon on generated photos (surfaces.synth, truth by construction)
+
+
+def _synth_bend(seed, *, curvature=True, **kw):
+    """A generated bend photo, the generator's own coupon geometry, and the truth calibration.
+
+    The calibration is the generator's exact plane -> photo homography (so
+    only the coupon finder is tested) with the marker corners it drew.
+    """
+    from surfaces.model import MarkerHit
+    from surfaces.synth._bend import BendBuilder
+    from surfaces.synth._scene import render_scene
+
+    opts = dict(megapixels=2.0, aspect=None, portrait=None, tilt_deg=None, px_per_mm=None, marker_mm=None,
+                n_markers=1, ruler=None, defects="mixed", distractors=True, clean=False, jpeg_quality=None, table=None)
+    opts.update(kw)
+    builder = BendBuilder(curvature=curvature)
+    ph = render_scene(seed, builder, **opts)
+    t = ph.truth
+    Hp = np.asarray(t["H_plane_to_photo"])
+    hits = []
+    for m in t["markers"]:
+        c = np.asarray(m["corners_px"], float)
+        side = float(np.mean(np.linalg.norm(c - np.roll(c, -1, axis=0), axis=1)))
+        hits.append(MarkerHit(int(m["id"]), c, side, side / 6, 0.0))
+    calib = Calibration(method="marker", H=np.linalg.inv(Hp), uncertainty_pct=0.1, tilt_deg=t["tilt_deg"],
+                        marker_mm=t["marker_mm"], markers=tuple(hits))
+    return ph, builder, calib
+
+
+def _visible_strip_mm(builder, truth):
+    """Plane-mm corners of the coupon's visible surface as the generator drew it.
+
+    On a curved coupon the generator draws the cylinder from arc length
+    ``s_ext[0]`` to ``s_ext[1]`` (beyond the inspected face), seen from above
+    as ``x = Lp/2 + R sin((s - L/2)/R)`` (analytic projection of a cylinder,
+    the generator's own mapping); flat, it is the face itself.
+    """
+    s0, s1 = builder.s_ext
+    x0, x1 = builder.to_layout(np.array([[s0, 0.0], [s1, 0.0]]))[:, 0]
+    W = builder.Wc
+    lay = np.array([[x0, 0.0], [x1, 0.0], [x1, W], [x0, W]])
+    return apply_h(np.asarray(truth["face"]["A_face_to_plane"]), lay), float(x1 - x0), W
+
+
+def _iou(p, q):
+    # overlap of two convex quadrilaterals by OpenCV's convex clipping (reference library)
+    p, q = np.asarray(p, np.float32), np.asarray(q, np.float32)
+    inter, _ = cv2.intersectConvexConvex(p, q)
+    a, b = cv2.contourArea(p), cv2.contourArea(q)
+    return inter / (a + b - inter)
+
+
+@pytest.mark.parametrize(
+    "seed, table, tilt",
+    [(3101, "wood", 8.0), (3102, "concrete", 22.0), (3103, "cloth", 15.0), (3104, "paper", 28.0)],
+)
+def test_find_coupon_on_generated_curved_coupons(seed, table, tilt):
+    ph, builder, calib = _synth_bend(seed, table=table, tilt_deg=tilt)
+    vis_mm, vis_len, W = _visible_strip_mm(builder, ph.truth)
+    f = bend.find_coupon(ph.rgb, _gray(ph.rgb), calib)
+    found_mm = apply_h(calib.H, f.polygon_px)
+    # area: the analytic visible length x width, and OpenCV's polygon area of the same corners
+    assert cv2.contourArea(vis_mm.astype(np.float32)) == pytest.approx(vis_len * W, rel=1e-4)
+    assert f.area_mm2 == pytest.approx(vis_len * W, rel=0.05)
+    assert cv2.contourArea(found_mm.astype(np.float32)) == pytest.approx(f.area_mm2, rel=0.01)
+    assert f.width_mm == pytest.approx(W, abs=0.5)
+    assert f.length_mm == pytest.approx(vis_len, abs=max(1.0, 0.03 * vis_len))
+    assert _iou(vis_mm, found_mm) > 0.93
+    # the face's x axis runs along the coupon (the generator's face x), either way round
+    ax_true = np.asarray(ph.truth["face"]["A_face_to_plane"])[:2, 0]
+    ax = f.A_face_to_plane[:2, 0]
+    cosang = abs(float(ax @ ax_true)) / (np.linalg.norm(ax) * np.linalg.norm(ax_true))
+    assert cosang > math.cos(math.radians(1.0))
+
+
+def test_find_coupon_on_a_generated_flat_coupon():
+    ph, builder, calib = _synth_bend(3111, curvature=False, table="mat", tilt_deg=12.0)
+    truth_mm = np.asarray(ph.truth["face"]["polygon_mm"], float)
+    f = bend.find_coupon(ph.rgb, _gray(ph.rgb), calib)
+    # flat: the face is the whole visible coupon; its area by OpenCV on the truth polygon
+    # and analytically as length x width
+    area = cv2.contourArea(truth_mm.astype(np.float32))
+    assert area == pytest.approx(builder.L * builder.Wc, rel=1e-3)
+    assert f.area_mm2 == pytest.approx(area, rel=0.05)
+    assert _iou(truth_mm, apply_h(calib.H, f.polygon_px)) > 0.93
+
+
+def test_coupon_end_is_the_step_not_a_dip_before_it():
+    # analytic profile: contrast 10 on the coupon (columns 100..299), 0.5 on the table,
+    # with a dip to 2 over columns 270..279 (a dark spot 2 mm before the end); the end is
+    # the boundary between columns 299 and 300, i.e. 299.5 (half-way down the step)
+    c = np.full(400, 0.5)
+    c[100:300] = 10.0
+    c[270:280] = 2.0
+    i, j = bend._longest_run(c >= 3.0, gap=16, prefer=200, weight=c)
+    assert (i, j) == (100, 299)
+    assert bend._end_step(c, j, span=32, arm=12, outward=+1) == pytest.approx(299.5, abs=1e-9)
+    assert bend._end_step(c, i, span=32, arm=12, outward=-1) == pytest.approx(99.5, abs=1e-9)
+    # the same step blurred (SciPy's Gaussian filter, sigma 2): by symmetry the half level
+    # is still crossed at 299.5
+    from scipy.ndimage import gaussian_filter1d
+
+    cb = gaussian_filter1d(np.where(np.arange(400) < 300, 10.0, 0.5), 2.0)
+    assert bend._end_step(cb, 290, span=32, arm=12, outward=+1) == pytest.approx(299.5, abs=0.02)
+    # nothing standing out: no run at all
+    assert bend._longest_run(np.zeros(50, bool), gap=5, prefer=25, weight=np.zeros(50)) == (0, -1)
+
+
+def test_find_coupon_with_its_middle_hidden_is_a_clear_error_not_a_negative_length():
+    # only two short stubs of the coupon remain visible: the finder must either refuse with
+    # a one-line message naming --roi or find a real piece of the coupon; never a negative
+    # length, never a strip of table
+    b = build(8, openings=[], table="dark")
+    rgb = b.rgb.copy()
+    c = b.coupon
+    u = c["u_max"]
+    corners = np.array([[-0.8 * u, -30.0], [0.8 * u, -30.0], [0.8 * u, 30.0], [-0.8 * u, 30.0]])
+    plane = corners @ np.c_[c["ux"], c["uy"]].T  # coupon axes -> plane mm
+    poly = np.round(apply_h(b.H_plane_to_photo, plane)).astype(np.int32)
+    tab = np.median(rgb[:20, :20].reshape(-1, 3), axis=0)
+    cv2.fillPoly(rgb, [poly], tab.tolist())
+    try:
+        f = bend.find_coupon(rgb, _gray(rgb), b.calib)
+    except FaceError as err:
+        msg = str(err)
+        assert "--roi" in msg and "\n" not in msg
+        assert not re.search(r"-\d", msg), msg  # no negative length quoted
+    else:
+        # a find must be a real piece of the coupon: its full width (38 mm by construction)
+        assert f.length_mm > 0 and f.area_mm2 > 0
+        assert f.width_mm == pytest.approx(38.0, abs=1.0)
