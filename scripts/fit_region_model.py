@@ -20,6 +20,7 @@ import datetime as dt
 import glob
 import json
 import os
+import pickle
 import sys
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
@@ -32,15 +33,18 @@ sys.path.insert(0, str(ROOT))
 from surfaces.regionmodel import CLASSES, FEATURES, MODEL_PATH, feature_vector  # noqa: E402
 
 
-def candidates_for(args) -> tuple[list, list, str]:
-    """Feature vectors and labels of every candidate on one photo."""
-    import cv2
+def prepare_face(args) -> dict | str:
+    """One photo through calibration and the face finder: the segmenter's inputs and the truth outlines.
 
+    Returns a dict (``image``, ``mask``, ``px_per_mm``, ``photo_px_per_mm``,
+    ``truth`` as ``(kind, outline in face px)`` pairs) or a string saying
+    why the photo is no training data.
+    """
     from surfaces.calibrate import calibrate
     from surfaces.face import find_face
     from surfaces.geometry import apply_h
     from surfaces.photo import load_photo
-    from surfaces.segment import segment
+    from surfaces.pipeline import EDGE_INSET_MM, _inset
 
     kind, item = args
     if kind == "render":
@@ -48,39 +52,79 @@ def candidates_for(args) -> tuple[list, list, str]:
 
         seed, mp = item
         sp = render_fracture(seed, test="nick-break" if seed % 3 == 0 else "fillet-break", megapixels=mp)
-        data = sp.jpeg_bytes(sp.truth.get("jpeg_quality", 90)) if hasattr(sp, "jpeg_bytes") else None
         truth = sp.truth
-        photo = load_photo(data, name=f"seed{seed}.jpg") if data is not None else None
+        photo = load_photo(sp.jpeg_bytes(truth.get("jpeg_quality", 90)), name=f"seed{seed}.jpg")
     else:
         path = item
         truth = json.loads(Path(path).with_suffix(".truth.json").read_text())
+        if truth.get("test") == "bend":
+            return "skipped: bend photos go to surfaces.bend"
         photo = load_photo(path)
-    if photo is None:
-        return [], [], "no photo"
+    why = ""
     try:
         cal = calibrate(photo, marker_mm=truth["marker_mm"])
         face = find_face(photo.rgb, photo.gray, cal, test=truth.get("test", "fillet-break"))
-    except Exception as e:  # a failed face is no training data
-        return [], [], f"skipped: {e}"
-    area_err = face.area_mm2 / truth["face"]["area_mm2"] - 1
-    if abs(area_err) > 0.08:
-        return [], [], f"skipped: face area off by {area_err:+.0%}"
-    centre = face.polygon_px.mean(axis=0)
-    ppm = cal.px_per_mm_at(float(centre[0]), float(centre[1]))
-    from surfaces.pipeline import EDGE_INSET_MM, _inset
+        area_err = face.area_mm2 / truth["face"]["area_mm2"] - 1
+        if abs(area_err) > 0.08:
+            why = f"face area off by {area_err:+.0%}"
+    except Exception as e:
+        why = str(e)
+    if why:
+        if not TRUTH_FACE:  # a failed face is no training data
+            return f"skipped: {why}"
+        image, A, ppm_face = truth_face(photo.rgb, truth)
+        mask = np.ones(image.shape[:2], bool)
+        ppm_photo = float(truth["px_per_mm_face"])
+    else:
+        image, A, ppm_face, mask = face.image, face.A_face_to_plane, face.px_per_mm, face.mask
+        centre = face.polygon_px.mean(axis=0)
+        ppm_photo = cal.px_per_mm_at(float(centre[0]), float(centre[1]))
+    Ainv = np.linalg.inv(A)
+    return {
+        "name": str(item),
+        "image": image,
+        "mask": _inset(mask, int(round(EDGE_INSET_MM * ppm_face))),
+        "px_per_mm": ppm_face,
+        "photo_px_per_mm": ppm_photo,
+        "face": "found" if not why else "truth",
+        "truth": [(t["kind"], apply_h(Ainv, np.asarray(t["polygon_mm"]))) for t in truth["imperfections"]],
+    }
 
-    m = _inset(face.mask, int(round(EDGE_INSET_MM * face.px_per_mm)))
-    dets = segment(face.image, m, px_per_mm=face.px_per_mm, photo_px_per_mm=ppm, keep_all=True)
-    Ainv = np.linalg.inv(face.A_face_to_plane)
+
+def truth_face(rgb: np.ndarray, truth: dict) -> tuple[np.ndarray, np.ndarray, float]:
+    """The face rectified from its true outline (``truth["face"]``), at the runtime's working resolution.
+
+    Returns the image, its face-pixel -> plane-mm matrix and its px/mm.
+    """
+    import cv2
+
+    from surfaces.model import WORK_PX_PER_MM
+
+    f = truth["face"]
+    wf, hf = int(round(f["length_mm"] * WORK_PX_PER_MM)), int(round(f["width_mm"] * WORK_PX_PER_MM))
+    sx, sy = f["length_mm"] / wf, f["width_mm"] / hf
+    A = np.asarray(f["A_face_to_plane"], float) @ np.array([[sx, 0, 0.5 * sx], [0, sy, 0.5 * sy], [0, 0, 1.0]])
+    M = np.asarray(truth["H_plane_to_photo"], float) @ A
+    image = cv2.warpPerspective(rgb, M, (wf, hf), flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
+                                borderMode=cv2.BORDER_REPLICATE)  # fmt: skip
+    return image, A, float(WORK_PX_PER_MM)
+
+
+def label_candidates(face: dict) -> tuple[list, list]:
+    """Feature vectors of every candidate on one prepared face, labelled by the truth outline holding its centre."""
+    import cv2
+
+    from surfaces.segment import segment
+
+    dets = segment(face["image"], face["mask"], px_per_mm=face["px_per_mm"],
+                   photo_px_per_mm=face["photo_px_per_mm"], keep_all=True)  # fmt: skip
+    h, w = face["image"].shape[:2]
+    grow = int(round(0.3 * face["px_per_mm"]))
     polys = []
-    grow = int(round(0.3 * face.px_per_mm))
-    h, w = face.image.shape[:2]
-    for t in truth["imperfections"]:
-        poly = apply_h(Ainv, np.asarray(t["polygon_mm"]))
+    for k, poly in face["truth"]:
         m = np.zeros((h, w), np.uint8)
         cv2.fillPoly(m, [np.round(poly).astype(np.int32)], 1)
-        m = cv2.dilate(m, np.ones((2 * grow + 1, 2 * grow + 1), np.uint8))
-        polys.append((t["kind"], m))
+        polys.append((k, cv2.dilate(m, np.ones((2 * grow + 1, 2 * grow + 1), np.uint8))))
     X, y = [], []
     for d in dets:
         c, r = int(round(d.features["cx_px"])), int(round(d.features["cy_px"]))
@@ -92,7 +136,29 @@ def candidates_for(args) -> tuple[list, list, str]:
                     break
         X.append(feature_vector(d.features).tolist())
         y.append(CLASSES.index(label))
+    return X, y
+
+
+def candidates_for(args) -> tuple[list, list, str]:
+    """Feature vectors and labels of every candidate on one photo (or one cached face)."""
+    kind, item = args
+    if kind == "cached":
+        with open(item, "rb") as fh:
+            face = pickle.load(fh)
+    else:
+        face = prepare_face(args)
+        if isinstance(face, str):
+            return [], [], face
+        if CACHE_DIR:
+            name = f"{kind}_{item[0]}.pkl" if kind == "render" else f"file_{Path(item).stem}.pkl"
+            with open(os.path.join(CACHE_DIR, name), "wb") as fh:
+                pickle.dump(face, fh)
+    X, y = label_candidates(face)
     return X, y, "ok"
+
+
+CACHE_DIR = os.environ.get("SURFACES_FIT_CACHE", "")
+TRUTH_FACE = os.environ.get("SURFACES_FIT_TRUTH_FACE", "") == "1"
 
 
 def fit(X: np.ndarray, y: np.ndarray, *, l2: float = 1e-2) -> dict:
@@ -136,12 +202,27 @@ def main() -> int:
     ap.add_argument("--mp", type=float, default=3.0)
     ap.add_argument("--workers", type=int, default=os.cpu_count() or 1)
     ap.add_argument("--holdout", type=float, default=0.25, help="fraction of photos held out for the scores")
+    ap.add_argument("--mp-max", type=float, default=None, help="photo sizes spread from --mp to this (MP)")
+    ap.add_argument("--cache", default="", help="keep each prepared face here (pickles) for --from-cache")
+    ap.add_argument("--from-cache", action="append", default=[], help="refit from faces kept by an earlier --cache")
+    ap.add_argument("--truth-face", action="store_true",
+                    help="where the face finder fails, rectify the face from its true outline instead of skipping")
     ap.add_argument("--out", default=str(MODEL_PATH))
     a = ap.parse_args()
     jobs = [("file", p) for f in a.folder for p in sorted(glob.glob(os.path.join(f, "*.jpg")))]
-    jobs += [("render", (a.seed + i, a.mp)) for i in range(a.render)]
+    hi = a.mp_max or a.mp
+    jobs += [("render", (a.seed + i, a.mp + (hi - a.mp) * ((i * 0.618) % 1.0))) for i in range(a.render)]
+    jobs += [("cached", p) for f in a.from_cache for p in sorted(glob.glob(os.path.join(f, "*.pkl")))]
     if not jobs:
-        ap.error("give --folder or --render")
+        ap.error("give --folder, --render or --from-cache")
+    global CACHE_DIR, TRUTH_FACE
+    if a.truth_face:
+        os.environ["SURFACES_FIT_TRUTH_FACE"] = "1"
+        TRUTH_FACE = True
+    if a.cache:
+        os.makedirs(a.cache, exist_ok=True)
+        os.environ["SURFACES_FIT_CACHE"] = a.cache
+        CACHE_DIR = a.cache
     with ProcessPoolExecutor(a.workers) as ex:
         results = list(ex.map(candidates_for, jobs))
     used = [(j, r) for j, r in zip(jobs, results) if r[2] == "ok"]
@@ -167,6 +248,7 @@ def main() -> int:
             "candidates": int(len(yt)),
             "per_class": {c: int((yt == i).sum()) for i, c in enumerate(CLASSES)},
             "sources": sorted({j[0] for j, _ in used}),
+            "first_seed": a.seed if a.render else None,
             "seed": a.seed,
         },
     )

@@ -43,9 +43,15 @@ from skimage import measure as skm
 from .shapes import polygon_features
 
 BACKGROUND_MM = 6.0  # window of the local background median
+SMOOTH_SEED = 0.45  # texture energy (of the face's median) where a smooth region starts
+SMOOTH_GROW = 0.65  # ... and grows
+JOIN_ALONG_MM = 1.5  # smooth pieces this close along the weld are one band
 SPECK_MM = 0.2  # below this a dark spot is fracture grain, not an imperfection
 RESOLVE_PX = 4.0  # smallest feature (photo pixels across) a detection may be
 EDGE_MM = 0.5
+SEED_LEVEL = 0.6  # a dark region starts below this fraction of its background
+SEED_MAX_LEVEL = 0.72  # ... or below up to this one on an even face (see _maps)
+GROW_LEVEL = 0.72  # ... and grows while 0.12 above its start level
 
 ISO6520 = {"pore": "2011", "pore-elongated": "2015", "inclusion": "301", "unfused": "401", "unfused-root": "4021", "crack": "100"}
 KIND_ORDER = ("none", "pore", "inclusion", "unfused", "crack")
@@ -69,6 +75,9 @@ def _gray(rgb: np.ndarray) -> np.ndarray:
 
 
 def _robust_sigma(x: np.ndarray) -> float:
+    """1.4826 x the median absolute deviation (a normal sigma), on at most about 100 000 values."""
+    x = np.ravel(x)
+    x = x[:: max(1, x.size // 100000)]
     x = x[np.isfinite(x)]
     if x.size == 0:
         return 1.0
@@ -144,6 +153,7 @@ class _Maps:
     mask: np.ndarray
     mm: float
     photo_mm: float  # photo px/mm
+    seed_level: float = SEED_LEVEL
 
 
 def _maps(rgb, mask, mm, photo_mm) -> _Maps:
@@ -153,16 +163,23 @@ def _maps(rgb, mask, mm, photo_mm) -> _Maps:
     bg = background(g, px_per_mm=mm)
     rel = gs / np.maximum(bg, 1.0)
     tex = texture_energy(g, px_per_mm=mm, scale_mm=max(0.08, 1.2 * resolve))
-    tex_med = float(np.median(tex[mask])) or 1.0
+    tex_med = float(np.median(tex[mask][:: max(1, int(mask.sum()) // 100000)])) or 1.0
     lab = cv2.cvtColor(rgb, cv2.COLOR_RGB2Lab).astype(np.float32)
     lab = cv2.GaussianBlur(lab, (0, 0), max(0.08, resolve) * mm)
-    lab_med = np.median(lab[mask], axis=0)
+    lab_med = np.median(lab[mask][:: max(1, int(mask.sum()) // 100000)], axis=0)
     sig = [max(s * mm, 0.7) for s in (0.6 * resolve, 1.2 * resolve, 2.0 * resolve)]
     ridge = dark_ridges(g, sigmas=sorted(set(round(s, 2) for s in sig)))
-    ridge_med = float(np.median(ridge[mask]))
-    ridge_sig = _robust_sigma(ridge[mask]) + 1e-6
+    rm = ridge[mask][:: max(1, int(mask.sum()) // 100000)]
+    ridge_med = float(np.median(rm))
+    ridge_sig = _robust_sigma(rm) + 1e-6
     gy, gx = np.gradient(gs)
-    return _Maps(g, gs, bg, rel, tex, tex_med, lab, lab_med, ridge, ridge_med, ridge_sig, np.hypot(gx, gy), mask, mm, photo_mm)
+    # a dark region starts where it stands out of the face's own darkness spread
+    # (light, even faces: grey pores count; dark, crevassed faces: only the darkest)
+    dk = 1.0 - rel[mask][:: max(1, int(mask.sum() // 200000))]
+    spread = float(np.median(dk) + 6.0 * _robust_sigma(dk)) if dk.size else 1.0 - SEED_LEVEL
+    seed_level = 1.0 - min(max(spread, 1.0 - SEED_MAX_LEVEL), 1.0 - SEED_LEVEL)
+    return _Maps(g, gs, bg, rel, tex, tex_med, lab, lab_med, ridge, ridge_med, ridge_sig, np.hypot(gx, gy), mask, mm,
+                 photo_mm, seed_level)  # fmt: skip
 
 
 def segment(
@@ -244,8 +261,8 @@ def segment(
 
 def _dark_candidates(M: _Maps) -> list[Detection]:
     rel = np.where(M.mask, M.rel, 1.0)
-    seeds_lvl, grow_lvl = 0.6, 0.72
-    dark = hysteresis(1.0 - rel, 1.0 - grow_lvl, 1.0 - seeds_lvl)
+    seed_lvl, grow_lvl = M.seed_level, M.seed_level + (GROW_LEVEL - SEED_LEVEL)
+    dark = hysteresis(1.0 - rel, 1.0 - grow_lvl, 1.0 - seed_lvl)
     speck_px = (SPECK_MM * M.mm) ** 2 * math.pi / 4
     lab, n = ndi.label(dark, structure=np.ones((3, 3)))
     out = []
@@ -254,9 +271,7 @@ def _dark_candidates(M: _Maps) -> list[Detection]:
             continue
         if (lab[sl] == i).sum() < speck_px:
             continue
-        d = _trace_dark(i, sl, lab, M)
-        if d is not None:
-            out.append(d)
+        out.extend(_trace_dark(i, sl, lab, M, speck_px=speck_px))
     return out
 
 
@@ -264,40 +279,92 @@ def _ridge_candidates(M: _Maps) -> list[Detection]:
     r = np.where(M.mask, (M.ridge - M.ridge_med) / M.ridge_sig, 0)
     m = hysteresis(r, 4.0, 8.0)
     lab, n = ndi.label(m, structure=np.ones((3, 3)))
+    # short and weak lines are fracture grain: drop them before describing them
+    if n:
+        peak = ndi.maximum(r, lab, np.arange(n + 1))
+        for i, sl in enumerate(ndi.find_objects(lab), start=1):
+            if sl is not None and peak[i] < 10.0:
+                if math.hypot(sl[0].stop - sl[0].start, sl[1].stop - sl[1].start) < 1.0 * M.mm:
+                    lab[sl][lab[sl] == i] = 0
     return _region_candidates(lab, M, min_px=0.8 * M.mm, min_greatest_mm=0.5, kind="crack", source="ridge")
 
 
 def _smooth_candidates(M: _Maps, taken_dets) -> list[Detection]:
     h, w = M.g.shape
-    smooth = (M.tex < 0.45 * M.tex_med) | (_chroma_dev(M) > 12.0)
+    # smooth (little fracture grain) or tinted (oxide colour) areas: hysteresis on both,
+    # the colour levels scaled by the face's own colour spread
+    tex = cv2.GaussianBlur(M.tex, (0, 0), 0.15 * M.mm) / M.tex_med
+    chroma = _chroma_dev(M)
+    c_sig = _robust_sigma(chroma[M.mask][:: max(1, int(M.mask.sum() // 200000))])
+    c_hi, c_lo = max(8.0, 6.0 * c_sig), max(5.0, 4.0 * c_sig)
+    smooth = hysteresis(-tex, -SMOOTH_GROW, -SMOOTH_SEED) | hysteresis(chroma, c_lo, c_hi)
     smooth &= M.mask
+    smooth = _smooth_outline(smooth, tex, chroma, M, c_hi=c_hi)
     taken = np.zeros((h, w), np.uint8)
     for d in taken_dets:
         cv2.fillPoly(taken, [np.round(d.contour).astype(np.int32)], 1)
     smooth &= cv2.dilate(taken, np.ones((3, 3), np.uint8)) == 0
     k = max(3, int(round(0.3 * M.mm)) | 1)
     sm = cv2.morphologyEx(smooth.astype(np.uint8), cv2.MORPH_OPEN, np.ones((k, k), np.uint8))
-    sm = cv2.morphologyEx(sm, cv2.MORPH_CLOSE, np.ones((k, k), np.uint8)) > 0
+    sm = cv2.morphologyEx(sm, cv2.MORPH_CLOSE, np.ones((k, k), np.uint8))
+    # lack of fusion runs along the weld: pieces of one band a short gap apart are one region
+    kx = max(3, int(round(JOIN_ALONG_MM * M.mm)) | 1)
+    sm = cv2.morphologyEx(sm, cv2.MORPH_CLOSE, np.ones((1, kx), np.uint8)) > 0
+    sm &= M.mask & (cv2.dilate(taken, np.ones((3, 3), np.uint8)) == 0)
     lab, n = ndi.label(sm)
     return _region_candidates(lab, M, min_px=(0.8 * M.mm) ** 2, min_greatest_mm=1.0, kind="unfused", source="smooth")
+
+
+def _smooth_outline(smooth: np.ndarray, tex: np.ndarray, chroma: np.ndarray, M: _Maps, *, c_hi: float) -> np.ndarray:
+    """Each smooth or tinted region re-outlined half-way between its own level and the face's.
+
+    As for dark regions: the texture (or colour) level inside a region and
+    the face's typical level set the outline at half contrast, so a band's
+    width does not depend on how smooth it is.  Growth stays within 0.6 mm
+    of the region first found.
+    """
+    lab, n = ndi.label(smooth)
+    if n == 0:
+        return smooth
+    idx = np.arange(1, n + 1)
+    t_in = np.asarray(ndi.median(tex, lab, idx), float)
+    c_in = np.asarray(ndi.median(chroma, lab, idx), float)
+    t_lvl = np.zeros(n + 1)
+    t_lvl[1:] = np.minimum((t_in + 1.0) / 2.0, 0.85)
+    c_lvl = np.full(n + 1, np.inf)
+    tinted = c_in > c_hi
+    c_lvl[1:][tinted] = c_in[tinted] / 2.0
+    # spread each region's levels to its neighbourhood (the nearest region's, where two meet)
+    r = max(1, int(round(0.6 * M.mm)))
+    near = cv2.dilate(lab.astype(np.float32), cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1)))
+    near = near.astype(np.int32)
+    grow = (near > 0) & M.mask & ((tex < t_lvl[near]) | (chroma > c_lvl[near]))
+    gl, _ = ndi.label(grow | smooth)
+    keep = np.unique(gl[smooth])
+    return np.isin(gl, keep[keep > 0])
 
 
 def _region_candidates(lab, M: _Maps, *, min_px: float, min_greatest_mm: float, kind: str, source: str) -> list[Detection]:
     """One candidate per labelled region at least ``min_px`` pixels and ``min_greatest_mm`` long."""
     out = []
+    h, w = lab.shape
+    sizes = np.bincount(lab.ravel())
+    pad = max(2, int(round(0.3 * M.mm))) + 2
     for i, sl in enumerate(ndi.find_objects(lab), start=1):
-        if sl is None:
+        if sl is None or sizes[i] < min_px:
             continue
-        reg = lab[sl] == i
-        if reg.sum() < min_px:
+        # the greatest dimension is at most the box's diagonal (plus the half-pixel outline)
+        if math.hypot(sl[0].stop - sl[0].start, sl[1].stop - sl[1].start) + 1 < min_greatest_mm * M.mm:
             continue
-        cont = _outline(reg, sl)
+        cont = _outline(lab[sl] == i, sl)
         if cont is None:
             continue
         f = polygon_features(cont, px_per_mm=M.mm)
         if f["greatest_mm"] < min_greatest_mm:
             continue
-        out.append(Detection(kind, 0.0, cont, ISO6520[kind], _appearance(f, reg, sl, M, source=source)))
+        win = (slice(max(0, sl[0].start - pad), min(h, sl[0].stop + pad)),
+               slice(max(0, sl[1].start - pad), min(w, sl[1].stop + pad)))  # fmt: skip
+        out.append(Detection(kind, 0.0, cont, ISO6520[kind], _appearance(f, lab[win] == i, win, M, source=source)))
     return out
 
 
@@ -310,93 +377,171 @@ def _outline(reg: np.ndarray, sl) -> np.ndarray | None:
     if not cs:
         return None
     cont = max(cs, key=len)[:, ::-1] - 1 + np.array([sl[1].start, sl[0].start])
-    if np.allclose(cont[0], cont[-1]):
+    if abs(cont[0, 0] - cont[-1, 0]) < 1e-9 and abs(cont[0, 1] - cont[-1, 1]) < 1e-9:
         cont = cont[:-1]
     return cont if len(cont) >= 3 else None
 
 
-def _trace_dark(i, sl, lab, M: _Maps) -> Detection | None:
+def _trace_dark(i, sl, lab, M: _Maps, *, speck_px: float, max_parts: int = 6) -> list[Detection]:
+    """Outlines at half contrast of the dark parts of one dark region.
+
+    The outline of each part is the level half-way between the region's
+    surrounding ring and its darkest pixels, kept to the connected piece that
+    holds those darkest pixels and opened at the photo's resolving scale, so
+    that grain touching a pore does not stretch its outline.  A region holding
+    several separate dark parts (a pore beside a dark crevice) gives one
+    candidate per part, up to ``max_parts``.
+    """
     h, w = M.gs.shape
     mm = M.mm
     r0, r1, c0, c1 = sl[0].start, sl[0].stop, sl[1].start, sl[1].stop
     size = max(r1 - r0, c1 - c0)
     pad = int(max(0.6 * mm, 0.5 * size)) + 2
     R0, R1, C0, C1 = max(0, r0 - pad), min(h, r1 + pad), max(0, c0 - pad), min(w, c1 + pad)
-    seed = lab[R0:R1, C0:C1] == i
+    labp = lab[R0:R1, C0:C1]
+    seed_all = labp == i
     patch = M.gs[R0:R1, C0:C1]
     pmask = M.mask[R0:R1, C0:C1]
+    strong = seed_all & (M.rel[R0:R1, C0:C1] < M.seed_level)
     rw = max(2, int(round(0.3 * mm)))
-    ring = ndi.binary_dilation(seed, iterations=rw) & ~ndi.binary_dilation(seed, iterations=1)
-    ring &= (lab[R0:R1, C0:C1] == 0) & pmask
-    b = float(np.median(patch[ring])) if ring.sum() >= 8 else float(np.median(M.bg[R0:R1, C0:C1][seed]))
-    core = float(np.percentile(patch[seed], 5))
-    contrast = b - core
-    if contrast <= 1.0:
-        return None
-    level = b - 0.5 * contrast
-    region = patch < level
-    rl, _ = ndi.label(region | seed, structure=np.ones((3, 3)))
-    keep = np.unique(rl[seed])
-    region = np.isin(rl, keep[keep > 0])
-    # stay with the seed: half contrast must not leak into the dark grain around it
-    reach = max(2, int(round(max(1.5 / M.photo_mm, 0.1) * mm)))
-    region &= ndi.binary_dilation(seed, iterations=reach)
-    region = ndi.binary_fill_holes(region) & pmask
-    if region.sum() < 2:
-        return None
+    photo_px = mm / M.photo_mm  # one photo pixel in face pixels
+    reach = max(2, int(round(max(1.5 * photo_px, 0.1 * mm))))
+    disc = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * rw + 1, 2 * rw + 1))
+    seed_u8 = seed_all.astype(np.uint8)
+    ring = (cv2.dilate(seed_u8, disc) > 0) & ~(cv2.dilate(seed_u8, np.ones((3, 3), np.uint8)) > 0)
+    ring &= (labp == 0) & pmask
+    b = float(np.median(patch[ring])) if ring.sum() >= 8 else float(np.median(M.bg[R0:R1, C0:C1][seed_all]))
+    reach_k = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * reach + 1, 2 * reach + 1))
+    near_seed = cv2.dilate(seed_u8, reach_k) > 0
+    out = []
+    left = strong.copy()
+    for _ in range(max_parts):
+        if left.sum() < max(2, 0.5 * speck_px):
+            break
+        vals = patch[left]
+        core = float(np.percentile(vals, 5))
+        contrast = b - core
+        if contrast <= 1.0:
+            break
+        level = b - 0.5 * contrast
+        below = (patch < level) & near_seed & pmask
+        rl, _ = ndi.label(below, structure=np.ones((3, 3)))
+        # the piece holding the darkest pixels of what is left of the seed
+        darkest = left & (patch <= np.percentile(vals, 20))
+        keep = np.unique(rl[darkest])
+        keep = keep[keep > 0]
+        if keep.size == 0:
+            break
+        region = np.isin(rl, keep)
+        region = _open_at(region, photo_px)
+        region = ndi.binary_fill_holes(region) & pmask
+        left &= ~(cv2.dilate(region.astype(np.uint8), np.ones((3, 3), np.uint8)) > 0)
+        if region.sum() < 2:
+            continue
+        d = _dark_detection(region, patch, level, b, core, R0, C0, M)
+        if d is not None:
+            out.append(d)
+    return out
+
+
+def _open_at(region: np.ndarray, photo_px: float) -> np.ndarray:
+    """Open ``region`` with a disc, keeping the largest piece the opening leaves.
+
+    The disc's radius is about one photo pixel or a third of the region's own
+    inscribed radius, whichever is larger: it cuts necks and spurs much
+    thinner than the region itself (dark grain touching a pore) and keeps
+    thin regions whole.  A region that would lose half of itself is returned
+    unchanged.
+    """
+    inscribed = float(cv2.distanceTransform(np.pad(region, 1).astype(np.uint8), cv2.DIST_L2, 5).max())
+    r = int(round(max(0.75 * photo_px, 0.35 * inscribed)))
+    if r < 1:
+        return region
+    k = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1))
+    op = cv2.morphologyEx(region.astype(np.uint8), cv2.MORPH_OPEN, k) > 0
+    if op.sum() < 0.5 * region.sum():
+        return region
+    rl, n = ndi.label(op, structure=np.ones((3, 3)))
+    if n > 1:  # the largest piece: the spur cut off is grain
+        sizes = np.bincount(rl.ravel())[1:]
+        op = rl == (1 + int(np.argmax(sizes)))
+    # give back the rim the opening rounds off (within one disc of the piece kept)
+    return region & (cv2.dilate(op.astype(np.uint8), k) > 0)
+
+
+def _dark_detection(region, patch, level, b, core, R0, C0, M: _Maps) -> Detection | None:
     val = np.where(region, np.minimum(patch, level - 1), np.maximum(patch, level + 1))
-    val = np.where(ndi.binary_dilation(region, iterations=2), val, level + 1)
+    val = np.where(cv2.dilate(region.astype(np.uint8), np.ones((5, 5), np.uint8)) > 0, val, level + 1)
     cs = skm.find_contours(np.pad(val, 1, constant_values=level + 1), level)
     if not cs:
         return None
     cont = max(cs, key=len)[:, ::-1] - 1 + np.array([C0, R0])
-    if np.allclose(cont[0], cont[-1]):
+    if abs(cont[0, 0] - cont[-1, 0]) < 1e-9 and abs(cont[0, 1] - cont[-1, 1]) < 1e-9:
         cont = cont[:-1]
     if len(cont) < 4:
         return None
-    f = polygon_features(cont, px_per_mm=mm)
+    f = polygon_features(cont, px_per_mm=M.mm)
     if f["area_mm2"] <= 0:
         return None
-    sl2 = (slice(R0, R1), slice(C0, C1))
+    sl2 = (slice(R0, R0 + patch.shape[0]), slice(C0, C0 + patch.shape[1]))
     f = _appearance(f, region, sl2, M, source="dark", ring_level=b, core_level=core)
     return Detection("candidate", 0.0, cont, "", f)
 
 
+def _quantile(x: np.ndarray, q: float) -> float:
+    """The ``q`` quantile (0..1) of a 1-d array by partial sort (lower value, no interpolation)."""
+    k = int(q * (x.size - 1))
+    return float(np.partition(x, k)[k])
+
+
 def _appearance(f: dict, reg: np.ndarray, sl, M: _Maps, *, source: str, ring_level=None, core_level=None) -> dict:
-    """Generic region features used by the region model (all dimensionless or mm)."""
+    """Generic region features used by the region model (all dimensionless or mm).
+
+    ``reg`` is the region inside the window ``sl`` of the face, which should
+    leave room for the surrounding ring (about 0.3 mm) on every side.
+    """
     mm = M.mm
     h, w = M.g.shape
     R0, C0 = sl[0].start, sl[1].start
     patch = M.gs[sl]
     pmask = M.mask[sl]
     rw = max(2, int(round(0.3 * mm)))
-    ring = ndi.binary_dilation(reg, iterations=rw) & ~ndi.binary_dilation(reg, iterations=1) & pmask
+    reg8 = reg.astype(np.uint8)
+    grown = cv2.dilate(reg8, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * rw + 1, 2 * rw + 1)))
+    near = cv2.dilate(reg8, _CROSS)
+    ring = (grown > 0) & (near == 0) & pmask
     if ring.sum() < 4:
         ring = ~reg & pmask
-    b = ring_level if ring_level is not None else float(np.median(patch[ring])) if ring.any() else float(np.median(patch))
-    inside = float(np.median(patch[reg]))
-    core = core_level if core_level is not None else float(np.percentile(patch[reg], 5))
+    pin = patch[reg]
+    if ring_level is not None:
+        b = ring_level
+    else:
+        b = _quantile(patch[ring], 0.5) if ring.any() else _quantile(patch.ravel(), 0.5)
+    inside = _quantile(pin, 0.5)
+    core = core_level if core_level is not None else _quantile(pin, 0.05)
     contrast = (b - inside) / max(b, 1.0)
-    inner = ndi.binary_erosion(reg, iterations=1)
+    inner = cv2.erode(reg8, _CROSS, borderType=cv2.BORDER_CONSTANT, borderValue=0) > 0
     rim = reg & ~inner
     if not inner.any():
         inner = reg
-    tex_in = float(np.median(M.tex[sl][inner])) / M.tex_med
-    tex_ring = float(np.median(M.tex[sl][ring])) / M.tex_med if ring.any() else 1.0
+    tex = M.tex[sl]
+    tex_in = _quantile(tex[inner], 0.5) / M.tex_med
+    tex_ring = _quantile(tex[ring], 0.5) / M.tex_med if ring.any() else 1.0
     span = max(b - core, 1.0)
-    edge = float(np.mean(M.grad[sl][rim])) * mm / span if rim.any() else 0.0
+    edge = float(M.grad[sl][rim].mean()) * mm / span if rim.any() else 0.0
     lab = M.lab[sl]
-    cin = lab[inner].mean(axis=0) if inner.any() else lab[reg].mean(axis=0)
+    cin = lab[inner].mean(axis=0)
     cring = lab[ring].mean(axis=0) if ring.any() else M.lab_med
     chroma_ring = float(np.hypot(cin[1] - cring[1], cin[2] - cring[2]))
     chroma_face = float(np.hypot(cin[1] - M.lab_med[1], cin[2] - M.lab_med[2]))
-    rz = (M.ridge[sl] - M.ridge_med) / M.ridge_sig
-    ridge_frac = float((rz[reg] > 4.0).mean())
+    ridge_frac = float((M.ridge[sl][reg] > M.ridge_med + 4.0 * M.ridge_sig).mean())
     # contact with the face's long edges (root / side wall)
-    ys, xs = np.nonzero(reg)
+    rows = np.nonzero(reg.any(axis=1))[0]
     edge_band = max(1, int(round(EDGE_MM * mm)))
-    near = ((ys + R0) < edge_band) | ((ys + R0) >= h - edge_band)
-    edge_contact = float(near.mean()) if len(ys) else 0.0
+    per_row = reg.sum(axis=1)
+    rr = np.arange(reg.shape[0]) + R0
+    near_edge = (rr < edge_band) | (rr >= h - edge_band)
+    edge_contact = float(per_row[near_edge].sum() / max(per_row.sum(), 1)) if len(rows) else 0.0
     thick = f["area_mm2"] / max(f["greatest_mm"], 1e-6)
     f = dict(f)
     f.update(
@@ -413,22 +558,69 @@ def _appearance(f: dict, reg: np.ndarray, sl, M: _Maps, *, source: str, ring_lev
         thickness_mm=thick,
         photo_px=f["greatest_mm"] * M.photo_mm,
         photo_thick_px=thick * M.photo_mm,
-        bright_frac=float((patch[reg] > b).mean()),
+        bright_frac=float((pin > b).mean()),
     )
     return f
 
 
+_CROSS = cv2.getStructuringElement(cv2.MORPH_CROSS, (3, 3))
+
+
 def _dedupe(dets: list[Detection]) -> list[Detection]:
-    """Drop a detection whose centroid lies inside a larger, more confident one."""
-    keep = []
-    order = sorted(dets, key=lambda d: -d.features["area_mm2"])
-    for d in order:
-        c = (d.features["cx_px"], d.features["cy_px"])
-        inside = False
-        for k in keep:
+    """One detection per imperfection.
+
+    Two outlines that share more than :data:`DUPLICATE_OVERLAP` of the
+    smaller one's area describe the same imperfection: the one kept is the
+    dark-region outline for a pore or inclusion (a ridge filter answers on
+    the rim of a cavity, not its opening), else the more confident one.  A
+    detection whose centre lies inside a larger one kept is dropped as well.
+    """
+
+    def rank(d):
+        traced = d.features.get("source") == "dark" and d.kind in ("pore", "inclusion")
+        return (traced, d.confidence)
+
+    boxes = {}
+    for d in dets:
+        c = d.contour
+        boxes[id(d)] = (c[:, 0].min(), c[:, 1].min(), c[:, 0].max(), c[:, 1].max())
+    keep: list[Detection] = []
+    for d in sorted(dets, key=lambda d: -d.features["area_mm2"]):
+        c = (float(d.features["cx_px"]), float(d.features["cy_px"]))
+        drop = False
+        for j, k in enumerate(keep):
+            if not _boxes_touch(boxes[id(d)], boxes[id(k)]):
+                continue
             if cv2.pointPolygonTest(k.contour.astype(np.float32).reshape(-1, 1, 2), c, False) >= 0:
-                inside = True
+                drop = True
                 break
-        if not inside:
+            if _overlap(d, k, boxes[id(d)], boxes[id(k)]) > DUPLICATE_OVERLAP:
+                if rank(d) > rank(k):
+                    keep[j] = d
+                drop = True
+                break
+        if not drop:
             keep.append(d)
     return keep
+
+
+DUPLICATE_OVERLAP = 0.3
+
+
+def _boxes_touch(a, b) -> bool:
+    return a[0] <= b[2] and b[0] <= a[2] and a[1] <= b[3] and b[1] <= a[3]
+
+
+def _overlap(d: Detection, k: Detection, bd, bk) -> float:
+    """Shared area of two outlines over the smaller one's area (rasterised on their common box)."""
+    x0, y0 = int(math.floor(min(bd[0], bk[0]))), int(math.floor(min(bd[1], bk[1])))
+    x1, y1 = int(math.ceil(max(bd[2], bk[2]))), int(math.ceil(max(bd[3], bk[3])))
+    shape = (y1 - y0 + 2, x1 - x0 + 2)
+    m1 = np.zeros(shape, np.uint8)
+    m2 = np.zeros(shape, np.uint8)
+    cv2.fillPoly(m1, [np.round(d.contour - [x0, y0]).astype(np.int32)], 1)
+    cv2.fillPoly(m2, [np.round(k.contour - [x0, y0]).astype(np.int32)], 1)
+    a1, a2 = int(m1.sum()), int(m2.sum())
+    if min(a1, a2) == 0:
+        return 0.0
+    return float((m1 & m2).sum()) / min(a1, a2)
