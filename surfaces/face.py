@@ -732,30 +732,32 @@ def _edges_by_stretch(e, gi, x_lo, x_hi, y_lo, y_hi, *, out_lo, out_hi, q, snap)
 def _edge_line(x: np.ndarray, y: np.ndarray, inward: float, *, q: float) -> np.ndarray:
     """Straight edge ``y = a x + b`` through stretch positions, robust to smooth bands inside it.
 
-    A robust total-least-squares line first; stretches lying well inside it
-    (more than ``max(2.5 sigma, 0.2 mm)``) are a smooth band along the edge,
-    not the edge, and are left out of the final fit.  With fewer than four
+    The slope is Theil-Sen's (median of the pairwise slopes): a band along
+    the edge runs parallel to it and does not tilt it.  The offset is the
+    median of the stretches that lie on the edge: stretches well inside the
+    main group (more than ``max(3 sigma, 0.3 mm)``) are a smooth band, not
+    the edge, and are left out; when at least a fifth of the stretches lie
+    that far *outside* the main group, the main group is a band along most
+    of the edge and the outer group is the edge.  With fewer than four
     stretches the median position is used.
     """
-    from .geometry import fit_line_tls
-
+    x, y = np.asarray(x, float), np.asarray(y, float)
     if len(x) < 4:
         return np.array([0.0, float(np.median(y))])
-    keep = np.ones(len(x), bool)
-    for _ in range(3):
-        fit = fit_line_tls(np.c_[x[keep], y[keep]], robust=True, k_sigma=3.0, min_tol=0.1 * q)
-        if fit is None or abs(fit[1][0]) < 1e-6:
-            return np.array([0.0, float(np.median(y))])
-        (px_, py_), (dx, dy), _, _ = fit
-        a = dy / dx
-        line = py_ + (x - px_) * a
-        r = (y - line) * inward  # > 0: inside the line
-        sig = 1.4826 * float(np.median(np.abs(r[keep] - np.median(r[keep])))) + 1e-6
-        new = r <= max(2.5 * sig, 0.2 * q)
-        if new.sum() < max(3, 0.2 * len(x)) or np.array_equal(new, keep):
-            break
-        keep = new
-    return np.array([a, py_ - a * px_])
+    i, j = np.triu_indices(len(x), 1)
+    dx = x[j] - x[i]
+    ok = np.abs(dx) > 1e-9
+    a = float(np.median((y[j] - y[i])[ok] / dx[ok])) if ok.any() else 0.0
+    r = (y - a * x) * inward  # larger: further inside
+    med = float(np.median(r))
+    sig = 1.4826 * float(np.median(np.abs(r - med))) + 1e-6
+    tol = max(3.0 * sig, 0.3 * q)
+    outer = r < med - tol
+    if outer.sum() >= max(2, 0.2 * len(r)):
+        off = float(np.median(r[outer]))
+    else:
+        off = float(np.median(r[r <= med + tol]))
+    return np.array([a, off * inward])
 
 
 def _rise_from_outside(p: np.ndarray, level: float, start: float, stop: float, *, persist: int):

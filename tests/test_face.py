@@ -1,0 +1,201 @@
+"""The fracture-face finder (surfaces.face.find_face) against truth known by construction.
+
+Two kinds of scene:
+
+* analytic: a granular texture filling a known polygon (rectangle, trapezoid)
+  on a plain background, drawn in the plane and photographed through a known
+  homography; the truth area is the polygon's shoelace area;
+* rendered fracture photos from :mod:`surfaces.synth` (truth written by the
+  generator), calibrated from their own reference mark as the pipeline does.
+
+Areas found are also checked against reference libraries on the same data:
+OpenCV's ``contourArea`` on the face outline and scikit-image's ``regionprops``
+on the face mask.
+"""
+
+from __future__ import annotations
+
+import math
+
+import cv2
+import numpy as np
+import pytest
+from skimage.measure import regionprops
+
+from surfaces.face import find_face
+from surfaces.geometry import apply_h
+from surfaces.model import Calibration, FaceError
+
+#: plane (X, Y) mm -> photo (x, y) px: about 12 px/mm with some perspective
+H_PLANE_TO_PHOTO = np.array([[12.0, 0.9, 180.0], [-0.7, 12.4, 140.0], [6e-5, 1.2e-4, 1.0]])
+PHOTO_WH = (2000, 1500)
+CANVAS_PX_PER_MM = 20.0
+CANVAS_LO = (-15.0, -12.0)  # plane mm of the canvas's top-left pixel edge
+CANVAS_MM = (175.0, 130.0)
+
+
+def shoelace(poly) -> float:
+    """Polygon area (analytic geometry: the shoelace formula)."""
+    p = np.asarray(poly, float)
+    x, y = p[:, 0], p[:, 1]
+    return 0.5 * abs(float(np.dot(x, np.roll(y, -1)) - np.dot(y, np.roll(x, -1))))
+
+
+def _canvas_to_plane() -> np.ndarray:
+    s = 1.0 / CANVAS_PX_PER_MM
+    return np.array([[s, 0, CANVAS_LO[0] + 0.5 * s], [0, s, CANVAS_LO[1] + 0.5 * s], [0, 0, 1.0]])
+
+
+def _to_canvas(poly_mm) -> np.ndarray:
+    return (np.asarray(poly_mm, float) - CANVAS_LO) * CANVAS_PX_PER_MM - 0.5
+
+
+def _texture(rng, shape, *, grain_px: float, mean: float, std: float) -> np.ndarray:
+    """Isotropic granular texture: white noise low-passed at the grain size."""
+    t = cv2.GaussianBlur(rng.normal(0, 1, shape).astype(np.float32), (0, 0), grain_px)
+    return mean + std * t / (t.std() + 1e-9)
+
+
+def analytic_photo(face_mm=None, *, seed=0, band=None):
+    """Photo (rgb, gray) and calibration of a textured polygon on a plain, shaded background.
+
+    ``band``: (x0, x1, y_edge, width, inward) mm - an untextured strip of the
+    face along its straight edge ``y = y_edge`` (a smooth lack-of-fusion band),
+    still part of the face.
+    """
+    rng = np.random.default_rng(seed)
+    w, h = int(CANVAS_MM[0] * CANVAS_PX_PER_MM), int(CANVAS_MM[1] * CANVAS_PX_PER_MM)
+    yy, xx = np.mgrid[0:h, 0:w].astype(np.float32)
+    canvas = 95.0 + 20.0 * xx / w - 10.0 * yy / h  # plain table, gently shaded
+    if face_mm is not None:
+        m = np.zeros((h, w), np.uint8)
+        cv2.fillPoly(m, [np.round(_to_canvas(face_mm) * 16).astype(np.int32)], 1, shift=4)
+        tex = _texture(rng, (h, w), grain_px=0.15 * CANVAS_PX_PER_MM, mean=150.0, std=28.0)
+        if band is not None:
+            x0, x1, y_edge, bw, inward = band
+            bm = np.zeros((h, w), np.uint8)
+            strip = [(x0, y_edge), (x1, y_edge), (x1, y_edge + inward * bw), (x0, y_edge + inward * bw)]
+            cv2.fillPoly(bm, [np.round(_to_canvas(strip) * 16).astype(np.int32)], 1, shift=4)
+            tex[bm > 0] = 140.0  # smooth, no grain
+        canvas = np.where(m > 0, tex, canvas)
+    canvas = cv2.GaussianBlur(canvas.astype(np.float32), (0, 0), 0.8)  # optics, and no aliasing on the way down
+    M = H_PLANE_TO_PHOTO @ _canvas_to_plane()
+    photo = cv2.warpPerspective(canvas, M, PHOTO_WH, flags=cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
+    photo = photo + rng.normal(0, 1.5, photo.shape).astype(np.float32)  # sensor noise
+    gray = np.clip(np.round(photo), 0, 255).astype(np.uint8)
+    rgb = np.repeat(gray[..., None], 3, axis=2)
+    calib = Calibration(
+        method="px-per-mm", H=np.linalg.inv(H_PLANE_TO_PHOTO), uncertainty_pct=0.5, tilt_deg=None, marker_mm=None
+    )
+    return rgb, gray, calib
+
+
+def plane_outline(face, calib) -> np.ndarray:
+    """The face's outline in plane mm (from its photo-pixel polygon)."""
+    return apply_h(calib.H, face.polygon_px)
+
+
+def iou_plane(poly_a, poly_b, *, px_per_mm=20.0) -> float:
+    lo = np.minimum(poly_a.min(0), poly_b.min(0)) - 1
+    hi = np.maximum(poly_a.max(0), poly_b.max(0)) + 1
+    w, h = (np.ceil((hi - lo) * px_per_mm)).astype(int) + 1
+    ma, mb = np.zeros((h, w), np.uint8), np.zeros((h, w), np.uint8)
+    cv2.fillPoly(ma, [np.round((poly_a - lo) * px_per_mm * 16).astype(np.int32)], 1, shift=4)
+    cv2.fillPoly(mb, [np.round((poly_b - lo) * px_per_mm * 16).astype(np.int32)], 1, shift=4)
+    return float((ma & mb).sum() / max((ma | mb).sum(), 1))
+
+
+RECT = [(30.0, 40.0), (140.0, 40.0), (140.0, 50.0), (30.0, 50.0)]
+TRAPEZOID = [(25.0, 38.0), (145.0, 40.5), (145.0, 48.5), (25.0, 52.0)]  # 14 mm wide tapering to 8 mm
+
+
+@pytest.mark.parametrize("poly", [RECT, TRAPEZOID], ids=["rectangle", "trapezoid"])
+def test_area_of_a_known_polygon(poly):
+    rgb, gray, calib = analytic_photo(poly, seed=3)
+    face = find_face(rgb, gray, calib, test="fillet-break")
+    truth = shoelace(poly)  # analytic geometry
+    assert face.area_mm2 == pytest.approx(truth, rel=0.03)
+    assert iou_plane(plane_outline(face, calib), np.asarray(poly)) > 0.93
+    # the weld axis is the polygon's long side (X), the face length its X extent
+    assert face.length_mm == pytest.approx(poly[1][0] - poly[0][0], rel=0.03)
+
+
+def test_tapered_face_is_not_a_rectangle():
+    """A tapered face keeps its taper: the mask leaves out the corners a rectangle would add."""
+    rgb, gray, calib = analytic_photo(TRAPEZOID, seed=4)
+    face = find_face(rgb, gray, calib)
+    bbox_area = face.length_mm * face.width_mm
+    truth = shoelace(TRAPEZOID)
+    # the bounding rectangle would be ~ (14 / 11 - 1) = 27 % too large (analytic geometry)
+    assert bbox_area > 1.15 * truth
+    assert face.area_mm2 == pytest.approx(truth, rel=0.03)
+    assert not face.mask.all()
+    wide, narrow = face.mask[:, :5].sum(axis=0).mean(), face.mask[:, -5:].sum(axis=0).mean()
+    assert narrow / wide == pytest.approx(8.0 / 14.0, abs=0.08)  # the two end widths (analytic)
+
+
+def test_area_agrees_with_opencv_and_skimage_on_the_same_outline():
+    rgb, gray, calib = analytic_photo(TRAPEZOID, seed=5)
+    face = find_face(rgb, gray, calib)
+    # OpenCV contourArea on the outline taken back to the plane (reference library)
+    cv_area = abs(cv2.contourArea(plane_outline(face, calib).astype(np.float64).reshape(-1, 1, 2).astype(np.float32)))
+    assert cv_area == pytest.approx(face.area_mm2, rel=0.005)
+    # scikit-image regionprops area of the mask, pixel pitch from the face image (reference library)
+    (props,) = regionprops(face.mask.astype(np.uint8))
+    pitch = (face.length_mm / face.image.shape[1]) * (face.width_mm / face.image.shape[0])
+    assert props.area * pitch == pytest.approx(face.area_mm2, rel=0.02)
+    assert face.mask.shape == face.image.shape[:2]
+
+
+@pytest.mark.parametrize("x1", [72.0, 110.0], ids=["third", "two-thirds"])
+def test_smooth_band_along_the_root_stays_in_the_face(x1):
+    """An untextured strip along the straight edge is part of the face (lack of fusion along the root)."""
+    band = (35.0, x1, 50.0, 2.5, -1.0)  # along y = 50 (RECT's lower edge), 2.5 mm into the face
+    rgb, gray, calib = analytic_photo(RECT, seed=6, band=band)
+    face = find_face(rgb, gray, calib)
+    assert face.area_mm2 == pytest.approx(shoelace(RECT), rel=0.04)  # analytic geometry
+    assert iou_plane(plane_outline(face, calib), np.asarray(RECT)) > 0.93
+    assert face.mask.mean() > 0.93  # a rectangle's outline fills its own bounding box
+
+
+def test_no_face_raises_with_advice():
+    rgb, gray, calib = analytic_photo(None, seed=7)
+    with pytest.raises(FaceError, match="--roi"):
+        find_face(rgb, gray, calib)
+
+
+def test_roi_outside_the_photo_is_refused():
+    rgb, gray, calib = analytic_photo(RECT, seed=8)
+    with pytest.raises(FaceError, match="outside the photo"):
+        find_face(rgb, gray, calib, roi=(5000, 5000, 6000, 6000))
+
+
+def test_roi_finds_the_same_face():
+    rgb, gray, calib = analytic_photo(RECT, seed=9)
+    box = apply_h(H_PLANE_TO_PHOTO, np.array([[20.0, 30.0], [150.0, 60.0]]))
+    (x0, y0), (x1, y1) = box.min(0), box.max(0)
+    face = find_face(rgb, gray, calib, roi=(x0, y0, x1, y1))
+    assert face.method == "roi-box"
+    assert face.area_mm2 == pytest.approx(shoelace(RECT), rel=0.03)  # analytic geometry
+
+
+@pytest.mark.parametrize(
+    "test, seed, tilt",
+    [("fillet-break", 4101, 8.0), ("nick-break", 4102, 18.0)],
+)
+def test_rendered_fracture_photo(test, seed, tilt):
+    """A generated photo, calibrated from its own mark: face area within 5 % of the generator's truth."""
+    from surfaces.calibrate import calibrate
+    from surfaces.photo import load_photo
+    from surfaces.synth import render_fracture
+
+    sp = render_fracture(seed, test=test, megapixels=2.5, tilt_deg=tilt)
+    photo = load_photo(sp.jpeg_bytes(), name=f"{test}-{seed}.jpg")
+    calib = calibrate(photo, marker_mm=sp.truth["marker_mm"])
+    face = find_face(photo.rgb, photo.gray, calib, test=test)
+    truth = sp.truth["face"]
+    assert face.area_mm2 == pytest.approx(truth["area_mm2"], rel=0.05)  # truth by construction
+    # outline against the truth polygon, both in the generator's plane
+    Ht = np.linalg.inv(np.asarray(sp.truth["H_plane_to_photo"]))
+    assert iou_plane(apply_h(Ht, face.polygon_px), np.asarray(truth["polygon_mm"]), px_per_mm=10) > 0.9
+    assert math.isfinite(face.confidence) and 0 < face.confidence <= 1
