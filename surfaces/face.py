@@ -514,6 +514,12 @@ def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: f
         prof_i = np.median(gi[:, core_c], axis=1)
         y_lo = _snap_to_step(prof_i, y_lo, win=snap)
         y_hi = _snap_to_step(prof_i, y_hi, win=snap)
+        # a rim smoother than the face's middle (blur across a tilted photo) but of the
+        # face's own brightness is still face
+        inner_i = float(np.median(prof_i[int(y_lo + 0.3 * (y_hi - y_lo)) : int(y_hi - 0.3 * (y_hi - y_lo)) + 1]))
+        reach_b = max(1.5 * q, 0.3 * (y_hi - y_lo))
+        y_lo = _same_brightness_reach(prof_i, y_lo, inner_i, float(np.median(prof_i[:mrow])), -1, reach_b)
+        y_hi = _same_brightness_reach(prof_i, y_hi, inner_i, float(np.median(prof_i[h - mrow :])), +1, reach_b)
     band = slice(int(math.ceil(y_lo + 0.15 * (y_hi - y_lo))), int(y_hi - 0.15 * (y_hi - y_lo)) + 1)
     # along the face: a profile smoothed over half a millimetre, walked in from both margins
     prof_x = cv2.blur(np.median(e[band, :], axis=0).reshape(1, -1), (max(1, int(0.5 * q)) | 1, 1)).ravel()
@@ -546,6 +552,9 @@ def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: f
     xs_mm = to_x(xb)
     lo_mm, hi_mm = to_y(ylo_b), to_y(yhi_b)
     outline = np.r_[np.c_[xs_mm, lo_mm], np.c_[xs_mm[::-1], hi_mm[::-1]]]
+    if _DEBUG is not None:
+        _DEBUG.update(fe=e, fg=g, fb=(x_lo, x_hi, y_lo, y_hi), bins=(xb, ylo_b, yhi_b), prof_x=prof_x, prof_y=prof_y,
+                      prof_iy=np.median(gi[:, core_c], axis=1))
     slope = 0.5 * ((ylo_b[-1] - ylo_b[0]) + (yhi_b[-1] - yhi_b[0])) / max(xb[-1] - xb[0], 1e-6)
     return outline, c_x, c_y, warnings, math.degrees(math.atan(slope))
 
@@ -758,6 +767,35 @@ def _edge_line(x: np.ndarray, y: np.ndarray, inward: float, *, q: float) -> np.n
     else:
         off = float(np.median(r[r <= med + tol]))
     return np.array([a, off * inward])
+
+
+def _same_brightness_reach(p: np.ndarray, pos: float, inner: float, outer: float, outward: int, reach: float):
+    """Move an edge outwards over samples of the face's own brightness.
+
+    Walking outwards from ``pos`` (at most ``reach`` samples), the edge
+    follows the brightness profile ``p`` while it stays within a quarter of
+    the face-to-surroundings difference of the face's level ``inner``; it
+    never moves inwards, and not at all when the face and its surroundings
+    differ by less than 12 grey levels or six times the profile's noise.
+    """
+    p = np.asarray(p, dtype=np.float64)
+    d = np.diff(p)
+    noise = 1.4826 * float(np.median(np.abs(d - np.median(d)))) + 1e-6
+    if abs(inner - outer) < max(12.0, 6.0 * noise):
+        return pos
+    tol = max(4.0, 0.25 * abs(inner - outer))
+    n = len(p)
+    k = int(round(pos))
+    last = None
+    for step in range(1, int(reach) + 1):
+        i = k + outward * step
+        if not 0 <= i < n or abs(p[i] - inner) > tol:
+            break
+        last = i
+    if last is None:
+        return pos
+    edge = last + 0.5 * outward  # the face's last sample ends half a sample further out
+    return float(edge) if (edge - pos) * outward > 0 else pos
 
 
 def _rise_from_outside(p: np.ndarray, level: float, start: float, stop: float, *, persist: int):
