@@ -83,6 +83,7 @@ __all__ = [
     "corner_sigma_px",
     "assumed_camera_matrix",
     "tilt_from_homography",
+    "plane_centroid_px",
     "DEFAULT_MARKER_MM",
     "PRINT_SCALE_PCT",
     "MANUAL_SCALE_UNCERTAINTY_PCT",
@@ -307,6 +308,31 @@ def scale_uncertainty_pct(
     if parts:
         return {"corners_pct": mc, "print_pct": PRINT_SCALE_PCT, "total_pct": total}
     return total
+
+
+def plane_centroid_px(cal: Calibration, polygon_px: np.ndarray) -> tuple[float, float]:
+    """Photo point (x, y) of the area centroid, in the marker plane, of a photo polygon.
+
+    The point "at the face" where a scale is quoted: under perspective the
+    mean of a polygon's photo vertices (or its centroid in photo pixels) is
+    not the image of the face's centre, and the scale changes across a
+    tilted face by several percent.  Falls back to the vertex mean when the
+    polygon has no area.
+    """
+    pts = np.asarray(polygon_px, np.float64).reshape(-1, 2)
+    if len(pts) == 0:
+        raise SurfacesError("an empty polygon has no centroid: give the face outline in photo pixels")
+    mm = apply_h(cal.H, pts)
+    x, y = mm[:, 0], mm[:, 1]
+    x1, y1 = np.roll(x, -1), np.roll(y, -1)
+    cross = x * y1 - x1 * y
+    area = 0.5 * float(cross.sum())
+    if len(pts) < 3 or not math.isfinite(area) or abs(area) < 1e-12:
+        c = pts.mean(axis=0)
+        return float(c[0]), float(c[1])
+    c_mm = np.array([((x + x1) * cross).sum(), ((y + y1) * cross).sum()]) / (6.0 * area)
+    c = apply_h(np.linalg.inv(cal.H), c_mm[None])[0]
+    return float(c[0]), float(c[1])
 
 
 def assumed_camera_matrix(width: int, height: int) -> np.ndarray:

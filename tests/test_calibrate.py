@@ -21,14 +21,19 @@ import pytest
 from surfaces.calibrate import (
     DEFAULT_MARKER_MM,
     MANUAL_SCALE_UNCERTAINTY_PCT,
+    MeasuredMarker,
+    _calibrate_from_hits,
+    _grid_segments,
     _square_homography,
+    detect_markers,
+    plane_centroid_px,
     assumed_camera_matrix,
     calibrate,
     corner_sigma_px,
     scale_uncertainty_pct,
     tilt_from_homography,
 )
-from surfaces.model import CalibrationError, SurfacesError
+from surfaces.model import Calibration, CalibrationError, MarkerHit, SurfacesError
 
 DICT = cv2.aruco.getPredefinedDictionary(cv2.aruco.DICT_4X4_50)
 BLACK, WHITE = 25.0, 225.0
@@ -423,6 +428,126 @@ def test_synthetic_photos_scale_at_face_within_uncertainty(seed):
     err = 100 * (cal.px_per_mm_at(*centre) / true_scale(G, X, Y) - 1)
     assert abs(err) < 3 * scale_uncertainty_pct(cal, *centre)
     assert abs(err) < 2.0
+
+
+# --------------------------------------------------------------------------- module-grid fit
+
+
+@pytest.mark.parametrize("marker_id", [0, 17, 33, 49])
+def test_grid_segments_are_the_edges_of_opencvs_pattern(marker_id):
+    """Every module-long edge of OpenCV's own bitmap (cv2.aruco.generateImageMarker, white quiet zone
+    around it), found here by differencing the padded bitmap, is one grid segment with the right polarity."""
+    black = np.pad(cv2.aruco.generateImageMarker(DICT, marker_id, 6) < 128, 1, constant_values=False)
+    expected = set()
+    for v in range(6):  # vertical lines U = k between columns k-1 and k
+        for k in range(7):
+            lo, hi = black[v + 1, k], black[v + 1, k + 1]
+            if lo != hi:
+                expected.add((0, k, v, 1 if lo else -1))
+    for u in range(6):  # horizontal lines V = k between rows k-1 and k
+        for k in range(7):
+            lo, hi = black[k, u + 1], black[k + 1, u + 1]
+            if lo != hi:
+                expected.add((1, k, u, 1 if lo else -1))
+    got = {(int(a), int(k), int(j), int(p)) for a, k, j, p, _, _ in _grid_segments(marker_id)}
+    assert got == expected
+    assert {(0, 0, j, -1) for j in range(6)} <= got  # the whole outer square, black inside
+
+
+@pytest.mark.parametrize("blur, gamma", [(1.5, 2.0), (1.0, 2.0), (2.0, 1.5), (1.5, 0.6)])
+def test_edge_bias_of_a_tone_curve_is_measured_and_removed(blur, gamma):
+    """A camera tone curve T shifts every blurred edge towards black (or white).  Analytic check: for a
+    Gaussian edge of sigma s (blur and the pixel's own box, sqrt(blur^2 + 1/12)) the area-rule shift is
+    -integral(n_T(u) - Phi(u/s)) du, integrated here with SciPy's quad."""
+    integrate = pytest.importorskip("scipy.integrate")
+    stats = pytest.importorskip("scipy.stats")
+    G = camera_homography(K, rotation(15, 30, 20), (700, 500), 5.0)
+    img = render((W, H), [(7, 20.0, G)], blur=blur, noise=1.0, seed=1)
+
+    def T(v):
+        return 255.0 * (np.asarray(v, float) / 255.0) ** (1.0 / gamma)
+
+    lut = np.clip(T(np.arange(256.0)) + 0.5, 0, 255).astype(np.uint8)
+    cal = calibrate(cv2.LUT(img, lut))
+    sig = math.sqrt(blur**2 + 1.0 / 12.0)
+
+    def n_T(u):
+        f = BLACK + (WHITE - BLACK) * stats.norm.cdf(u / sig)
+        return (T(f) - T(BLACK)) / (T(WHITE) - T(BLACK))
+
+    expected = -integrate.quad(lambda u: n_T(u) - stats.norm.cdf(u / sig), -12 * sig, 12 * sig)[0]
+    hit = cal.markers[0]
+    assert hit.grid_points > 300
+    assert hit.edge_bias_px == pytest.approx(expected, abs=0.03)
+    # with the bias removed the corners are where the homography puts them
+    assert np.abs(hit.corners_px - true_corners(G, 20.0)).max() < 0.04
+    assert abs(scale_error_pct(cal, G, 80.0, 50.0)[0]) < 0.2  # 60 mm beyond the marker
+
+
+def test_grid_fit_far_from_the_marker_within_stated_uncertainty():
+    """Ten seeded tilted scenes with blur, noise, JPEG and a random tone curve: the scale 80-100 mm from a
+    20 mm marker (4-5 marker sides away) against the analytic sqrt|det J| of the known homography."""
+    errors, sigmas = [], []
+    for seed in range(10):
+        rng = np.random.default_rng(seed)
+        G = camera_homography(K, rotation(rng.uniform(5, 35), rng.uniform(0, 180), rng.uniform(0, 360)),
+                              (rng.uniform(300, 500), rng.uniform(300, 500)), rng.uniform(2.5, 6))
+        img = render((W, H), [(int(rng.integers(50)), 20.0, G)], blur=rng.uniform(0.5, 1.8), noise=3, jpeg=85, seed=seed)
+        lut = np.clip(255 * (np.arange(256) / 255) ** (1 / rng.uniform(1.0, 2.2)) + 0.5, 0, 255).astype(np.uint8)
+        cal = calibrate(cv2.LUT(img, lut))
+        assert np.abs(cal.markers[0].corners_px - true_corners(G, 20.0)).max() < 0.1
+        err, p = scale_error_pct(cal, G, 90.0, 60.0)
+        errors.append(err)
+        sigmas.append(scale_uncertainty_pct(cal, *p, parts=True)["corners_pct"])
+        assert abs(scale_error_pct(cal, G, 10.0, 10.0)[0]) < 0.1  # at the marker itself
+    errors, sigmas = np.abs(errors), np.array(sigmas)
+    assert errors.max() < 1.5 and np.median(errors) < 0.3
+    assert np.all(errors <= 2 * sigmas)  # the stated 1-sigma is honest: every error within 2 sigma
+    assert np.median(sigmas) < 1.0
+
+
+def test_plane_centroid_is_the_image_of_the_face_centre():
+    """Analytic: a 60 x 10 mm rectangle on a plane seen at 40 degrees; its centre (70, 25) mm mapped by the
+    known homography is the point returned, while the mean of its photo corners is pixels away."""
+    G = camera_homography(K, rotation(40, 0, 10), (600, 500), 6.0)
+    cal = Calibration(method="marker", H=np.linalg.inv(G), uncertainty_pct=0.3, tilt_deg=40.0, marker_mm=20.0)
+    rect = apply(G, [[40, 20], [100, 20], [100, 30], [40, 30]])
+    want = apply(G, [[70, 25]])[0]
+    got = np.array(plane_centroid_px(cal, rect))
+    assert np.abs(got - want).max() < 1e-6
+    assert np.hypot(*(rect.mean(axis=0) - want)) > 1.5
+    # a densely sampled outline gives the same point
+    t = np.linspace(0, 1, 50, endpoint=False)
+    dense = apply(G, np.r_[np.c_[40 + 60 * t, 20 + 0 * t], np.c_[100 + 0 * t, 20 + 10 * t],
+                           np.c_[100 - 60 * t, 30 + 0 * t], np.c_[40 + 0 * t, 30 - 10 * t]])
+    assert np.abs(np.array(plane_centroid_px(cal, dense)) - want).max() < 1e-6
+    with pytest.raises(SurfacesError):
+        plane_centroid_px(cal, np.zeros((0, 2)))
+
+
+def test_detection_without_printed_pattern_is_dropped_and_a_twin_merged():
+    """A square that decoded as a marker but shows no printed pattern (here a bare detection with no grid
+    fit, half the real marker's size, far away) would otherwise make the photo look like markers
+    printed at different sizes; a second detection on the real marker's spot is the same marker."""
+    G = similarity(6.0, 8.0, 500, 400)
+    img = render((W, H), [(9, 20.0, G)], noise=2, seed=4)
+    hits, _ = detect_markers(img)
+    assert len(hits) == 1 and hits[0].grid_points > 0
+    real = hits[0]
+    fake_corners = real.corners_px * 0.5 + np.array([900.0, 600.0])
+    fake = MarkerHit(marker_id=3, corners_px=fake_corners, side_px=real.side_px * 0.5, module_px=real.module_px * 0.5,
+                     reproj_rms_px=0.02)
+    twin = MarkerHit(marker_id=12, corners_px=real.corners_px + 0.7, side_px=real.side_px, module_px=real.module_px,
+                     reproj_rms_px=0.5)
+    centre = tuple(apply(G, [[10, 10]])[0])
+    cal = _calibrate_from_hits([fake, real, twin], 20.0, centre, None, (W, H))
+    assert cal.method == "marker" and [m.marker_id for m in cal.markers] == [9]
+    assert sum("ignored a square" in w and "id 3" in w for w in cal.warnings) == 1
+    assert not any("id 12" in w for w in cal.warnings)
+    assert abs(scale_error_pct(cal, G)[0]) < 0.1
+    # without the drop the two would be refused as printed at different sizes
+    with pytest.raises(CalibrationError):
+        _calibrate_from_hits([real, MeasuredMarker(**{**vars(fake), "grid_points": 400})], 20.0, centre, None, (W, H))
 
 
 # --------------------------------------------------------------------------- figures (not a test)
