@@ -236,21 +236,28 @@ def _best_component(e: np.ndarray, allowed: np.ndarray, s: float):
             contrast = inside / max(ring_level, 1e-6)
             if contrast < MIN_RING_CONTRAST:
                 continue
-            score = inside * min(contrast, 4.0) ** 0.5 * fill**2 * (area_px / s**2) ** 0.1
+            score = inside * min(contrast, 4.0) ** 0.5 * fill**2 * (area_px / s**2) ** 0.25
             # a point surely inside the component (for the nesting test below): its
             # pixel farthest from the background
             dist = cv2.distanceTransform(sub, cv2.DIST_L1, 3)
             r_mid, c_mid = np.unravel_index(int(np.argmax(dist)), dist.shape)
             cands.append(dict(t=len(labs) - 1, i=i, sub=(sub, x0, y0), fill=fill, contrast=contrast, inside=inside,
+                              area=float(area_px),
                               score=score, mid=(int(r_mid + y0), int(c_mid + x0))))
-    # a region holding a clearly more textured region that stands out on its own is
-    # the specimen (plate, bead, coupon) carrying the face, not the face
+    # a region holding a clearly more textured, much smaller region that stands out on
+    # its own is the specimen (plate, bead, coupon) carrying the face, not the face
+    # (a face whose texture varies along it holds rougher stretches of half its size)
     for c in cands:
         lab = labs[c["t"]][0]
         c["holds"] = any(
-            d["t"] > c["t"] and d["inside"] > 1.4 * c["inside"] and lab[d["mid"]] == c["i"] for d in cands
+            d["t"] > c["t"] and d["inside"] > 1.4 * c["inside"] and d["area"] < 0.35 * c["area"]
+            and lab[d["mid"]] == c["i"]
+            for d in cands
         )
     pool = [c for c in cands if not c["holds"]]
+    if _DEBUG is not None:
+        _DEBUG["cands"] = [(c["t"], round(c["area"] / s**2), round(c["inside"], 2), round(c["contrast"], 2),
+                            round(c["fill"], 2), round(c["score"], 2), c["holds"]) for c in cands]
     if not pool:
         return None
     c = max(pool, key=lambda c: c["score"])
