@@ -460,6 +460,12 @@ def _snap_to_step(profile: np.ndarray, pos: float, *, win: int) -> float:
     return float(k + np.clip(off, -0.5, 0.5))
 
 
+#: an automatic outline covering less than this share of the coarse region's rectangle is refused
+MIN_OUTLINE_SHARE = 0.3
+#: below this outline confidence an automatic search gives up (asks for --roi) ...
+MIN_AUTO_CONFIDENCE = 0.4
+#: ... and below this one the face carries a warning to check the outline
+WARN_CONFIDENCE = 0.55
 #: resolution of the fine pass that places the face's outline (mm pitch 0.1)
 FINE_PX_PER_MM = 10.0
 #: length of the stretches along the weld whose long edges are located separately
@@ -611,7 +617,7 @@ def find_face(
     warnings: list[str] = []
     centre, axis, L, Wd, fill, where = _coarse_face(gray, rgb, calib, roi_poly, test)
     method = "auto" if roi is None else ("roi-box" if len(roi) == 4 else "roi-corners")
-
+    L0, W0 = L, Wd
     for attempt in range(3):
         outline, c_x, c_y, fine_notes, slope = _fine_outline(gray, calib, centre, axis, L, Wd)
         lo_o, hi_o = outline.min(axis=0), outline.max(axis=0)
@@ -631,6 +637,8 @@ def find_face(
             continue
         break
     warnings.extend(fine_notes)
+    if _DEBUG is not None:
+        _DEBUG["coarse_fine"] = (L0, W0, float(hi_o[0] - lo_o[0]), float(hi_o[1] - lo_o[1]))
     fx0, fx1 = float(lo_o[0]), float(hi_o[0])
     fy0, fy1 = float(lo_o[1]), float(hi_o[1])
     length, width = fx1 - fx0, fy1 - fy0
@@ -640,7 +648,20 @@ def find_face(
     if width > length:
         warnings.append("the face is wider than long: check the weld axis on the overlay")
     conf = float(np.clip(min(c_x, c_y) * 1.5, 0.05, 1.0)) * (0.5 + 0.5 * fill)
-    if conf < 0.4:
+    if roi is None and area < MIN_OUTLINE_SHARE * L0 * W0:
+        # the outline and the textured region it came from disagree: one of them is wrong
+        raise FaceError(
+            f"the face outline found ({length:.0f} x {width:.1f} mm) covers only {100 * area / (L0 * W0):.0f} % "
+            f"of the textured region around it ({L0:.0f} x {W0:.1f} mm): give --roi X0,Y0,X1,Y1 around the face"
+        )
+    if conf < MIN_AUTO_CONFIDENCE and roi is None:
+        # an outline this unsure is as likely a part of the face (or of the plate) as the
+        # face: measuring against it could pass a face that was never looked at
+        raise FaceError(
+            "the face's outline barely stands out from its surroundings (outline confidence "
+            f"{conf:.2f}): give --roi X0,Y0,X1,Y1 around the face"
+        )
+    if conf < WARN_CONFIDENCE:
         warnings.append("the face outline is uncertain: check it on the overlay or give --roi")
 
     # final rectified face: the outline's bounding rectangle, the outline as the mask

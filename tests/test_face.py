@@ -56,7 +56,7 @@ def _texture(rng, shape, *, grain_px: float, mean: float, std: float) -> np.ndar
     return mean + std * t / (t.std() + 1e-9)
 
 
-def analytic_photo(face_mm=None, *, seed=0, band=None):
+def analytic_photo(face_mm=None, *, seed=0, band=None, grain_std=28.0):
     """Photo (rgb, gray) and calibration of a textured polygon on a plain, shaded background.
 
     ``band``: (x0, x1, y_edge, width, inward) mm - an untextured strip of the
@@ -70,7 +70,7 @@ def analytic_photo(face_mm=None, *, seed=0, band=None):
     if face_mm is not None:
         m = np.zeros((h, w), np.uint8)
         cv2.fillPoly(m, [np.round(_to_canvas(face_mm) * 16).astype(np.int32)], 1, shift=4)
-        tex = _texture(rng, (h, w), grain_px=0.15 * CANVAS_PX_PER_MM, mean=150.0, std=28.0)
+        tex = _texture(rng, (h, w), grain_px=0.15 * CANVAS_PX_PER_MM, mean=150.0, std=grain_std)
         if band is not None:
             x0, x1, y_edge, bw, inward = band
             bm = np.zeros((h, w), np.uint8)
@@ -160,6 +160,13 @@ def test_smooth_band_along_the_root_stays_in_the_face(x1):
 
 def test_no_face_raises_with_advice():
     rgb, gray, calib = analytic_photo(None, seed=7)
+    with pytest.raises(FaceError, match="--roi"):
+        find_face(rgb, gray, calib)
+
+
+def test_faint_face_is_refused_not_guessed():
+    """A face whose grain barely exceeds the sensor noise: the finder asks for a box instead of guessing."""
+    rgb, gray, calib = analytic_photo(RECT, seed=11, grain_std=2.0)
     with pytest.raises(FaceError, match="--roi"):
         find_face(rgb, gray, calib)
 
