@@ -56,6 +56,11 @@ __all__ = ["find_coupon", "detect", "outer_radius", "arc_length_map", "STEEP_SLO
 COARSE_PX_PER_MM = 4.0
 EDGE_PRESENCE = 3.0  # a long edge is there while it differs 3x more than the table varies
 END_LEVEL = 0.25  # the coupon ends where its edges fade below this share of their contrast mid-coupon
+#: ... and, once found, lasts down to this share of that level's excess (hysteresis), but
+#: never below this many times the table's own variation
+END_LOW_SHARE = 0.4
+END_LOW_RATIO = 1.4
+END_BOTH_RATIO = 1.2
 EDGE_PX_PER_MM = 8.0  # resolution of the pass that places the long edges
 WIDTH_RANGE_MM = (5.0, 70.0)  # coupons accepted (typical 10-40 mm)
 LENGTH_RANGE_MM = (15.0, 320.0)  # visible length accepted (typical 40-150 mm)
@@ -838,10 +843,13 @@ def _visible_extent(sub: np.ndarray, *, px_per_mm: float, m_y: float, width: flo
     mid_edge = float(np.median(c_edge[c0:c1]))
     if mid_edge >= EDGE_PRESENCE:
         # the long edges decide where there is coupon (a shadow or the card beside the
-        # strip fools the colour); it lasts while both edges stand out of the table's variation
-        c = c_edge
-        out_lvl = 1.0
-        level = 1.0 + min(END_LEVEL * (mid_edge - 1.0), EDGE_PRESENCE - 1.0)
+        # strip fools the colour).  Both edges standing out (the weaker one) keeps a shadow
+        # running on along one edge out; their mean keeps the coupon going where one edge
+        # fades into a table of its own shade towards a dark end.  The profile is the sum
+        c = c_edge + 0.5 * (ratios[0] + ratios[1])
+        level = 2.0 * (1.0 + min(END_LEVEL * (mid_edge - 1.0), EDGE_PRESENCE - 1.0))
+        low = 2.0 * max(END_LOW_RATIO, 1.0 + END_LOW_SHARE * (0.5 * level - 1.0))
+        both = c_edge >= END_BOTH_RATIO  # and the weaker edge is still above the table's variation
     else:
         c = ndi.uniform_filter1d(c_mid, max(3, int(0.5 * e)))
         mid = float(np.median(c[c0:c1]))
@@ -849,11 +857,14 @@ def _visible_extent(sub: np.ndarray, *, px_per_mm: float, m_y: float, width: flo
         if mid - out_lvl < 6.0:
             return m_x * e, (m_x + L) * e, False
         level = out_lvl + END_LEVEL * (mid - out_lvl)
+        low = out_lvl + END_LOW_SHARE * (level - out_lvl)
+        both = np.ones(w, bool)
     if card is not None:
         c = np.where(card[int(m_y * e) : int((m_y + width) * e) + 1].mean(axis=0) > 0.2, 0.0, c)  # the card is not coupon
-    below = c < level
-    run = max(2, int(2.0 * e))  # a gap of 2 mm ends the coupon; shorter dips are highlights
-    i, j = _longest_run(~below, gap=run, prefer=(c0 + c1) // 2, weight=c)
+    # hysteresis: the coupon is the run above the low level (gaps under 2 mm closed: a
+    # highlight) that holds the middle, or else the one standing out most above the level
+    run = max(2, int(2.0 * e))
+    i, j = _longest_run((c >= low) & both, gap=run, prefer=(c0 + c1) // 2, weight=np.where(c >= level, c, 0.0))
     if j - i < run:
         return 0.0, -1.0, False  # nothing stands out: the caller says so
     ok = i > 0 and j < w - 1
