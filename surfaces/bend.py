@@ -61,6 +61,10 @@ END_LEVEL = 0.25  # the coupon ends where its edges fade below this share of the
 END_LOW_SHARE = 0.4
 END_LOW_RATIO = 1.4
 END_BOTH_RATIO = 1.2
+#: When the coupon runs on to the end of the strip looked at, look this much further
+#: (or half the coarse length), at most this many times.
+EXTEND_MM = 20.0
+EXTEND_TRIES = 2
 EDGE_PX_PER_MM = 8.0  # resolution of the pass that places the long edges
 WIDTH_RANGE_MM = (5.0, 70.0)  # coupons accepted (typical 10-40 mm)
 LENGTH_RANGE_MM = (15.0, 320.0)  # visible length accepted (typical 40-150 mm)
@@ -713,10 +717,23 @@ def find_coupon(
 
     # along the coupon: the visible extent is where the strip differs from the table right
     # beside it (colour, texture)
-    A2 = _face.face_frame(mid_mm, axis2, (ox, -width / 2 - m_y), px_per_mm=e)
-    sub2 = _face.warp_to_face(rgb, calib.H, A2, (h, w))
-    card2 = _card_in_frame(card_map, A2, (h, w))
-    x_lo, x_hi, ok_ends = _visible_extent(sub2, px_per_mm=e, m_y=m_y, width=width, m_x=m_x, L=L, card=card2)
+    # beside it (colour, texture); when the coupon runs on to the edge of the strip looked
+    # at (the coarse region missed a dark flank), look further, but never past the photo
+    more_lo = more_hi = 0.0
+    for _ in range(1 + EXTEND_TRIES):
+        o2 = ox - more_lo
+        w2 = int(math.ceil((L + 2 * m_x + more_lo + more_hi) * e))
+        A2 = _face.face_frame(mid_mm, axis2, (o2, -width / 2 - m_y), px_per_mm=e)
+        sub2 = _face.warp_to_face(rgb, calib.H, A2, (h, w2))
+        card2 = _card_in_frame(card_map, A2, (h, w2)) | ~_in_photo(gray.shape, calib.H, A2, (h, w2))
+        x_lo, x_hi, ok_ends = _visible_extent(sub2, px_per_mm=e, m_y=m_y, width=width, m_x=m_x + more_lo, L=L, card=card2)
+        grow_lo = x_hi > x_lo and x_lo <= 1.0 and not card2[:, 0].mean() > 0.5
+        grow_hi = x_hi > x_lo and x_hi >= w2 - 2.0 and not card2[:, -1].mean() > 0.5
+        if not (grow_lo or grow_hi):
+            break
+        more_lo += max(EXTEND_MM, 0.5 * L) if grow_lo else 0.0
+        more_hi += max(EXTEND_MM, 0.5 * L) if grow_hi else 0.0
+    ox = o2
     if not x_hi > x_lo:
         raise FaceError(
             "the bend coupon's ends cannot be told from the table beside it: give --roi X0,Y0,X1,Y1 "
@@ -784,6 +801,15 @@ def _outer_step(p: np.ndarray, lo: int, hi: int, *, outward: int) -> float:
     den = a - 2 * b + c
     off = 0.5 * (a - c) / den if abs(den) > 1e-9 else 0.0
     return j + float(np.clip(off, -0.5, 0.5))
+
+
+def _in_photo(photo_shape, H: np.ndarray, A_frame: np.ndarray, shape) -> np.ndarray:
+    """True where a frame's pixels fall inside the photo (not on the warp's replicated border)."""
+    ones = np.ones(photo_shape[:2], np.uint8)
+    M = np.linalg.inv(H) @ A_frame  # frame px -> photo px
+    out = cv2.warpPerspective(ones, M, (int(shape[1]), int(shape[0])), flags=cv2.INTER_NEAREST | cv2.WARP_INVERSE_MAP,
+                              borderMode=cv2.BORDER_CONSTANT, borderValue=0)
+    return out > 0
 
 
 def _card_in_frame(card_map, A_frame: np.ndarray, shape) -> np.ndarray:
