@@ -15,18 +15,35 @@ How the marker is measured
    most ``DETECT_LONG_SIDE_PX``; when nothing is found there, the search is
    repeated at full resolution (small markers) and at a long side near half
    of ``DETECT_LONG_SIDE_PX`` (big, blurred markers).
-2. **Sub-pixel outline.**  On the full-resolution grey image, grey-level
-   profiles are sampled across each of the four outer edges of the black
-   square (0.6 module either side of the edge, every pixel along it, the ends
-   near the corners left out).  The edge position on each profile is found
-   by the area (first-moment) rule: the distance from the profile's outer end
-   minus the integral of the normalised profile, which is unbiased for any
-   symmetric blur.  A straight line is fitted to each side's edge points
-   (total least squares, outliers beyond 3 robust sigma removed, e.g. glare)
-   and adjacent lines are intersected: the four corners.  This uses hundreds
-   of edge points per side instead of the few pixels a corner detector sees.
-3. **Homography.**  The four corners give the photo -> plane map of that
-   marker (plane origin at its top-left corner, X right, Y down, mm).  With
+2. **Module grid.**  Every black/white boundary of the marker's bit
+   pattern (OpenCV's own, ``generateImageMarker``) lies on a known grid
+   line U = k or V = k (in modules): the outer square and every edge
+   between data modules, 300-900 points spread over the whole marker.  On
+   the full-resolution grey image a profile is sampled across each
+   module-long segment, about one per pixel, 0.42 module either side (so
+   that only that edge is inside it; ends where another edge meets are
+   left out).  The edge on each profile is placed by the area
+   (first-moment) rule and then, where the blur is resolved (sigma of
+   0.8 px or more), by the first moment of the profile's slope under a
+   Gaussian taper of the blur's width centred on it (a matched filter:
+   less noise from the window's ends; both unbiased for symmetric blur).
+   One Gauss-Newton fit then puts every point on its line: the 8
+   homography parameters and one *edge bias*, the shift of every edge from
+   black towards white that a tone curve, clipped white paper or ink spread
+   give a blurred edge (edges of both polarities lie on the same lines
+   inside the marker, so the bias separates from the scale; the outline
+   alone cannot tell them apart).  Points beyond 3.5 robust sigma are
+   dropped (glare, specks).  The corners follow from the fitted homography.
+   Starting from the detector's corners; if the grid fit fails (tiny,
+   occluded or badly blurred marker), straight lines are fitted to the four
+   outer sides instead (profiles across each side, the light of white inner
+   modules modelled, total least squares, adjacent lines intersected) and
+   the grid fit is tried again from those corners.
+3. **Homography.**  Detections on one spot are merged, and when some
+   marker's grid fit succeeded, detections whose grid fit failed are
+   dropped with a warning (a square in the background texture decoded with
+   error correction shows no printed pattern and quiet zone).  The four
+   corners give the photo -> plane map of that marker (plane origin at its top-left corner, X right, Y down, mm).  With
    several markers, each one's scale is compared at a common point; when they
    agree (within ``CONSISTENCY_WARN_PCT`` or three times their own combined
    uncertainty, whichever is larger), all corners are fitted together: one
@@ -39,13 +56,19 @@ How the marker is measured
    likely printed at different sizes.
 4. **Uncertainty** (1-sigma, percent) combines
 
-   * corner localisation: sigma_c per corner coordinate from the line-fit
-     residuals (``2 * rms / sqrt(n_eff)`` for a line of n points, n_eff
-     discounting correlated residuals such as glare trends) with a floor of
-     ``CORNER_FLOOR_PX`` plus ``CORNER_FLOOR_MODULE`` of a module (JPEG,
-     edge bleed, lens blur), propagated by a seeded Monte-Carlo of the whole
-     fit to the point where the scale is used (the face), so the growth of
-     the error with distance from the marker is included;
+   * corner localisation: from the grid fit, the covariance of its
+     homography (cluster-robust over segments: points along one segment
+     share JPEG blocks and paper grain) plus the effect of an unmodelled
+     change of the edge bias across the marker (``EDGE_BIAS_GRADIENT_PX``),
+     turned into a covariance of the eight corner coordinates; floors
+     ``GRID_FLOOR_PX`` and ``GRID_FLOOR_MODULE``.  For an outline-only fit,
+     sigma_c per corner coordinate from the line-fit residuals
+     (``2 * rms / sqrt(n_eff)``, n_eff discounting correlated residuals)
+     with a floor of ``CORNER_FLOOR_PX`` plus ``CORNER_FLOOR_MODULE`` of a
+     module.  Either is propagated by a seeded Monte-Carlo of the whole fit
+     (correlated corner draws) to the point where the scale is used (the
+     face), so the growth of the error with distance from the marker is
+     included;
    * the printing scale of the card: ``PRINT_SCALE_PCT`` (office printers at
      100 % are typically within +/- 0.5 %, from memory; the card's 50 mm
      check square catches worse prints).
@@ -132,6 +155,9 @@ _GRID_END_MARGIN = 0.25
 _GRID_SAMPLES = 33
 #: Smallest module (px) the grid fit is tried on: below it the profiles hold too few pixels.
 _GRID_MIN_MODULE_PX = 6.0
+#: Taper of the edge estimate (blur sigmas), used from a blur sigma of this many px.
+_GRID_TAPER = 1.0
+_GRID_TAPER_MIN_SIGMA_PX = 0.8
 #: 1-sigma of an unmodelled change of the edge bias from the marker's centre
 #: to its sides (px): overexposed paper under a brightness gradient clips more
 #: on one side.  Enters the grid fit's covariance, not the fit.
@@ -1180,7 +1206,11 @@ def _grid_fit(gray: np.ndarray, marker_id: int, corners0: np.ndarray, *, passes:
     (U = k or V = k, in modules).  Grey-level profiles across every
     module-long segment (``_GRID_HALF_MODULES`` either side, so that only
     this one edge is inside the window) give sub-pixel edge points by the
-    area rule; then one Gauss-Newton fit puts every point on its line:
+    area rule, refined (blur sigma >= ``_GRID_TAPER_MIN_SIGMA_PX``) by the
+    slope's first moment under a Gaussian taper of ``_GRID_TAPER`` blur
+    sigmas about the edge (the matched filter of a Gaussian edge; below
+    that blur the pixel grid leaves the slope lopsided and the plain area
+    rule is exact); then one Gauss-Newton fit puts every point on its line:
     8 homography parameters plus one *edge bias* ``b`` (px), the shift of
     every edge from black towards white that a tone curve, overexposure or
     ink spread give a blurred edge.  Edges of both polarities lie on the
@@ -1276,6 +1306,16 @@ def _grid_fit(gray: np.ndarray, marker_id: int, corners0: np.ndarray, *, passes:
             sel = ref & (np.abs(half - hh) < 0.2 * hh + 0.5)
             width = _quartile_width(s_unit * hh, np.nanmedian(norm[sel], axis=0))
             sigma_blur = float(np.clip(width / 1.349, 0.3, 0.3 * module)) if np.isfinite(width) else 0.3 * module
+        if _GRID_TAPER and sigma_blur is not None and sigma_blur >= _GRID_TAPER_MIN_SIGMA_PX:
+            # tapered first moment of the gradient about the area-rule edge (less noise from the window's ends)
+            uc = 0.5 * (u[:, 1:] + u[:, :-1])
+            grad = np.diff(norm, axis=1)
+            taper = _GRID_TAPER * sigma_blur
+            for _ in range(3):
+                wgt = np.exp(-0.5 * ((uc - e[:, None]) / taper) ** 2)
+                m0 = np.sum(wgt * grad, axis=1)
+                e_new = np.sum(wgt * grad * uc, axis=1) / np.where(m0 > 0.2, m0, 1.0)
+                e = np.where(m0 > 0.2, e_new, e)
         pts = q0 + e[:, None] * dirn + off
         fit = _grid_solve(pts, good, on_u, kk, pol, nrm, mod_n, seg, G, bias, module, P)
         if fit is None:
