@@ -127,6 +127,8 @@ def label_candidates(face: dict) -> tuple[list, list]:
         polys.append((k, cv2.dilate(m, np.ones((2 * grow + 1, 2 * grow + 1), np.uint8))))
     X, y = [], []
     for d in dets:
+        if d.features["source"] == "ridge" and d.features["contrast"] <= 0.0:
+            continue  # ruled out before the model (segment: brighter than its ring)
         c, r = int(round(d.features["cx_px"])), int(round(d.features["cy_px"]))
         label = "none"
         if 0 <= r < h and 0 <= c < w:

@@ -40,6 +40,7 @@ import numpy as np
 from scipy import ndimage as ndi
 from skimage import measure as skm
 
+from .model import SurfacesError
 from .shapes import polygon_features
 
 BACKGROUND_MM = 6.0  # window of the local background median
@@ -154,6 +155,8 @@ class _Maps:
     mm: float
     photo_mm: float  # photo px/mm
     seed_level: float = SEED_LEVEL
+    hp2: np.ndarray | None = None  # squared detail finer than the grain scale (unblurred)
+    hp_px: float = 1.0  # the grain scale in face px
 
 
 def _maps(rgb, mask, mm, photo_mm) -> _Maps:
@@ -162,7 +165,10 @@ def _maps(rgb, mask, mm, photo_mm) -> _Maps:
     gs = cv2.GaussianBlur(g, (0, 0), max(0.05, 0.7 * resolve) * mm)
     bg = background(g, px_per_mm=mm)
     rel = gs / np.maximum(bg, 1.0)
-    tex = texture_energy(g, px_per_mm=mm, scale_mm=max(0.08, 1.2 * resolve))
+    grain_mm = max(0.08, 1.2 * resolve)
+    tex = texture_energy(g, px_per_mm=mm, scale_mm=grain_mm)
+    hp_px = max(grain_mm * mm, 0.7)
+    hp = g - cv2.GaussianBlur(g, (0, 0), hp_px)
     tex_med = float(np.median(tex[mask][:: max(1, int(mask.sum()) // 100000)])) or 1.0
     lab = cv2.cvtColor(rgb, cv2.COLOR_RGB2Lab).astype(np.float32)
     lab = cv2.GaussianBlur(lab, (0, 0), max(0.08, resolve) * mm)
@@ -179,7 +185,7 @@ def _maps(rgb, mask, mm, photo_mm) -> _Maps:
     spread = float(np.median(dk) + 6.0 * _robust_sigma(dk)) if dk.size else 1.0 - SEED_LEVEL
     seed_level = 1.0 - min(max(spread, 1.0 - SEED_MAX_LEVEL), 1.0 - SEED_LEVEL)
     return _Maps(g, gs, bg, rel, tex, tex_med, lab, lab_med, ridge, ridge_med, ridge_sig, np.hypot(gx, gy), mask, mm,
-                 photo_mm, seed_level)  # fmt: skip
+                 photo_mm, seed_level, hp * hp, hp_px)  # fmt: skip
 
 
 def segment(
@@ -210,8 +216,9 @@ def segment(
     test : str
         ``fillet-break`` or ``nick-break`` (bend faces: :mod:`surfaces.bend`).
     keep_all : bool
-        Return every candidate, including those judged ``none`` (for
-        fitting and inspecting the region model).
+        Return every candidate, including those judged ``none`` and the
+        duplicates one imperfection gives (for fitting and inspecting the
+        region model).
 
     Returns
     -------
@@ -219,11 +226,7 @@ def segment(
     """
     from .regionmodel import MODEL_PATH, classify
 
-    if not (px_per_mm > 0 and math.isfinite(px_per_mm)):
-        raise ValueError(f"px_per_mm must be a positive number, got {px_per_mm!r}")
-    h, w = rgb.shape[:2]
-    if mask is None:
-        mask = np.ones((h, w), bool)
+    rgb, mask = _check_input(rgb, mask, px_per_mm=px_per_mm, photo_px_per_mm=photo_px_per_mm)
     photo_mm = float(photo_px_per_mm or px_per_mm)
     M = _maps(rgb, mask, px_per_mm, photo_mm)
     cands = _dark_candidates(M) + _ridge_candidates(M)
@@ -237,6 +240,10 @@ def segment(
             out.append(c)
             continue
         kind, conf, probs = classify(f)
+        if f["source"] == "ridge" and f["contrast"] <= 0.0:
+            # a dark line must be darker than what surrounds it: this is the ring a ridge
+            # filter draws around a bright speck
+            kind, conf = "none", 1.0
         c.kind, c.confidence, c.probs = kind, conf, probs
         if kind == "pore":
             c.iso6520 = ISO6520["pore"] if f["aspect"] < 1.5 else ISO6520["pore-elongated"]
@@ -250,9 +257,36 @@ def segment(
         if kind == "none" or f["greatest_mm"] < max(min_size_mm, SPECK_MM, min_resolvable):
             continue
         out.append(c)
-    out = _dedupe(out)
+    if not keep_all:
+        out = _dedupe(out)
     out.sort(key=lambda d: (d.features["cx_px"], d.features["cy_px"]))
     return out
+
+
+class SegmentError(SurfacesError):
+    """The face image or the options given to :func:`segment` cannot be used."""
+
+
+def _check_input(rgb, mask, *, px_per_mm, photo_px_per_mm):
+    """The face image as (h, w, 3) uint8 and its mask as (h, w) bool, or a one-line :class:`SegmentError`."""
+    for name, v in (("px_per_mm", px_per_mm), ("photo_px_per_mm", photo_px_per_mm)):
+        if v is None and name == "photo_px_per_mm":
+            continue
+        if isinstance(v, bool) or not isinstance(v, (int, float, np.integer, np.floating)) or not (math.isfinite(v) and v > 0):
+            raise SegmentError(f"{name} must be a positive number of pixels per millimetre, got {v!r}")
+    a = np.asarray(rgb)
+    if a.ndim != 3 or a.shape[2] != 3 or min(a.shape[:2]) < 3:
+        raise SegmentError(f"the face image must be an (h, w, 3) RGB array at least 3 px each way, got shape {a.shape}")
+    if a.dtype != np.uint8:
+        if np.issubdtype(a.dtype, np.floating) and not np.isfinite(a).all():
+            raise SegmentError("the face image holds NaN or infinite values: give 8-bit RGB pixels (uint8)")
+        raise SegmentError(f"the face image must be 8-bit RGB (uint8), got {a.dtype}: convert it first")
+    if mask is None:
+        return a, np.ones(a.shape[:2], bool)
+    m = np.asarray(mask)
+    if m.shape != a.shape[:2]:
+        raise SegmentError(f"the face mask has shape {m.shape}, the face image {a.shape[:2]}: they must match")
+    return a, m.astype(bool)
 
 
 # --------------------------------------------------------------------------
@@ -433,6 +467,7 @@ def _trace_dark(i, sl, lab, M: _Maps, *, speck_px: float, max_parts: int = 6) ->
         if keep.size == 0:
             break
         region = np.isin(rl, keep)
+        left &= ~region  # what this part took (before opening) is done with
         region = _open_at(region, photo_px)
         region = ndi.binary_fill_holes(region) & pmask
         left &= ~(cv2.dilate(region.astype(np.uint8), np.ones((3, 3), np.uint8)) > 0)
@@ -525,7 +560,13 @@ def _appearance(f: dict, reg: np.ndarray, sl, M: _Maps, *, source: str, ring_lev
     if not inner.any():
         inner = reg
     tex = M.tex[sl]
-    tex_in = _quantile(tex[inner], 0.5) / M.tex_med
+    # grain inside: the fine detail away from the outline (whose own step would count otherwise)
+    k = int(math.ceil(1.5 * M.hp_px))
+    deep = cv2.erode(reg8, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * k + 1, 2 * k + 1)),
+                     borderType=cv2.BORDER_CONSTANT, borderValue=0) > 0  # fmt: skip
+    if deep.sum() < 3:
+        deep = inner
+    tex_in = math.sqrt(float(M.hp2[sl][deep].mean())) / M.tex_med
     tex_ring = _quantile(tex[ring], 0.5) / M.tex_med if ring.any() else 1.0
     span = max(b - core, 1.0)
     edge = float(M.grad[sl][rim].mean()) * mm / span if rim.any() else 0.0
@@ -571,12 +612,15 @@ def _dedupe(dets: list[Detection]) -> list[Detection]:
 
     Two outlines that share more than :data:`DUPLICATE_OVERLAP` of the
     smaller one's area describe the same imperfection: the one kept is the
-    dark-region outline for a pore or inclusion (a ridge filter answers on
-    the rim of a cavity, not its opening), else the more confident one.  A
+    longest for a crack, the dark-region outline for a pore or inclusion (a
+    ridge filter answers on the rim of a cavity, not its opening), else the
+    more confident one.  A
     detection whose centre lies inside a larger one kept is dropped as well.
     """
 
     def rank(d):
+        if d.kind == "crack":  # pieces of a crack: the longest view of it
+            return (True, d.features["greatest_mm"])
         traced = d.features.get("source") == "dark" and d.kind in ("pore", "inclusion")
         return (traced, d.confidence)
 
@@ -591,11 +635,12 @@ def _dedupe(dets: list[Detection]) -> list[Detection]:
         for j, k in enumerate(keep):
             if not _boxes_touch(boxes[id(d)], boxes[id(k)]):
                 continue
-            if cv2.pointPolygonTest(k.contour.astype(np.float32).reshape(-1, 1, 2), c, False) >= 0:
-                drop = True
-                break
-            if _overlap(d, k, boxes[id(d)], boxes[id(k)]) > DUPLICATE_OVERLAP:
-                if rank(d) > rank(k):
+            inside = cv2.pointPolygonTest(k.contour.astype(np.float32).reshape(-1, 1, 2), c, False) >= 0
+            if inside or _overlap(d, k, boxes[id(d)], boxes[id(k)]) > DUPLICATE_OVERLAP:
+                # of two views of one imperfection (sizes alike) keep the better; a small one
+                # inside a much larger one (a pore in an unfused band) goes with the larger
+                alike = d.features["area_mm2"] > 0.3 * k.features["area_mm2"]
+                if alike and rank(d) > rank(k):
                     keep[j] = d
                 drop = True
                 break
