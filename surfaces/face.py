@@ -5,13 +5,25 @@ The face is located in two passes:
 1. **Coarse**, on a copy of the photo warped into the marker plane at
    ``COARSE_PX_PER_MM``: a texture-energy map (the granular fracture surface
    is rougher at the 0.1-0.5 mm scale than plate, card, table and shadow),
-   with the reference card masked out and saturated (rusty) areas damped.
-   The best elongated component gives the face's centre, axis and rough size.
-2. **Fine**, on the face rectified at :data:`surfaces.model.WORK_PX_PER_MM`
-   with a margin: texture profiles across and along the face give its edges
-   to a fraction of a working pixel (half-way between the inside and outside
-   texture levels).  Medians over the face's length make the edges robust to
-   an untextured unfused band along part of the root.
+   with the reference card masked out, oriented texture (brushing, ripples,
+   grid lines) and saturated (rusty) areas damped.  Candidate regions from a
+   ladder of thresholds must stand out from a ring around them; a region
+   holding a much more textured one is the specimen, not the face.
+2. **Fine**, on the face rectified at ``FINE_PX_PER_MM`` with a margin, with
+   texture scales set by what the photo resolves at the face: the ends and
+   long edges are where the texture profile rises to half-way between the
+   outside and inside levels, walking in from outside, snapped to the
+   brightness step; each long edge is a line whose slope comes from
+   stretches along the face (a tapered face keeps its taper) and which a
+   smooth band along the root does not pull inwards.  The frame turns to the
+   edges' direction when they lean.
+
+The result is the outline (``Face.mask``, ``Face.area_mm2``), not its
+bounding rectangle.  An automatic search that is unsure (faint outline, an
+outline much smaller than the textured region it came from, a face wider
+than the test allows, a face running out of the photo) raises
+:class:`~surfaces.model.FaceError` asking for ``--roi`` rather than measure
+the wrong region.
 
 Every length here is in millimetres; pixels appear only when warping.
 """
@@ -29,7 +41,6 @@ from .model import WORK_PX_PER_MM, Calibration, Face, FaceError
 COARSE_PX_PER_MM = 4.0
 #: Largest plane extent searched around the photo's footprint (mm).
 MAX_SEARCH_MM = 700.0
-_DEBUG = None
 
 
 # --------------------------------------------------------------------------
@@ -157,10 +168,6 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
     e = energy
     e[~allowed] = 0
     best = _best_component(e, allowed, s)
-    if _DEBUG is not None:
-        _DEBUG.update(e=e, lo=lo, val=val, allowed=allowed)
-        if best is not None:
-            _DEBUG["best"] = best[0]
     if best is None:
         raise FaceError(
             "could not find the face automatically (no region stands out as a fracture face): "
@@ -255,9 +262,6 @@ def _best_component(e: np.ndarray, allowed: np.ndarray, s: float):
             for d in cands
         )
     pool = [c for c in cands if not c["holds"]]
-    if _DEBUG is not None:
-        _DEBUG["cands"] = [(c["t"], round(c["area"] / s**2), round(c["inside"], 2), round(c["contrast"], 2),
-                            round(c["fill"], 2), round(c["score"], 2), c["holds"]) for c in cands]
     if not pool:
         return None
     c = max(pool, key=lambda c: c["score"])
@@ -375,67 +379,6 @@ def _otsu(vals: np.ndarray) -> float:
 # fine edges
 
 
-def _edge_from_profile(profile: np.ndarray, inside: slice, outside_lo: slice, outside_hi: slice, *, persist: int = 1):
-    """Sub-pixel positions where ``profile`` crosses half-way inside/outside, each side.
-
-    Walking out from the centre, a crossing counts only when the profile then
-    stays on the outside level for ``persist`` samples, so a short internal
-    dip (a smooth unfused patch across the face) is not taken for an end.
-    """
-    p = np.asarray(profile, dtype=np.float64)
-    inner = float(np.median(p[inside]))
-    out_l = float(np.median(p[outside_lo])) if p[outside_lo].size else inner * 0.3
-    out_h = float(np.median(p[outside_hi])) if p[outside_hi].size else inner * 0.3
-    c = (inside.start + inside.stop) // 2
-
-    def cross(level, rng):
-        idx = list(rng)
-        for k in range(1, len(idx)):
-            a, b = idx[k - 1], idx[k]
-            if p[a] >= level > p[b]:
-                after = [p[j] for j in idx[k : k + persist]]
-                if len(after) < persist or max(after) < level:
-                    return a + (level - p[a]) / (p[b] - p[a]) * (b - a)
-        return None
-
-    lvl_l = 0.5 * (inner + out_l)
-    lvl_h = 0.5 * (inner + out_h)
-    lo_edge = cross(lvl_l, range(c, -1, -1))
-    hi_edge = cross(lvl_h, range(c, len(p)))
-    contrast = min(inner - out_l, inner - out_h) / max(inner, 1e-6)
-    return lo_edge, hi_edge, contrast
-
-
-def _ends_from_profile(profile: np.ndarray, inside: slice, outside_lo: slice, outside_hi: slice, *, persist: int):
-    """Face ends along the weld, found walking inwards from each outer margin.
-
-    The face may lose its texture in the middle (glare, a long unfused
-    stretch), so the inside level is an upper quantile of the central part and
-    each end is the outermost place where the profile rises above half-way
-    and stays there for ``persist`` samples.
-    """
-    p = np.asarray(profile, dtype=np.float64)
-    inner = float(np.percentile(p[inside], 75))
-    out_l = float(np.median(p[outside_lo])) if p[outside_lo].size else inner * 0.3
-    out_h = float(np.median(p[outside_hi])) if p[outside_hi].size else inner * 0.3
-
-    def first_up(level, idx):
-        for k in range(1, len(idx)):
-            a, b = idx[k - 1], idx[k]
-            if p[a] < level <= p[b]:
-                after = [p[j] for j in idx[k : k + persist]]
-                if len(after) >= persist and min(after) >= level:
-                    return a + (level - p[a]) / (p[b] - p[a]) * (b - a)
-        return None
-
-    lo = first_up(0.5 * (inner + out_l), list(range(0, len(p))))
-    hi = first_up(0.5 * (inner + out_h), list(range(len(p) - 1, -1, -1)))
-    contrast = min(inner - out_l, inner - out_h) / max(inner, 1e-6)
-    if lo is not None and hi is not None and hi - lo < persist:
-        return None, None, contrast
-    return lo, hi, contrast
-
-
 def _snap_to_step(profile: np.ndarray, pos: float, *, win: int) -> float:
     """Move an edge estimate to the strongest brightness step within ``win`` samples.
 
@@ -460,12 +403,16 @@ def _snap_to_step(profile: np.ndarray, pos: float, *, win: int) -> float:
     return float(k + np.clip(off, -0.5, 0.5))
 
 
+#: widest face (mean extent across the weld, mm) accepted per test: a fillet-break face spans the
+#: throat and a nick-break face the wall, both well under these on coupons that are broken by hand
+#: or in a press (common practice); anything wider is the plate or the table
+MAX_FACE_WIDTH_MM = {"fillet-break": 30.0, "nick-break": 50.0}
 #: an automatic outline covering less than this share of the coarse region's rectangle is refused
 MIN_OUTLINE_SHARE = 0.3
 #: below this outline confidence an automatic search gives up (asks for --roi) ...
-MIN_AUTO_CONFIDENCE = 0.4
+MIN_AUTO_CONFIDENCE = 0.55
 #: ... and below this one the face carries a warning to check the outline
-WARN_CONFIDENCE = 0.55
+WARN_CONFIDENCE = 0.7
 #: resolution of the fine pass that places the face's outline (mm pitch 0.1)
 FINE_PX_PER_MM = 10.0
 #: length of the stretches along the weld whose long edges are located separately
@@ -565,9 +512,6 @@ def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: f
     xs_mm = to_x(xb)
     lo_mm, hi_mm = to_y(ylo_b), to_y(yhi_b)
     outline = np.r_[np.c_[xs_mm, lo_mm], np.c_[xs_mm[::-1], hi_mm[::-1]]]
-    if _DEBUG is not None:
-        _DEBUG.update(fe=e, fg=g, fb=(x_lo, x_hi, y_lo, y_hi), bins=(xb, ylo_b, yhi_b), prof_x=prof_x, prof_y=prof_y,
-                      prof_iy=np.median(gi[:, core_c], axis=1))
     slope = 0.5 * ((ylo_b[-1] - ylo_b[0]) + (yhi_b[-1] - yhi_b[0])) / max(xb[-1] - xb[0], 1e-6)
     return outline, c_x, c_y, warnings, math.degrees(math.atan(slope))
 
@@ -637,8 +581,6 @@ def find_face(
             continue
         break
     warnings.extend(fine_notes)
-    if _DEBUG is not None:
-        _DEBUG["coarse_fine"] = (L0, W0, float(hi_o[0] - lo_o[0]), float(hi_o[1] - lo_o[1]))
     fx0, fx1 = float(lo_o[0]), float(hi_o[0])
     fy0, fy1 = float(lo_o[1]), float(hi_o[1])
     length, width = fx1 - fx0, fy1 - fy0
@@ -648,6 +590,13 @@ def find_face(
     if width > length:
         warnings.append("the face is wider than long: check the weld axis on the overlay")
     conf = float(np.clip(min(c_x, c_y) * 1.5, 0.05, 1.0)) * (0.5 + 0.5 * fill)
+    wide = MAX_FACE_WIDTH_MM.get(test)
+    if wide is not None and area / length > wide:
+        msg = (f"the face found is {area / length:.0f} mm across, more than a {test} face spans "
+               f"(about {wide:.0f} mm at most): it is likely the plate or the table")
+        if roi is None:
+            raise FaceError(msg + ": give --roi X0,Y0,X1,Y1 around the face")
+        warnings.append(msg + ": check the box")
     if roi is None and area < MIN_OUTLINE_SHARE * L0 * W0:
         # the outline and the textured region it came from disagree: one of them is wrong
         raise FaceError(
@@ -677,7 +626,19 @@ def find_face(
     mask = mask > 0
     poly_px = apply_h(np.linalg.inv(calib.H) @ Af, oc)
     Hp, Wp = gray.shape
-    if np.any(poly_px < -2) or np.any(poly_px[:, 0] > Wp + 1) or np.any(poly_px[:, 1] > Hp + 1):
+    frame = np.array([[-0.5, -0.5], [Wp - 0.5, -0.5], [Wp - 0.5, Hp - 0.5], [-0.5, Hp - 0.5]], np.float32)
+    if np.all(np.isfinite(poly_px)):
+        seen, _ = cv2.intersectConvexConvex(frame, cv2.convexHull(poly_px.astype(np.float32)))
+        whole = abs(cv2.contourArea(cv2.convexHull(poly_px.astype(np.float32))))
+    else:
+        seen, whole = 0.0, 1.0
+    if seen < 0.999 * whole:
+        if roi is None and seen < 0.9 * whole:
+            # a face running well out of the frame is more likely the table or plate than a face
+            raise FaceError(
+                f"the face found runs out of the photo ({100 * (1 - seen / max(whole, 1e-9)):.0f} % of it outside): "
+                "retake with the whole face in frame, or give --roi X0,Y0,X1,Y1 around the face"
+            )
         warnings.append("part of the face lies outside the photo: retake with the whole face in frame")
     return Face(
         image=img,
@@ -717,8 +678,6 @@ def _edges_by_stretch(e, gi, x_lo, x_hi, y_lo, y_hi, *, out_lo, out_hi, q, snap)
     -------
     (x, y_lo, y_hi) : three (n,) arrays, columns and rows of the fine image.
     """
-    from .geometry import fit_line_tls
-
     h, w = e.shape
     W = y_hi - y_lo
     a_start = max(0, int(math.ceil(x_lo)))
