@@ -436,13 +436,15 @@ def _ruler_scale(ruler, w: int, h: int) -> Calibration:
 # =========================================================================== from markers
 
 
-def _printed_hits(hits: list[MarkerHit]) -> tuple[list[MarkerHit], list[str]]:
+def _printed_hits(hits: list[MarkerHit]) -> tuple[list[MarkerHit], list[str]]:  # noqa: C901
     """Drop detections that cannot be the printed marker(s); returns the kept hits and a warning for each drop.
 
     * Two detections on the same spot (their centres less than half the
       larger side apart, whatever ids they decoded as) are one marker: the
       better measured one is kept (grid fit before outline, then more edge
       points, then the larger side).
+    * A detection whose edges neither fit could find (big enough for both)
+      is dropped; if every detection is like that the photo is refused.
     * When some detection's module-grid fit succeeded, a detection whose
       grid fit failed is not kept: a printed marker of the same card shows
       every edge of its bit pattern with the quiet zone around it, while a
@@ -461,6 +463,20 @@ def _printed_hits(hits: list[MarkerHit]) -> tuple[list[MarkerHit], list[str]]:
         if twin:
             continue  # the same marker seen twice: nothing to warn about
         kept.append(i)
+    unmeasured = [i for i in kept if not getattr(hits[i], "edges_measured", True)]
+    if unmeasured and len(unmeasured) == len(kept):
+        ids = ", ".join(str(hits[i].marker_id) for i in unmeasured)
+        raise CalibrationError(
+            f"marker id {ids} was found but its edges could not be measured (a corner covered, glare on it, or no "
+            f"white margin around it): {_RETAKE}"
+        )
+    for i in unmeasured:
+        kept.remove(i)
+        x, y = hits[i].corners_px.mean(axis=0)
+        notes.append(
+            f"ignored marker id {hits[i].marker_id} at ({x:.0f}, {y:.0f}) px: its edges could not be measured "
+            "(a corner covered, glare, or no white margin); the other marker(s) were used"
+        )
     if any(getattr(hits[i], "grid_points", 0) > 0 for i in kept):
         for i in list(kept):
             hit = hits[i]
@@ -863,6 +879,8 @@ class MeasuredMarker(MarkerHit):
     edge_bias_px: float = float("nan")
     #: Edge points the grid fit used (0 without it).
     grid_points: int = 0
+    #: False when neither the grid nor the outline fit found the marker's edges (see ``_printed_hits``).
+    edges_measured: bool = True
 
 
 def _edge_points_per_side(side_px: float) -> int:
@@ -938,6 +956,11 @@ def _measure_outline(gray: np.ndarray, marker_id: int, corners: np.ndarray) -> M
         refined = _subpix_fallback(gray, corners, module0)
         rms = 0.25 * module0  # no edge fit: a pessimistic stand-in for the residual
         sigma_fit = 0.3 + 0.1 * module0  # pessimistic: OpenCV's corners are good to a fraction of a module
+        if module0 >= _GRID_MIN_MODULE_PX:
+            # big enough for both fits, yet neither found the edges: a covered corner or glare moved the
+            # detector's outline by modules, and no corner refinement can be trusted
+            return MeasuredMarker(marker_id=marker_id, corners_px=refined, side_px=side0, module_px=module0,
+                                  reproj_rms_px=float(rms), sigma_fit_px=float(sigma_fit), edges_measured=False)
     else:
         refined = refined + offset
     grid = _grid_fit(gray, marker_id, refined)

@@ -559,6 +559,30 @@ def test_detection_without_printed_pattern_is_dropped_and_a_twin_merged():
         _calibrate_from_hits([real, MeasuredMarker(**{**vars(fake), "grid_points": 400})], 20.0, centre, None, (W, H))
 
 
+def test_marker_with_a_covered_corner_is_refused_not_guessed():
+    """A grey disc over one corner moves the detector's outline by a module or more; neither edge fit
+    finds the edges, so the photo is refused with how to retake, rather than measured from guessed corners.
+    Beside a second, clean marker the covered one is ignored with a warning."""
+    G = camera_homography(K, rotation(20, 40, 10), (600, 500), 5.0)
+    img = render((W, H), [(11, 20.0, G)], blur=1.0, noise=2, jpeg=90, seed=0)
+    yy, xx = np.mgrid[0:H, 0:W]
+    corner = apply(G, [[20, 20]])[0]
+    img[np.hypot(xx - corner[0], yy - corner[1]) < 25] = 140
+    hits, _ = detect_markers(img)
+    assert len(hits) == 1 and not hits[0].edges_measured  # OpenCV still decodes it
+    with pytest.raises(CalibrationError) as ei:
+        calibrate(img)
+    msg = str(ei.value)
+    assert "could not be measured" in msg and "covered" in msg and "\n" not in msg
+    for needle in ("same height", "white margin", "glare", "--px-per-mm", "--ruler"):  # how to retake
+        assert needle in msg, needle
+    clean = detect_markers(render((W, H), [(12, 20.0, placed(G, 60, 0, 0))], blur=1.0, noise=2, seed=0))[0]
+    cal = _calibrate_from_hits([hits[0], clean[0]], 20.0, (800.0, 600.0), None, (W, H))
+    assert [m.marker_id for m in cal.markers] == [12]
+    assert any("ignored marker id 11" in w for w in cal.warnings)
+    assert abs(scale_error_pct(cal, G, 80, 50)[0]) < 0.3
+
+
 # --------------------------------------------------------------------------- figures (not a test)
 
 
