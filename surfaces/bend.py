@@ -65,6 +65,10 @@ END_BOTH_RATIO = 1.2
 #: (or half the coarse length), at most this many times.
 EXTEND_MM = 20.0
 EXTEND_TRIES = 2
+#: A pair of steps scores its weaker step times the share of the region between them to
+#: this power (the region found can run on over a lit patch of table beside the coupon,
+#: so a higher power favours pairs that span the table too).
+COVER_POWER = 1.0
 EDGE_PX_PER_MM = 8.0  # resolution of the pass that places the long edges
 WIDTH_RANGE_MM = (5.0, 70.0)  # coupons accepted (typical 10-40 mm)
 LENGTH_RANGE_MM = (15.0, 320.0)  # visible length accepted (typical 40-150 mm)
@@ -525,7 +529,7 @@ def _straight_strip(plane: np.ndarray, comp: np.ndarray, allowed: np.ndarray, *,
         lo_i = np.minimum(pk[:, None], nk[None, :])
         hi_i = np.maximum(pk[:, None], nk[None, :])
         cover = cum[np.minimum(hi_i + 1, len(cum) - 1)] - cum[lo_i]
-        sc = np.minimum(p[pk][:, None], -p[nk][None, :]) * np.clip(cover, 0, 1) ** 2
+        sc = np.minimum(p[pk][:, None], -p[nk][None, :]) * np.clip(cover, 0, 1) ** COVER_POWER
         sc = np.where((sep >= wmin) & (sep <= wmax), sc, 0.0)
         a, b = np.unravel_index(int(np.argmax(sc)), sc.shape)
         if sc[a, b] <= 0:
@@ -539,6 +543,15 @@ def _straight_strip(plane: np.ndarray, comp: np.ndarray, allowed: np.ndarray, *,
             if pair2 is not None and sc2 > best[0]:
                 best = (sc2, float(d), pair2)
         return best
+
+    yy, xx = np.mgrid[0:h, 0:w].astype(np.float32)
+
+    def band_mask(pair_info):
+        # pixels between a pair's two lines: rows lo..hi of the frame rotated by its angle
+        _, dg, (pi, pj) = pair_info
+        Rm = cv2.getRotationMatrix2D((cx, cy), dg, 1.0)
+        v = Rm[1, 0] * xx + Rm[1, 1] * yy + Rm[1, 2] + (diag - 1) / 2 - cy
+        return (v >= min(pi, pj)) & (v <= max(pi, pj))
 
     scores = []
     for deg in range(0, 180, 2):
@@ -558,8 +571,13 @@ def _straight_strip(plane: np.ndarray, comp: np.ndarray, allowed: np.ndarray, *,
         # otherwise the longer sides are the long edges.
         a = abs(first[2][0] - first[2][1])  # separation of the first pair = its width
         b = abs(other[2][0] - other[2][1])
-        va = _shading_variation(L, comp[r0:r1, c0:c1], math.radians(first[1]))
-        vb = _shading_variation(L, comp[r0:r1, c0:c1], math.radians(other[1]))
+        # the shading is read inside the rectangle both pairs bound (the region found may
+        # run on over the table beside the coupon)
+        box = band_mask(first) & band_mask(other) & comp[r0:r1, c0:c1]
+        if box.sum() < 0.25 * min(a, b) ** 2:
+            box = comp[r0:r1, c0:c1]
+        va = _shading_variation(L, box, math.radians(first[1]))
+        vb = _shading_variation(L, box, math.radians(other[1]))
         if max(va, vb) > SHADING_CLEAR_L and max(va, vb) > SHADING_RATIO * min(va, vb):
             chosen = first if va >= vb else other
         elif max(a, b) / max(min(a, b), 1) > 1.4:
