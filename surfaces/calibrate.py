@@ -279,7 +279,10 @@ def detect_markers(gray: np.ndarray) -> tuple[list[MarkerHit], int]:
 def corner_sigma_px(hit: MarkerHit) -> float:
     """1-sigma localisation error of each corner coordinate of ``hit`` (px).
 
-    From the edge fit (:class:`MeasuredMarker.sigma_fit_px`); for a bare :class:`MarkerHit` (e.g. read
+    With a module-grid fit: the largest standard deviation of its corner
+    covariance, in quadrature with ``GRID_FLOOR_PX + GRID_FLOOR_MODULE *
+    module`` (the Monte-Carlo uses the whole covariance).  Otherwise from the
+    outline fit (:class:`MeasuredMarker.sigma_fit_px`); for a bare :class:`MarkerHit` (e.g. read
     back from a record) ``2 * rms / sqrt(n / 2)`` with ``n`` edge points
     expected for its size.  Either way in quadrature with the floor
     ``CORNER_FLOOR_PX + CORNER_FLOOR_MODULE * module``.
