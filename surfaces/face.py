@@ -408,7 +408,7 @@ def _snap_to_step(profile: np.ndarray, pos: float, *, win: int) -> float:
 #: or in a press (common practice); anything wider is the plate or the table
 MAX_FACE_WIDTH_MM = {"fillet-break": 30.0, "nick-break": 50.0}
 #: an automatic outline covering less than this share of the coarse region's rectangle is refused
-MIN_OUTLINE_SHARE = 0.3
+MIN_OUTLINE_SHARE = 0.2
 #: below this outline confidence an automatic search gives up (asks for --roi) ...
 MIN_AUTO_CONFIDENCE = 0.55
 #: ... and below this one the face carries a warning to check the outline
