@@ -22,6 +22,7 @@ import json
 import os
 import pickle
 import sys
+import zlib
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
@@ -110,13 +111,21 @@ def truth_face(rgb: np.ndarray, truth: dict) -> tuple[np.ndarray, np.ndarray, fl
     return image, A, float(WORK_PX_PER_MM)
 
 
-def label_candidates(face: dict) -> tuple[list, list]:
-    """Feature vectors of every candidate on one prepared face, labelled by the truth outline holding its centre."""
+def label_candidates(face: dict, *, grey: bool = False) -> tuple[list, list]:
+    """Feature vectors of every candidate on one prepared face, labelled by the truth outline holding its centre.
+
+    ``grey``: the face as a monochrome camera gives it (the same luma in the
+    three channels), so that the model does not learn that an imperfection
+    must have some colour: real photos may have none.
+    """
     import cv2
 
     from surfaces.segment import segment
 
-    dets = segment(face["image"], face["mask"], px_per_mm=face["px_per_mm"],
+    image = face["image"]
+    if grey:
+        image = np.repeat(cv2.cvtColor(image, cv2.COLOR_RGB2GRAY)[..., None], 3, axis=2)
+    dets = segment(image, face["mask"], px_per_mm=face["px_per_mm"],
                    photo_px_per_mm=face["photo_px_per_mm"], keep_all=True)  # fmt: skip
     h, w = face["image"].shape[:2]
     grow = int(round(0.3 * face["px_per_mm"]))
@@ -156,7 +165,14 @@ def candidates_for(args) -> tuple[list, list, str]:
             with open(os.path.join(CACHE_DIR, name), "wb") as fh:
                 pickle.dump(face, fh)
     X, y = label_candidates(face)
+    if zlib.crc32(str(face["name"]).encode()) % GREY_EVERY == 0:  # a monochrome copy of every few faces
+        Xg, yg = label_candidates(face, grey=True)
+        X, y = X + Xg, y + yg
     return X, y, "ok"
+
+
+#: one face in this many is also used as a monochrome photo
+GREY_EVERY = 3
 
 
 CACHE_DIR = os.environ.get("SURFACES_FIT_CACHE", "")

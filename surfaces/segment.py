@@ -504,7 +504,8 @@ def _open_at(region: np.ndarray, photo_px: float) -> np.ndarray:
     return region & (cv2.dilate(op.astype(np.uint8), k) > 0)
 
 
-def _dark_detection(region, patch, level, b, core, R0, C0, M: _Maps) -> Detection | None:
+def _level_contour(region, patch, level, R0, C0) -> np.ndarray | None:
+    """Sub-pixel outline of ``region`` where ``patch`` crosses ``level`` (forced inside/outside elsewhere)."""
     val = np.where(region, np.minimum(patch, level - 1), np.maximum(patch, level + 1))
     val = np.where(cv2.dilate(region.astype(np.uint8), np.ones((5, 5), np.uint8)) > 0, val, level + 1)
     cs = skm.find_contours(np.pad(val, 1, constant_values=level + 1), level)
@@ -513,7 +514,12 @@ def _dark_detection(region, patch, level, b, core, R0, C0, M: _Maps) -> Detectio
     cont = max(cs, key=len)[:, ::-1] - 1 + np.array([C0, R0])
     if abs(cont[0, 0] - cont[-1, 0]) < 1e-9 and abs(cont[0, 1] - cont[-1, 1]) < 1e-9:
         cont = cont[:-1]
-    if len(cont) < 4:
+    return cont if len(cont) >= 4 else None
+
+
+def _dark_detection(region, patch, level, b, core, R0, C0, M: _Maps) -> Detection | None:
+    cont = _level_contour(region, patch, level, R0, C0)
+    if cont is None:
         return None
     f = polygon_features(cont, px_per_mm=M.mm)
     if f["area_mm2"] <= 0:
