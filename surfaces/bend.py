@@ -61,6 +61,7 @@ END_LEVEL = 0.25  # the coupon ends where its edges fade below this share of the
 END_LOW_SHARE = 0.4
 END_LOW_RATIO = 1.4
 END_BOTH_RATIO = 1.2
+END_BOTH_SHARE = 0.05
 #: When the coupon runs on to the end of the strip looked at, look this much further
 #: (or half the coarse length), at most this many times.
 EXTEND_MM = 20.0
@@ -893,7 +894,10 @@ def _visible_extent(sub: np.ndarray, *, px_per_mm: float, m_y: float, width: flo
         c = c_edge + 0.5 * (ratios[0] + ratios[1])
         level = 2.0 * (1.0 + min(END_LEVEL * (mid_edge - 1.0), EDGE_PRESENCE - 1.0))
         low = 2.0 * max(END_LOW_RATIO, 1.0 + END_LOW_SHARE * (0.5 * level - 1.0))
-        both = c_edge >= END_BOTH_RATIO  # and the weaker edge is still above the table's variation
+        # and the weaker edge still stands out of the table's variation, by a share of what it
+        # does mid-coupon (a line of the table, a cutting mat's grid, running on along one
+        # edge past the end keeps the other edge's contrast up, not the weaker one's)
+        both = c_edge >= max(END_BOTH_RATIO, END_BOTH_SHARE * mid_edge)
     else:
         c = ndi.uniform_filter1d(c_mid, max(3, int(0.5 * e)))
         mid = float(np.median(c[c0:c1]))
