@@ -120,7 +120,7 @@ def label_candidates(face: dict, *, grey: bool = False) -> tuple[list, list]:
     """
     import cv2
 
-    from surfaces.segment import segment
+    from surfaces.segment import ruled_out, segment
 
     image = face["image"]
     if grey:
@@ -136,8 +136,8 @@ def label_candidates(face: dict, *, grey: bool = False) -> tuple[list, list]:
         polys.append((k, cv2.dilate(m, np.ones((2 * grow + 1, 2 * grow + 1), np.uint8))))
     X, y = [], []
     for d in dets:
-        if d.features["source"] == "ridge" and d.features["contrast"] <= 0.0:
-            continue  # ruled out before the model (segment: brighter than its ring)
+        if ruled_out(d.features):
+            continue  # decided before the model
         c, r = int(round(d.features["cx_px"])), int(round(d.features["cy_px"]))
         label = "none"
         if 0 <= r < h and 0 <= c < w:
@@ -179,7 +179,17 @@ CACHE_DIR = os.environ.get("SURFACES_FIT_CACHE", "")
 TRUTH_FACE = os.environ.get("SURFACES_FIT_TRUTH_FACE", "") == "1"
 
 
+#: colour tells a tinted unfused region (oxide) from the rest, not a pore from grain: the
+#: weights of these features are tied across every class but ``unfused``
+COLOUR_FEATURES = ("chroma_ring", "chroma_face")
+
+
 def fit(X: np.ndarray, y: np.ndarray, *, l2: float = 1e-2) -> dict:
+    """Multinomial logistic weights (L2, class-balanced), colour weights tied (:data:`COLOUR_FEATURES`).
+
+    Tying is kept by giving the tied weights one shared gradient (their
+    mean) from a zero start, so they stay equal and cancel in the softmax.
+    """
     from scipy.optimize import minimize
 
     mean = X.mean(axis=0)
@@ -192,6 +202,8 @@ def fit(X: np.ndarray, y: np.ndarray, *, l2: float = 1e-2) -> dict:
     cw = np.where(counts > 0, (n / (k * np.maximum(counts, 1))) ** 0.5, 0.0)
     sw = cw[y]
     Y = np.eye(k)[y]
+    rows = [FEATURES.index(f) for f in COLOUR_FEATURES]
+    tied = np.array([c != "unfused" for c in CLASSES])
 
     def loss(theta):
         W = theta[: d * k].reshape(d, k)
@@ -203,6 +215,7 @@ def fit(X: np.ndarray, y: np.ndarray, *, l2: float = 1e-2) -> dict:
         nll = -(sw * np.log(np.clip((P * Y).sum(axis=1), 1e-12, None))).sum() / sw.sum()
         G = (P - Y) * sw[:, None] / sw.sum()
         gW = Z.T @ G + l2 * W
+        gW[rows, :] = np.where(tied, gW[rows][:, tied].mean(axis=1, keepdims=True), gW[rows, :])
         gb = G.sum(axis=0)
         return nll + 0.5 * l2 * (W**2).sum(), np.concatenate([gW.ravel(), gb])
 

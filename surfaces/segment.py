@@ -240,9 +240,7 @@ def segment(
             out.append(c)
             continue
         kind, conf, probs = classify(f)
-        if f["source"] == "ridge" and f["contrast"] <= 0.0:
-            # a dark line must be darker than what surrounds it: this is the ring a ridge
-            # filter draws around a bright speck
+        if ruled_out(f):
             kind, conf = "none", 1.0
         c.kind, c.confidence, c.probs = kind, conf, probs
         if kind == "pore":
@@ -287,6 +285,28 @@ def _check_input(rgb, mask, *, px_per_mm, photo_px_per_mm):
     if m.shape != a.shape[:2]:
         raise SegmentError(f"the face mask has shape {m.shape}, the face image {a.shape[:2]}: they must match")
     return a, m.astype(bool)
+
+
+def ruled_out(f: dict) -> str:
+    """Why a candidate cannot be an imperfection whatever the region model says ('' if it can).
+
+    * a ridge region brighter than its ring: a dark line must be darker than
+      what surrounds it (this is the halo a ridge filter draws around a
+      bright speck);
+    * an untinted smooth region whose grain is not clearly finer than its
+      surroundings' (inner texture over the ring's above
+      :data:`SMOOTH_RATIO`): lack of fusion shows a smooth wall or an oxide
+      tint; a patch only somewhat smoother than a smooth surface is neither.
+    """
+    if f["source"] == "ridge" and f["contrast"] <= 0.0:
+        return "a ridge region brighter than its surroundings"
+    if f["source"] == "smooth" and f["chroma_face"] < UNTINTED and f["tex_in"] > SMOOTH_RATIO * f["tex_ring"]:
+        return "an untinted region not clearly smoother than its surroundings"
+    return ""
+
+
+SMOOTH_RATIO = 0.5
+UNTINTED = 5.0  # Lab chroma distance to the face's colour under which a region has no tint of its own
 
 
 # --------------------------------------------------------------------------
