@@ -50,6 +50,9 @@ JOIN_ALONG_MM = 1.5  # smooth pieces this close along the weld are one band
 SPECK_MM = 0.2  # below this a dark spot is fracture grain, not an imperfection
 RESOLVE_PX = 4.0  # smallest feature (photo pixels across) a detection may be
 EDGE_MM = 0.5
+RIDGE_WEAK = 12.0  # a ridge region peaking under this many robust sigmas ...
+RIDGE_SHORT_MM = 1.5  # ... and shorter than this is fracture grain
+CRACK_DEPTH = 0.3  # a line ends where it is darker than its background by less than this of its depth
 SEED_LEVEL = 0.6  # a dark region starts below this fraction of its background
 SEED_MAX_LEVEL = 0.72  # ... or below up to this one on an even face (see _maps)
 GROW_LEVEL = 0.72  # ... and grows while 0.12 above its start level
@@ -335,11 +338,27 @@ def _ridge_candidates(M: _Maps) -> list[Detection]:
     lab, n = ndi.label(m, structure=np.ones((3, 3)))
     # short and weak lines are fracture grain: drop them before describing them
     if n:
-        peak = ndi.maximum(r, lab, np.arange(n + 1))
+        on = lab > 0
+        peak = np.zeros(n + 1)
+        np.maximum.at(peak, lab[on], r[on])
+        k = max(1, int(round(M.mm / M.photo_mm)))
+        near = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * k + 1, 2 * k + 1))
         for i, sl in enumerate(ndi.find_objects(lab), start=1):
-            if sl is not None and peak[i] < 10.0:
-                if math.hypot(sl[0].stop - sl[0].start, sl[1].stop - sl[1].start) < 1.0 * M.mm:
-                    lab[sl][lab[sl] == i] = 0
+            if sl is None:
+                continue
+            reg = lab[sl] == i
+            if peak[i] < RIDGE_WEAK:
+                if math.hypot(sl[0].stop - sl[0].start, sl[1].stop - sl[1].start) < RIDGE_SHORT_MM * M.mm:
+                    lab[sl][reg] = 0
+                    continue
+            if CRACK_DEPTH > 0:
+                # the filter's answer runs on past a line's dark ends: keep what is darker than
+                # the background by CRACK_DEPTH of the line's own depth (within a photo pixel)
+                dk = 1.0 - M.rel[sl]
+                depth = float(dk[reg].max())
+                dark = (reg & (dk > CRACK_DEPTH * depth)).astype(np.uint8)
+                if dark.any():
+                    lab[sl][reg & (cv2.dilate(dark, near) == 0)] = 0
     return _region_candidates(lab, M, min_px=0.8 * M.mm, min_greatest_mm=0.5, kind="crack", source="ridge")
 
 
