@@ -64,7 +64,8 @@ How the marker is measured
      ``GRID_FLOOR_PX`` and ``GRID_FLOOR_MODULE``.  For an outline-only fit,
      sigma_c per corner coordinate from the line-fit residuals
      (``2 * rms / sqrt(n_eff)``, n_eff discounting correlated residuals)
-     with a floor of ``CORNER_FLOOR_PX`` plus ``CORNER_FLOOR_MODULE`` of a
+     and what the model of the inner modules' light may miss
+     (``OUTLINE_BLEED_SIGMA * blur^2 / module``), with a floor of ``CORNER_FLOOR_PX`` plus ``CORNER_FLOOR_MODULE`` of a
      module.  Either is propagated by a seeded Monte-Carlo of the whole fit
      (correlated corner draws) to the point where the scale is used (the
      face), so the growth of the error with distance from the marker is
@@ -130,6 +131,9 @@ CORNER_FLOOR_MODULE: float = 0.003
 #: The same floor for corners from the module-grid fit (px, and fraction of a module).
 GRID_FLOOR_PX: float = 0.005
 GRID_FLOOR_MODULE: float = 0.0003
+#: Outline fit: 1-sigma corner error left by the model of the inner modules' light, per
+#: blur^2 / module (px).  Set from blurred scenes with 6-8 px modules (tests/test_calibrate.py).
+OUTLINE_BLEED_SIGMA: float = 0.2
 #: Stated uncertainty of a scale typed by hand, percent.
 MANUAL_SCALE_UNCERTAINTY_PCT: float = 2.0
 #: Click error of each ruler end, px.
@@ -155,6 +159,9 @@ _GRID_END_MARGIN = 0.25
 _GRID_SAMPLES = 33
 #: Smallest module (px) the grid fit is tried on: below it the profiles hold too few pixels.
 _GRID_MIN_MODULE_PX = 6.0
+#: Largest blur sigma (modules) for the grid fit: beyond it the light of the neighbouring edges
+#: reaches into its 0.42-module profiles (the outline fit models that light).
+_GRID_MAX_BLUR_MODULES = 0.2
 #: Taper of the edge estimate (blur sigmas), used from a blur sigma of this many px.
 _GRID_TAPER = 1.0
 _GRID_TAPER_MIN_SIGMA_PX = 0.8
@@ -860,6 +867,7 @@ class _SideFit:
     n: int
     n_eff: float  # independent points: n scaled by the residuals' von Neumann ratio
     sigma_px: float  # 1-sigma position of the line at the side's ends (corners)
+    blur_px: float = float("nan")  # blur sigma measured on the side's clean profiles
 
 
 @dataclass(frozen=True)
@@ -950,7 +958,11 @@ def _measure_outline(gray: np.ndarray, marker_id: int, corners: np.ndarray) -> M
         local = new
         refined = new
         rms = float(np.sqrt(np.mean([f.rms**2 for f in fits])))
-        sigma_fit = max(f.sigma_px for f in fits)
+        # the light of white inner modules is modelled, not measured: what the model misses grows with
+        # the blur's reach into the one-module border (blur^2 / module)
+        blur = max((f.blur_px for f in fits if math.isfinite(f.blur_px)), default=0.0)
+        bleed = OUTLINE_BLEED_SIGMA * blur**2 / max(side0 / MODULES, 1e-6)
+        sigma_fit = math.hypot(max(f.sigma_px for f in fits), bleed)
         if moved < 0.01:
             break
     module0 = side0 / MODULES
@@ -1128,6 +1140,7 @@ def _fit_one_side(roi, a, b, centre, inner_black, to_photo, side) -> _SideFit | 
         return None
     ref = ok & clean if (ok & clean).sum() >= 4 else ok
     sigma = _quartile_width(u, np.nanmedian(norm[ref], axis=0)) / 1.349
+    blur = float(sigma)
     if np.isfinite(sigma) and sigma > 0.05 * module and not clean.all():
         # Blur carries light from white data modules just inside the one-module
         # border into the window.  For a Gaussian blur the light of a square
@@ -1174,7 +1187,7 @@ def _fit_one_side(roi, a, b, centre, inner_black, to_photo, side) -> _SideFit | 
         bend = max(bend, abs(float(np.dot(on_full - sub[0], np.array([-sub[1][1], sub[1][0]])))))
     expected = 2.0 * rms / math.sqrt(max(n_eff / 2.0, 1.0))  # what noise alone gives a half-side line
     sigma = math.hypot(2.0 * rms / math.sqrt(n_eff), math.sqrt(max(bend**2 - expected**2, 0.0)))
-    return _SideFit(point=point, direction=direction, rms=rms, n=n_in, n_eff=n_eff, sigma_px=sigma)
+    return _SideFit(point=point, direction=direction, rms=rms, n=n_in, n_eff=n_eff, sigma_px=sigma, blur_px=blur)
 
 
 # =========================================================================== module-grid fit
@@ -1332,6 +1345,8 @@ def _grid_fit(gray: np.ndarray, marker_id: int, corners0: np.ndarray, *, passes:
             sel = ref & (np.abs(half - hh) < 0.2 * hh + 0.5)
             width = _quartile_width(s_unit * hh, np.nanmedian(norm[sel], axis=0))
             sigma_blur = float(np.clip(width / 1.349, 0.3, 0.3 * module)) if np.isfinite(width) else 0.3 * module
+            if sigma_blur > _GRID_MAX_BLUR_MODULES * module:
+                return None  # blur reaches the neighbouring edges: the outline fit (which models them) instead
         if _GRID_TAPER and sigma_blur is not None and sigma_blur >= _GRID_TAPER_MIN_SIGMA_PX:
             # tapered first moment of the gradient about the area-rule edge (less noise from the window's ends)
             uc = 0.5 * (u[:, 1:] + u[:, :-1])

@@ -515,6 +515,18 @@ def test_grid_fit_far_from_the_marker_within_stated_uncertainty():
     assert np.median(sigmas) < 1.0
 
 
+def test_blur_wider_than_the_grid_profiles_uses_the_outline_fit():
+    """Blur of 2.5 px on 6.7 px modules (0.37 module) reaches across the grid fit's profiles into the
+    neighbouring edges; the outline fit, which models that light, measures the marker instead, and the
+    scale at the marker stays within its stated uncertainty (analytic sqrt|det J|)."""
+    G = camera_homography(K, rotation(16, 60, 30), (700, 500), 2.0)
+    cal = calibrate(render((W, H), [(21, 20.0, G)], blur=2.5, seed=21))
+    hit = cal.markers[0]
+    assert hit.grid_points == 0 and hit.edges_measured
+    err, p = scale_error_pct(cal, G)
+    assert abs(err) < 2 * scale_uncertainty_pct(cal, *p, parts=True)["corners_pct"]
+
+
 def test_plane_centroid_is_the_image_of_the_face_centre():
     """Analytic: a 60 x 10 mm rectangle on a plane seen at 40 degrees; its centre (70, 25) mm mapped by the
     known homography is the point returned, while the mean of its photo corners is pixels away."""
