@@ -77,6 +77,10 @@ LENGTH_RANGE_MM = (15.0, 320.0)  # visible length accepted (typical 40-150 mm)
 STEEP_SLOPE_DEG = 60.0
 #: Bright bridges narrower than this do not join the card's paper to its flood (mm).
 CARD_BRIDGE_MM = 3.0
+#: Bright pieces touching the card within this distance of it are paper too (mm).
+CARD_MARGIN_MM = 8.0
+#: Paper is within this Lab chroma distance of the quiet zone's tint (OpenCV 8-bit Lab units).
+CARD_CHROMA = 12.0
 #: The perpendicular pair of straight steps is weighed as the coupon's long edges when
 #: at least this share of the strongest pair's score (the ends can be the stronger steps).
 OTHER_PAIR_SHARE = 0.05
@@ -91,6 +95,7 @@ CANDIDATE_SHARE = 0.05
 #: The edge step (Lab L per pixel of strip length) weighs a candidate within these bounds.
 STEP_FLOOR_L = 0.5
 STEP_CAP_L = 40.0
+STEP_POWER = 2.0  # ... squared: a coupon's machined edges are sharp, a lit patch of table is not
 OUTER_STEP_SHARE = 0.5
 #: Relative 1-sigma uncertainty of the outer radius when it is derived from the
 #: former diameter and thickness: spring-back and a coupon that does not wrap
@@ -311,16 +316,17 @@ def _local_reference(feat: np.ndarray, table: np.ndarray, *, px_per_mm: float, s
     return cv2.resize(out, (w, h), interpolation=cv2.INTER_LINEAR)
 
 
-def _card_mask(lab_l, sat, calib, to_px, shape) -> np.ndarray:
-    """The reference card: the marker and its quiet zone, and the bright, unsaturated paper
-    joined to the quiet zone, within a few marker sides of the marker.
+def _card_mask(lab, calib, to_px, shape) -> np.ndarray:
+    """The reference card: the marker and its quiet zone, and the bright paper joined to the
+    quiet zone, within a few marker sides of the marker.
 
     The paper is told from what lies beside it by its own brightness (the
     quiet zone's, measured beside the marker): a pixel is paper when it is
     nearer that than the surroundings' median.  Bridges under
     :data:`CARD_BRIDGE_MM` wide are cut before the flood, so that a bright
     coupon (a highlight on ground metal) touching the card is not taken for
-    paper.
+    paper.  Each flooded piece of paper is taken with its convex hull (the
+    printed ruler and text break the paper into strips narrower than the cut).
     """
     card = np.zeros(shape, np.uint8)
     near = np.zeros(shape, np.uint8)
@@ -337,17 +343,36 @@ def _card_mask(lab_l, sat, calib, to_px, shape) -> np.ndarray:
         rings = np.zeros(shape, np.uint8)
         for ring_pts in seeds:
             cv2.polylines(rings, [ring_pts], True, 1, 2)
+        lab_l = lab[..., 0]
         paper = float(np.median(lab_l[rings > 0])) if (rings > 0).any() else float(np.percentile(lab_l, 90))
+        # the paper's own tint (a coloured light tints it too), from the quiet zone
+        paper_ab = np.median(lab[rings > 0][:, 1:], axis=0) if (rings > 0).any() else np.array([128.0, 128.0])
+        chroma = np.sqrt(((lab[..., 1:] - paper_ab) ** 2).sum(-1))
         around = float(np.median(lab_l[(near > 0) & (card == 0)])) if ((near > 0) & (card == 0)).any() else float(np.median(lab_l))
         thr = 0.5 * (paper + around) if paper > around + 8 else float(np.percentile(lab_l, 60))
-        bright = ((lab_l > thr) & (sat < 45) & (near > 0)).astype(np.uint8)
+        raw = ((lab_l > thr) & (chroma < CARD_CHROMA) & (near > 0)).astype(np.uint8)
         k = max(3, int(round(CARD_BRIDGE_MM * COARSE_PX_PER_MM)) | 1)
-        bright = cv2.morphologyEx(bright, cv2.MORPH_OPEN, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (k, k)))
+        bright = cv2.morphologyEx(raw, cv2.MORPH_OPEN, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (k, k)))
         bright = (bright > 0) | (card > 0)  # the quiet zone itself always joins
         n, lab = cv2.connectedComponents(bright.astype(np.uint8), connectivity=4)
         ids = np.unique(lab[(rings > 0) & bright])
         for i in ids[ids > 0]:
-            card[lab == i] = 1
+            # the paper is flat and convex: its hull takes back what the cut removed among
+            # printed lines (the ruler's ticks, the text)
+            ys, xs = np.nonzero(lab == i)
+            hull = cv2.convexHull(np.c_[xs, ys].astype(np.int32))
+            cv2.fillConvexPoly(card, hull, 1)
+        # paper cut off beyond a printed line (a ruler along the card's edge): bright pieces
+        # touching the card that lie almost wholly within a few mm of it
+        kk = int(round(CARD_MARGIN_MM * COARSE_PX_PER_MM)) * 2 + 1
+        reach_card = cv2.dilate(card, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (kk, kk)))
+        touch = cv2.dilate(card, np.ones((3, 3), np.uint8)) > 0
+        n2, lab2, st2, _ = cv2.connectedComponentsWithStats((raw > 0).astype(np.uint8), connectivity=8)
+        ids2 = np.unique(lab2[touch & (raw > 0) & (card == 0)])
+        for i in ids2[ids2 > 0]:
+            piece = lab2 == i
+            if float(reach_card[piece].mean()) > 0.9:
+                card[piece] = 1
     return cv2.dilate(card, np.ones((13, 13), np.uint8)) > 0  # 1.5 mm at 4 px/mm: the paper's edge
 
 
@@ -381,8 +406,7 @@ def _coarse_coupon(rgb, gray, calib: Calibration, roi_poly):
     cv2.fillPoly(allowed, [to_px(poly_mm)], 1)
     allowed = (allowed > 0) & valid
     feat = _features(plane, px_per_mm=s)
-    sat = cv2.cvtColor(plane, cv2.COLOR_RGB2HSV)[..., 1].astype(np.float32)
-    card = _card_mask(feat[..., 0], sat, calib, to_px, (Hh, W))
+    card = _card_mask(feat[..., :3], calib, to_px, (Hh, W))
     allowed &= ~card
     if allowed.sum() < 100:
         raise FaceError("no room for a coupon beside the reference card: give --roi around the coupon")
@@ -442,7 +466,7 @@ def _coarse_coupon(rgb, gray, calib: Calibration, roi_poly):
         comp_i = lab_cc == i
         strip_i = _straight_strip(plane, comp_i, allowed, px_per_mm=s)
         step = strip_i[5] if strip_i is not None else 0.0
-        final = sc * float(np.clip(step, STEP_FLOOR_L, STEP_CAP_L))
+        final = sc * float(np.clip(step, STEP_FLOOR_L, STEP_CAP_L)) ** STEP_POWER
         if final > best_score:
             best_score, best = final, (rect, i, strip_i)
     rect, _, strip = best
