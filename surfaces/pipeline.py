@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
-from .calibrate import calibrate
+from .calibrate import calibrate, plane_centroid_px
 from .face import find_face
 from .limits import CAUTIONS, default_preset_for, judge, load_limit_set
 from .measure import TABLE_COLUMNS, measure
@@ -75,7 +75,9 @@ def assess(photo: Photo, settings: Settings, *, progress: Callable[[str, float],
     else:
         face = find_face(photo.rgb, photo.gray, calib, roi=settings.roi, test=settings.test)
     t["face_s"] = time.perf_counter() - t1
-    centre = face.polygon_px.mean(axis=0)
+    # "at the face" is the image of the face's centroid in the plane; under perspective
+    # the mean of the photo vertices is elsewhere, and the scale changes across a tilted face
+    centre = plane_centroid_px(calib, face.polygon_px)
     ppm_photo = calib.px_per_mm_at(float(centre[0]), float(centre[1]))
     if calib.markers:
         # the scale's uncertainty where it is used: at the face, not at the marker
