@@ -909,7 +909,9 @@ def _visible_extent(sub: np.ndarray, *, px_per_mm: float, m_y: float, width: flo
     c_edge = np.minimum(ratios[0], ratios[1])
     c0, c1 = int((m_x + 0.3 * L) * e), int((m_x + 0.7 * L) * e)
     nout = max(2, int(0.4 * m_x * e))
-    mid_edge = float(np.median(c_edge[c0:c1]))
+    # the edges' contrast on the coupon: over the coarse extent, not only its middle (the
+    # coarse region can run on over a patch of table at one end)
+    mid_edge = float(np.percentile(c_edge[int(m_x * e) : max(int((m_x + L) * e), int(m_x * e) + 2)], 75))
     if mid_edge >= EDGE_PRESENCE:
         # the long edges decide where there is coupon (a shadow or the card beside the
         # strip fools the colour).  Both edges standing out (the weaker one) keeps a shadow
