@@ -1,15 +1,22 @@
 #!/usr/bin/env python3
 """Fit the region model (surfaces/regionmodel.json) on seeded synthetic faces.
 
-    python scripts/fit_region_model.py --render 120 --seed 100000 --workers 2
+    python scripts/fit_region_model.py --render 200 --seed 100000 --mp 2 --mp-max 4 --workers 2 --cache DIR1
+    python scripts/fit_region_model.py --render 130 --seed 100200 --mp 2 --mp-max 4 --truth-face --cache DIR2
+    python scripts/fit_region_model.py --from-cache DIR1 --from-cache DIR2     # refit, no rendering
     python scripts/fit_region_model.py --folder DIR [--folder DIR2]   # photos + .truth.json
 
-Each photo goes through the runtime's own calibration, face finder and
-candidate generator (``segment(..., keep_all=True)``); every candidate is
-labelled with the kind of the truth imperfection whose outline contains its
-centre (grown by 0.3 mm), else ``none``.  A multinomial logistic model with
-an L2 penalty is fitted (SciPy L-BFGS) with class weights that balance the
-many ``none`` candidates.  The seeds used here (100000 and up by default) are
+Each photo goes through the runtime's own calibration and face finder (with
+``--truth-face``, a photo whose face is not found is rectified from its true
+outline instead of skipped); ``--cache`` keeps every prepared face so that
+later fits (``--from-cache``) only re-run the candidate generator
+(``segment(..., keep_all=True)``).  Every candidate is labelled with the kind
+of the truth imperfection whose outline contains its centre (grown by
+0.3 mm), else ``none``; candidates :func:`surfaces.segment.ruled_out` settles
+are left out; every third face is also used as a monochrome photo.  A
+multinomial logistic model with an L2 penalty is fitted (SciPy L-BFGS) with
+class weights that balance the many ``none`` candidates, colour weights tied
+across every class but ``unfused``.  The seeds used here (100000 and up) are
 disjoint from the seeds the tests and the benchmark evaluate on.
 """
 
@@ -280,6 +287,7 @@ def main() -> int:
             "per_class": {c: int((yt == i).sum()) for i, c in enumerate(CLASSES)},
             "sources": sorted({j[0] for j, _ in used}),
             "first_seed": a.seed if a.render else None,
+            "from_cache": list(a.from_cache),
             "seed": a.seed,
         },
     )

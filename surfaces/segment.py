@@ -11,21 +11,29 @@ Two steps:
 
    * *dark regions* (pores, slag): brightness relative to a robust local
      background (a median over ``BACKGROUND_MM``), smoothed at the photo's
-     own resolving scale, with hysteresis thresholds; each region's outline
-     is then re-traced at half contrast between its surrounding ring and its
-     core, so its size does not depend on how dark it is;
-   * *thin dark lines* (cracks): a multi-scale ridge filter (Sato, from
-     scikit-image) at widths of one to three photo pixels;
+     own resolving scale, with hysteresis thresholds (the start level set
+     by the face's own darkness spread); each region's outline is then
+     re-traced at half contrast between its surrounding ring and its core,
+     so its size does not depend on how dark it is, kept to the piece that
+     holds the darkest pixels and opened at the region's own scale so that
+     grain touching a pore does not stretch it; a region holding several
+     dark parts gives one candidate per part;
+   * *thin dark lines* (cracks): a multi-scale Hessian line filter at
+     widths of one to three photo pixels, cut back to where the line is
+     still dark;
    * *smooth or tinted regions* (unfused: lack of fusion, incomplete root
      penetration): fracture texture energy far below the face's own, or a
-     colour far from the face's.
+     colour far from the face's, re-outlined half-way between the region's
+     level and the face's, pieces along the weld joined.
 
 2. **Decision**: every candidate is described by generic region features
    (size, shape, contrast to its ring, edge steepness, inner texture, colour,
    ridge fraction, contact with the face edge) and scored by a small
    multinomial logistic model (:mod:`surfaces.regionmodel`) whose weights are
-   fitted on synthetic faces by ``scripts/fit_region_model.py``.  The model's
-   probability is the detection's confidence.  Nothing under ``min_size_mm``
+   fitted on synthetic faces by ``scripts/fit_region_model.py``; a few
+   candidates are settled by physics first (:func:`ruled_out`).  The model's
+   probability is the detection's confidence; two views of one imperfection
+   are merged (:func:`_dedupe`).  Nothing under ``min_size_mm``
    is reported, and nothing the photo cannot resolve (under
    ``RESOLVE_PX`` photo pixels) is claimed.
 """
