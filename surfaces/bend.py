@@ -70,6 +70,11 @@ EXTEND_TRIES = 2
 #: this power (the region found can run on over a lit patch of table beside the coupon,
 #: so a higher power favours pairs that span the table too).
 COVER_POWER = 1.0
+OUT_OF_PHOTO = "part of the coupon lies outside the photo: retake with the whole bend in frame"
+NEAR_PHOTO_EDGE = (
+    "the coupon ends close to the photo's edge, where it may run on out of view: check the visible length "
+    "on the overlay, or retake with room around the bend"
+)
 EDGE_PX_PER_MM = 8.0  # resolution of the pass that places the long edges
 WIDTH_RANGE_MM = (5.0, 70.0)  # coupons accepted (typical 10-40 mm)
 LENGTH_RANGE_MM = (15.0, 320.0)  # visible length accepted (typical 40-150 mm)
@@ -759,7 +764,6 @@ def find_coupon(
     axis2 = axis + math.degrees(math.atan(slope))
 
     # along the coupon: the visible extent is where the strip differs from the table right
-    # beside it (colour, texture)
     # beside it (colour, texture); when the coupon runs on to the edge of the strip looked
     # at (the coarse region missed a dark flank), look further, but never past the photo
     more_lo = more_hi = 0.0
@@ -768,7 +772,8 @@ def find_coupon(
         w2 = int(math.ceil((L + 2 * m_x + more_lo + more_hi) * e))
         A2 = _face.face_frame(mid_mm, axis2, (o2, -width / 2 - m_y), px_per_mm=e)
         sub2 = _face.warp_to_face(rgb, calib.H, A2, (h, w2))
-        card2 = _card_in_frame(card_map, A2, (h, w2)) | ~_in_photo(gray.shape, calib.H, A2, (h, w2))
+        outside2 = ~_in_photo(gray.shape, calib.H, A2, (h, w2))
+        card2 = _card_in_frame(card_map, A2, (h, w2)) | outside2
         x_lo, x_hi, ok_ends = _visible_extent(sub2, px_per_mm=e, m_y=m_y, width=width, m_x=m_x + more_lo, L=L, card=card2)
         grow_lo = x_hi > x_lo and x_lo <= 1.0 and not card2[:, 0].mean() > 0.5
         grow_hi = x_hi > x_lo and x_hi >= w2 - 2.0 and not card2[:, -1].mean() > 0.5
@@ -777,6 +782,15 @@ def find_coupon(
         more_lo += max(EXTEND_MM, 0.5 * L) if grow_lo else 0.0
         more_hi += max(EXTEND_MM, 0.5 * L) if grow_hi else 0.0
     ox = o2
+    # an end placed where the photo's edge is near the strip or the table beside it read
+    # against is not the coupon's end
+    band_rows = slice(max(0, int((m_y - 4.0) * e)), min(h, int((m_y + width + 4.0) * e) + 1))
+    for x_end, step_out in ((x_lo, -1), (x_hi, +1)):
+        c_a, c_b = sorted((int(round(x_end)), int(round(x_end + step_out * 3.0 * e))))
+        zone = outside2[band_rows, max(0, c_a) : max(0, min(outside2.shape[1], c_b + 1))]
+        if x_hi > x_lo and (c_a < 0 or c_b >= outside2.shape[1] or (zone.size and zone.mean() > 0.05)):
+            warnings.append(NEAR_PHOTO_EDGE)
+            break
     if not x_hi > x_lo:
         raise FaceError(
             "the bend coupon's ends cannot be told from the table beside it: give --roi X0,Y0,X1,Y1 "
@@ -803,7 +817,7 @@ def find_coupon(
     poly_px = apply_h(np.linalg.inv(calib.H) @ Af, corners)
     Hp, Wp = gray.shape[:2]
     if np.any(poly_px < -2) or np.any(poly_px[:, 0] > Wp + 1) or np.any(poly_px[:, 1] > Hp + 1):
-        warnings.append("part of the coupon lies outside the photo: retake with the whole bend in frame")
+        warnings = [w for w in warnings if w != NEAR_PHOTO_EDGE] + [OUT_OF_PHOTO]
     fit_ok = 0.5 * (okt.mean() + okb.mean())
     return Face(
         image=img,

@@ -495,3 +495,26 @@ def test_find_coupon_with_its_middle_hidden_is_a_clear_error_not_a_negative_leng
         # a find must be a real piece of the coupon: its full width (38 mm by construction)
         assert f.length_mm > 0 and f.area_mm2 > 0
         assert f.width_mm == pytest.approx(38.0, abs=1.0)
+
+
+def test_coupon_cut_by_the_photo_edge_is_said_and_not_extended():
+    # the generated photo cropped on the right through the coupon (cropping on the right or
+    # bottom leaves the plane -> photo homography as it is): the finder must say the coupon
+    # may run on out of view and find no more than the part in the photo
+    ph, builder, calib = _synth_bend(3101, table="wood", tilt_deg=8.0)
+    vis_mm, _, _ = _visible_strip_mm(builder, ph.truth)
+    vis_px = apply_h(np.linalg.inv(calib.H), vis_mm)
+    cut = int(round(0.5 * (vis_px[:, 0].mean() + vis_px[:, 0].max())))
+    rgb = np.ascontiguousarray(ph.rgb[:, :cut])
+    f = bend.find_coupon(rgb, _gray(rgb), calib)
+    assert any("photo" in w for w in f.warnings), f.warnings
+    # the part of the visible strip inside the cropped photo, clipped by OpenCV
+    h = rgb.shape[0]
+    frame = np.array([[0, 0], [cut - 1, 0], [cut - 1, h - 1], [0, h - 1]], np.float32)
+    _, inside_px = cv2.intersectConvexConvex(vis_px.astype(np.float32), frame)
+    inside_mm = apply_h(calib.H, inside_px.reshape(-1, 2).astype(float))
+    assert f.area_mm2 <= 1.05 * cv2.contourArea(inside_mm.astype(np.float32))
+    # a rectangle cannot follow a slanted cut: at most a sliver of it lies beyond the photo
+    poly = f.polygon_px.astype(np.float32)
+    inside_f, _ = cv2.intersectConvexConvex(poly, frame)
+    assert inside_f >= 0.97 * cv2.contourArea(poly)
