@@ -84,6 +84,8 @@ STEEP_SLOPE_DEG = 60.0
 CARD_BRIDGE_MM = 3.0
 #: Bright pieces touching the card within this distance of it are paper too (mm).
 CARD_MARGIN_MM = 8.0
+#: Bright paper parted from the card by a printed line is joined within this distance (mm).
+CARD_GROW_MM = 5.0
 #: Paper is within this Lab chroma distance of the quiet zone's tint (OpenCV 8-bit Lab units).
 CARD_CHROMA = 12.0
 #: The perpendicular pair of straight steps is weighed as the coupon's long edges when
@@ -359,6 +361,7 @@ def _card_mask(lab, calib, to_px, shape) -> np.ndarray:
         k = max(3, int(round(CARD_BRIDGE_MM * COARSE_PX_PER_MM)) | 1)
         bright = cv2.morphologyEx(raw, cv2.MORPH_OPEN, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (k, k)))
         bright = (bright > 0) | (card > 0)  # the quiet zone itself always joins
+        quiet = card.copy()
         n, lab = cv2.connectedComponents(bright.astype(np.uint8), connectivity=4)
         ids = np.unique(lab[(rings > 0) & bright])
         for i in ids[ids > 0]:
@@ -367,6 +370,15 @@ def _card_mask(lab, calib, to_px, shape) -> np.ndarray:
             ys, xs = np.nonzero(lab == i)
             hull = cv2.convexHull(np.c_[xs, ys].astype(np.int32))
             cv2.fillConvexPoly(card, hull, 1)
+        # paper beyond a printed line that the cut parted from the rest (a ruler along the
+        # card's edge, next to a table nearly as bright): whatever bright, untinted region
+        # joins the quiet zone, taken only within a few mm of the paper found so far
+        loose = ((lab_l > min(thr, float(np.percentile(lab_l, 60)))) & (chroma < CARD_CHROMA) & (near > 0)) | (quiet > 0)
+        n3, lab3 = cv2.connectedComponents(loose.astype(np.uint8), connectivity=4)
+        ids3 = np.unique(lab3[(rings > 0) & loose])
+        kk = int(round(CARD_GROW_MM * COARSE_PX_PER_MM)) * 2 + 1
+        grow = cv2.dilate(card, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (kk, kk))) > 0
+        card[np.isin(lab3, ids3[ids3 > 0]) & grow] = 1
         # paper cut off beyond a printed line (a ruler along the card's edge): bright pieces
         # touching the card that lie almost wholly within a few mm of it
         kk = int(round(CARD_MARGIN_MM * COARSE_PX_PER_MM)) * 2 + 1
