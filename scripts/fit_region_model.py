@@ -245,6 +245,7 @@ def main() -> int:
     ap.add_argument("--from-cache", action="append", default=[], help="refit from faces kept by an earlier --cache")
     ap.add_argument("--truth-face", action="store_true",
                     help="where the face finder fails, rectify the face from its true outline instead of skipping")
+    ap.add_argument("--l2", type=float, default=1e-2, help="L2 penalty on the standardised weights")
     ap.add_argument("--out", default=str(MODEL_PATH))
     a = ap.parse_args()
     jobs = [("file", p) for f in a.folder for p in sorted(glob.glob(os.path.join(f, "*.jpg")))]
@@ -276,7 +277,7 @@ def main() -> int:
         return np.asarray(X, float), np.asarray(y, int)
 
     Xt, yt = stack(train)
-    model = fit(Xt, yt)
+    model = fit(Xt, yt, l2=a.l2)
     model.update(
         classes=list(CLASSES),
         features=list(FEATURES),
