@@ -420,6 +420,7 @@ def score_results(results: list[dict]) -> dict:
     confusion: dict[str, dict] = {}
     false_accepts: list[dict] = []
     border = {"n": 0, "review": 0, "items": []}
+    z_greatest: list[float] = []  # |greatest error| / stated 1-sigma uncertainty, matched imperfections
     for r in results:
         truth = r["truth"]
         name = Path(r["path"]).name
@@ -439,6 +440,11 @@ def score_results(results: list[dict]) -> dict:
         m = ev.match(a, truth)
         m.insert(0, "photo", name)
         matches.append(m)
+        u_by_id = {int(i["id"]): i.get("greatest_u_mm") for i in a.get("imperfections") or []}
+        for _, x in m[m["matched"]].iterrows():
+            u = u_by_id.get(int(x["det_id"]))
+            if u is not None and np.isfinite(float(u)) and np.isfinite(float(x["greatest_err_mm"])):
+                z_greatest.append(abs(float(x["greatest_err_mm"])) / max(float(u), 1e-9))
         ps = ev.photo_scores(a, truth)
         ps.update(photo=name, test=a["test"], seconds=r.get("seconds"), tilt_deg=truth.get("tilt_deg"),
                   px_per_mm_face=truth.get("px_per_mm_face"),
@@ -458,6 +464,12 @@ def score_results(results: list[dict]) -> dict:
                 border["review"] += tool == "review"
                 border["items"].append({"photo": name, "limits": ls.name, "truth": tv["result"], "tool": tool})
     s = ev.scores(matches, min_mm={"pore": 0.5, "inclusion": 1.0}) if matches else {}
+    if s:
+        from .limits import COVERAGE_K
+
+        z = np.array(z_greatest, float)
+        s["greatest"]["coverage_k"] = COVERAGE_K
+        s["greatest"]["frac_within_k_sigma"] = float(np.mean(z <= COVERAGE_K)) if z.size else None
 
     def stat(key, f=np.median):
         v = np.array([p[key] for p in photos if p.get(key) is not None], float)
@@ -688,6 +700,9 @@ def format_table(report: dict) -> str:
             g = det["greatest"]
             L.append(f"  greatest dimension: n={g['n']} median |err| {_f(g['median_abs_err_mm'])} mm, "
                      f"p95 {_f(g['p95_abs_err_mm'])} mm, within max(0.15 mm, 5 %): {_f(g['frac_within'], '{:.1%}')}")
+            if g.get("frac_within_k_sigma") is not None:
+                L.append(f"  greatest dimension inside its stated {g['coverage_k']:g}-sigma interval: "
+                         f"{_f(g['frac_within_k_sigma'], '{:.1%}')} (aim 95 %)")
             u = det["unfused_length"]
             L.append(f"  unfused length: n={u['n']} median rel err {_f(u['median_rel_err'], '{:.1%}')}, "
                      f"max {_f(u['max_rel_err'], '{:.1%}')}")
