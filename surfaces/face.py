@@ -8,12 +8,15 @@ The face is located in two passes:
    with the reference card masked out, oriented texture (brushing, ripples,
    grid lines) and saturated (rusty) areas damped.  Candidate regions from a
    ladder of thresholds must stand out from a ring around them; a region
-   holding a much more textured one is the specimen, not the face.
+   holding a much more textured one running most of its length is the
+   specimen, not the face, while a rougher region spanning the whole width
+   of a longer clean strip is a stretch of that strip (the face).
 2. **Fine**, on the face rectified at ``FINE_PX_PER_MM`` with a margin, with
    texture scales set by what the photo resolves at the face: the ends and
    long edges are where the texture profile rises to half-way between the
    outside and inside levels, walking in from outside, snapped to the
-   brightness step; each long edge is a line whose slope comes from
+   brightness step, then moved out over a calmer end of the face's own
+   brightness that is still textured; each long edge is a line whose slope comes from
    stretches along the face (a tapered face keeps its taper) and which a
    smooth band along the root does not pull inwards.  The frame turns to the
    edges' direction when they lean.
@@ -184,6 +187,10 @@ def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly
 
 #: a face must be at least this much more textured than the ring just around it
 MIN_RING_CONTRAST = 1.6
+#: a rougher region inside a candidate marks the candidate as the specimen only when it runs
+#: at least this share of the candidate's length (a face runs the coupon's length beside the
+#: plate and bead; a rougher stretch of the face itself is shorter than the face)
+HELD_LENGTH_SHARE = 0.5
 
 
 def _best_component(e: np.ndarray, allowed: np.ndarray, s: float):
@@ -249,7 +256,7 @@ def _best_component(e: np.ndarray, allowed: np.ndarray, s: float):
             dist = cv2.distanceTransform(sub, cv2.DIST_L1, 3)
             r_mid, c_mid = np.unravel_index(int(np.argmax(dist)), dist.shape)
             cands.append(dict(t=len(labs) - 1, i=i, sub=(sub, x0, y0), fill=fill, contrast=contrast, inside=inside,
-                              area=float(area_px),
+                              area=float(area_px), length=L,
                               score=score, mid=(int(r_mid + y0), int(c_mid + x0))))
     # a region holding a clearly more textured, much smaller region that stands out on
     # its own is the specimen (plate, bead, coupon) carrying the face, not the face
@@ -258,10 +265,18 @@ def _best_component(e: np.ndarray, allowed: np.ndarray, s: float):
         lab = labs[c["t"]][0]
         c["holds"] = any(
             d["t"] > c["t"] and d["inside"] > 1.4 * c["inside"] and d["area"] < 0.35 * c["area"]
-            and lab[d["mid"]] == c["i"]
+            and d["length"] >= HELD_LENGTH_SHARE * c["length"] and lab[d["mid"]] == c["i"]
             for d in cands
         )
-    pool = [c for c in cands if not c["holds"]]
+    # a region running the whole width of a longer, cleanly filled strip that holds it is a
+    # rougher stretch of that strip (defects, a coarser break), not the face: the strip is the face
+    for d in cands:
+        d["stretch"] = any(
+            c["t"] < d["t"] and not c["holds"] and c["fill"] >= 0.8 and c["length"] >= 1.3 * d["length"]
+            and d["area"] / d["length"] >= 0.7 * c["area"] / c["length"] and labs[c["t"]][0][d["mid"]] == c["i"]
+            for c in cands
+        )
+    pool = [c for c in cands if not c["holds"] and not c["stretch"]]
     if not pool:
         return None
     c = max(pool, key=lambda c: c["score"])
@@ -415,6 +430,9 @@ MIN_AUTO_CONFIDENCE = 0.55
 WARN_CONFIDENCE = 0.7
 #: resolution of the fine pass that places the face's outline (mm pitch 0.1)
 FINE_PX_PER_MM = 10.0
+#: an end moves outwards over the face's brightness only while the texture stays above this
+#: share of the face middle's level (a notch face or smooth plate is below it)
+END_TEXTURE_SHARE = 0.25
 #: length of the stretches along the weld whose long edges are located separately
 EDGE_BIN_MM = 2.0
 
@@ -498,6 +516,19 @@ def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: f
         prof_i = np.median(gi[band, :], axis=0)
         x_lo = _snap_to_step(prof_i, x_lo, win=snap)
         x_hi = _snap_to_step(prof_i, x_hi, win=snap)
+        # an end calmer than the face's middle (the middle's defects and texture set the
+        # half-way level) but of the face's own brightness and still textured is face
+        span = x_hi - x_lo
+        inner_i = float(np.median(prof_i[int(x_lo + 0.2 * span) : int(x_hi - 0.2 * span) + 1]))
+        # still textured, over two millimetres (single samples of a calm grain dip below)
+        textured = cv2.blur(prof_x.reshape(1, -1), (pers_x | 1, 1)).ravel() >= END_TEXTURE_SHARE * lv_in
+        # brightness over a millimetre: a coarse grain leaves the median across the face noisy
+        prof_s = cv2.blur(prof_i.reshape(1, -1).astype(np.float32), (max(1, int(q)) | 1, 1)).ravel()
+        for side, outward in ((0, -1), (1, +1)):
+            pos = (x_lo, x_hi)[side]
+            far = float(np.median(prof_i[:mcol] if outward < 0 else prof_i[w - mcol :]))
+            new = _calm_end(prof_s, pos, inner_i, far, outward, keep=textured, min_len=pers_x, persist=pers_x)
+            x_lo, x_hi = (new, x_hi) if side == 0 else (x_lo, new)
     if x_hi - x_lo <= 1 * q or y_hi - y_lo <= 0.5 * q:
         raise FaceError("the face found is too small to assess: give --roi around the face")
 
@@ -754,6 +785,46 @@ def _edge_line(x: np.ndarray, y: np.ndarray, inward: float, *, q: float) -> np.n
     else:
         off = float(np.median(r[r <= med + tol]))
     return np.array([a, off * inward])
+
+
+def _calm_end(p, pos: float, inner: float, outer: float, outward: int, *, keep, min_len: int, persist: int):
+    """Move a face end outwards over a calmer stretch of the face itself.
+
+    Walking outwards from ``pos``, the end follows the brightness profile
+    ``p`` while it stays within a quarter of the face-to-surroundings
+    difference of the face's level ``inner`` (a lone sample outside that band
+    is passed over: the walk stops where most of the next ``persist``
+    samples are outside it) and while ``keep`` (still textured) holds.  The
+    stretch walked is taken only when it is at least ``min_len`` samples long
+    (the texture measure's own blur leaves a short textured rim beyond every
+    end, and a notch face of the face's brightness begins right after it) and
+    its median brightness lies within 15 % of that difference of ``inner`` (a
+    plate or bead beside the end is a little darker or brighter than the
+    face).  Nothing moves when the face and its surroundings differ by less
+    than 12 grey levels.
+    """
+    p = np.asarray(p, dtype=np.float64)
+    n = len(p)
+    if abs(inner - outer) < 12.0:
+        return pos
+    tol = max(4.0, 0.25 * abs(inner - outer))
+    off = np.abs(p - inner) > tol
+    k = int(round(pos))
+    last = None
+    for step in range(1, n):
+        i = k + outward * step
+        if not 0 <= i < n or not keep[i]:
+            break
+        ahead = off[i : i + persist] if outward > 0 else off[max(0, i - persist + 1) : i + 1]
+        if off[i] and np.mean(ahead) >= 0.7:
+            break
+        last = i
+    if last is None or abs(last - pos) < min_len:
+        return pos
+    a, b = sorted((k, last))
+    if abs(float(np.median(p[a : b + 1])) - inner) > 0.15 * abs(inner - outer):
+        return pos
+    return float(last + 0.5 * outward)
 
 
 def _same_brightness_reach(p: np.ndarray, pos: float, inner: float, outer: float, outward: int, reach: float):

@@ -56,12 +56,15 @@ def _texture(rng, shape, *, grain_px: float, mean: float, std: float) -> np.ndar
     return mean + std * t / (t.std() + 1e-9)
 
 
-def analytic_photo(face_mm=None, *, seed=0, band=None, grain_std=28.0):
+def analytic_photo(face_mm=None, *, seed=0, band=None, grain_std=28.0, rough=None):
     """Photo (rgb, gray) and calibration of a textured polygon on a plain, shaded background.
 
     ``band``: (x0, x1, y_edge, width, inward) mm - an untextured strip of the
     face along its straight edge ``y = y_edge`` (a smooth lack-of-fusion band),
     still part of the face.
+    ``rough``: (x0, x1, factor) mm - the grain between X = x0 and x1 is
+    ``factor`` times stronger (a stretch of the face rougher than its ends),
+    same mean brightness.
     """
     rng = np.random.default_rng(seed)
     w, h = int(CANVAS_MM[0] * CANVAS_PX_PER_MM), int(CANVAS_MM[1] * CANVAS_PX_PER_MM)
@@ -71,6 +74,11 @@ def analytic_photo(face_mm=None, *, seed=0, band=None, grain_std=28.0):
         m = np.zeros((h, w), np.uint8)
         cv2.fillPoly(m, [np.round(_to_canvas(face_mm) * 16).astype(np.int32)], 1, shift=4)
         tex = _texture(rng, (h, w), grain_px=0.15 * CANVAS_PX_PER_MM, mean=150.0, std=grain_std)
+        if rough is not None:
+            rx0, rx1, factor = rough
+            c0, c1 = (np.array([rx0, rx1]) - CANVAS_LO[0]) * CANVAS_PX_PER_MM
+            sel = (xx >= c0) & (xx < c1)
+            tex[sel] = 150.0 + factor * (tex[sel] - 150.0)
         if band is not None:
             x0, x1, y_edge, bw, inward = band
             bm = np.zeros((h, w), np.uint8)
@@ -156,6 +164,19 @@ def test_smooth_band_along_the_root_stays_in_the_face(x1):
     assert face.area_mm2 == pytest.approx(shoelace(RECT), rel=0.04)  # analytic geometry
     assert iou_plane(plane_outline(face, calib), np.asarray(RECT)) > 0.93
     assert face.mask.mean() > 0.93  # a rectangle's outline fills its own bounding box
+
+
+@pytest.mark.parametrize(
+    "rough", [(65.0, 105.0, 1.6), (50.0, 120.0, 1.5)], ids=["middle-third", "middle-two-thirds"]
+)
+def test_face_rougher_in_its_middle_keeps_its_calm_ends(rough):
+    """A stretch of the face rougher than the rest (defects, a coarser break) is neither the face nor a
+    sign that the face is the specimen: the ends, calmer but of the face's brightness and texture, stay."""
+    rgb, gray, calib = analytic_photo(RECT, seed=12, rough=rough)
+    face = find_face(rgb, gray, calib)
+    assert face.area_mm2 == pytest.approx(shoelace(RECT), rel=0.04)  # analytic geometry
+    assert face.length_mm == pytest.approx(RECT[1][0] - RECT[0][0], rel=0.03)  # the polygon's X extent
+    assert iou_plane(plane_outline(face, calib), np.asarray(RECT)) > 0.93
 
 
 def test_no_face_raises_with_advice():
