@@ -37,6 +37,14 @@ Every rule returns ``pass``, ``fail`` or ``review`` and the verdict is
   alone towards ``reject``: if a rule fails only because of such detections
   the verdict is ``review``.  Rows a reviewer ``confirmed`` or ``edited``
   and ``manual`` rows count as confident; ``dismissed`` rows are not judged.
+* **Doubtful kind.**  A pore and a slag inclusion (or a crack and an
+  elongated inclusion) can look alike; limits differ by kind.  An unreviewed
+  detection whose runner-up kind ``kind_alt`` has probability ``kind_alt_p``
+  of at least ``KIND_DOUBT_P`` is judged once more as that kind; if the
+  coupon would then be rejected (or, for an accept, sent to review), an
+  ``accept`` becomes ``review`` with a reason naming the detection and the
+  rule.  A reject stays a reject; a confirmed or edited row is taken as the
+  reviewer says.
 * **Thresholds** (smallest size that counts, corner sizes, band limits) are
   also compared with ``U``: an imperfection within its uncertainty of a
   threshold is counted when asking "could this fail?" and left out when
@@ -116,6 +124,7 @@ from .atomic import write_text_atomic
 from .model import KINDS, TEST_TYPES, SurfacesError
 
 __all__ = [
+    "KIND_DOUBT_P",
     "CAUTIONS",
     "COVERAGE_K",
     "LimitSet",
@@ -1595,7 +1604,7 @@ def _check_nominal(nominal: dict | None) -> dict:
 
 
 def judge(table: pd.DataFrame, *, face: dict, nominal: dict, limit_set: LimitSet,
-          test: str) -> Verdict:
+          test: str, check_kinds: bool = True) -> Verdict:
     """Judge an imperfection table against a limit set.
 
     Parameters
@@ -1610,6 +1619,11 @@ def judge(table: pd.DataFrame, *, face: dict, nominal: dict, limit_set: LimitSet
     limit_set : LimitSet
     test : str
         ``fillet-break``, ``nick-break`` or ``bend``.
+    check_kinds : bool
+        Also judge each unreviewed imperfection as its runner-up kind
+        (``kind_alt``, when ``kind_alt_p >= KIND_DOUBT_P``); a verdict that
+        would then be worse makes an ``accept`` a ``review`` (see the module
+        notes).
 
     Returns
     -------
@@ -1658,7 +1672,50 @@ def judge(table: pd.DataFrame, *, face: dict, nominal: dict, limit_set: LimitSet
         result = "accept"
         reasons = [f"accept: all {len(limit_set.rules)} rules of '{limit_set.name}' pass for "
                    f"{len(items)} imperfection(s) judged ({dismissed} dismissed)"]
+    if check_kinds and result != "reject":
+        doubts, ids = _kind_doubts(table, items, face=face, nominal=nominal, limit_set=limit_set, test=test,
+                                   accepted=result == "accept")
+        if doubts:
+            result, reasons = "review", doubts + (reasons if result == "review" else [])
+            details.append({
+                "rule": "kind-doubt", "check": "kind-doubt", "kinds": [], "status": "review", "outcome": "review",
+                "limit": f"runner-up kind probability >= {KIND_DOUBT_P:g}", "limit_mm": None, "value": None,
+                "u_expanded": None, "items": ids, "clause": "", "confidence": "", "messages": doubts,
+            })
     return Verdict(result=result, reasons=tuple(reasons + notes), details=tuple(details))
+
+
+#: A detection whose second most probable kind has at least this probability is
+#: also judged as that kind (pore and slag inclusion look alike on a photo).
+KIND_DOUBT_P = 0.2
+
+
+def _kind_doubts(table: pd.DataFrame, items: list, *, face, nominal, limit_set: LimitSet, test: str,
+                 accepted: bool) -> tuple[list[str], list[int]]:
+    """Reasons to review: unreviewed detections that, judged as their runner-up kind, make the verdict worse."""
+    if "kind_alt" not in table.columns or "id" not in table.columns:
+        return [], []
+    worse = ("reject", "review") if accepted else ("reject",)
+    out, ids = [], []
+    ident = pd.to_numeric(table["id"], errors="coerce")
+    for it in items:
+        status = _text(it.row.get("status")).lower() or "auto"
+        if status in ("confirmed", "edited") or _text(it.row.get("source")) == "manual":
+            continue  # a person has settled the kind
+        alt, p = _text(it.row.get("kind_alt")).lower(), _num(it.row.get("kind_alt_p"))
+        if alt not in KINDS or alt == it.kind or not (math.isfinite(p) and p >= KIND_DOUBT_P):
+            continue
+        t2 = table.copy()
+        t2.loc[ident == it.id, "kind"] = alt
+        v2 = judge(t2, face=face, nominal=nominal, limit_set=limit_set, test=test, check_kinds=False)
+        if v2.result in worse:
+            first = next((r for r in v2.reasons if not r.startswith("note")), v2.reasons[0])
+            conf = f", p {it.conf:.2f}" if math.isfinite(it.conf) else ""
+            out.append(f"kind-doubt: imperfection {it.id} was called {it.kind}{conf} but may be {alt} "
+                       f"(p {p:.2f}); judged as {alt} the coupon would be {v2.result} ({first}): "
+                       "confirm or correct its kind")
+            ids.append(it.id)
+    return out, ids
 
 
 def judge_assessment(assessment: dict, limit_set: LimitSet, *,

@@ -47,6 +47,7 @@ TABLE_COLUMNS: tuple[str, ...] = (
     "area_mm2", "area_u_mm2",
     "x0_mm", "x1_mm", "y0_mm", "y1_mm", "cx_mm", "cy_mm",
     "dist_root_mm", "dist_end_mm", "dist_edge_mm", "at_edge", "at_root", "cause",
+    "kind_alt", "kind_alt_p",
     "centroid_px", "bbox_px", "outline_px", "source", "status",
 )  # fmt: skip
 
@@ -58,6 +59,15 @@ def empty_table() -> pd.DataFrame:
 #: Outline terms of the uncertainty model (see the module docstring).
 OUTLINE_EDGE_PX = 0.5
 OUTLINE_REL = 0.05
+
+
+def _runner_up(d: Detection) -> dict:
+    """The second most probable imperfection kind of a detection and its probability
+    (``""`` and NaN when the segmenter gave no class probabilities)."""
+    alt = sorted(((float(p), k) for k, p in (d.probs or {}).items() if k not in ("none", d.kind)), reverse=True)
+    if not alt:
+        return {"kind_alt": "", "kind_alt_p": float("nan")}
+    return {"kind_alt": alt[0][1], "kind_alt_p": round(alt[0][0], 4)}
 
 
 def edge_sigma_mm(kind: str, *, photo_px_per_mm: float, work_px_per_mm: float) -> float:
@@ -167,6 +177,7 @@ def measure(
                 "at_edge": bool(dist_edge <= EDGE_BAND_MM or (not edges_only and dist_end <= EDGE_BAND_MM)),
                 "at_root": bool(at_root),
                 "cause": d.cause,
+                **_runner_up(d),
                 "centroid_px": [round(float(cen[0]), 2), round(float(cen[1]), 2)],
                 "bbox_px": [
                     round(float(outline[:, 0].min()), 1),

@@ -30,8 +30,8 @@ CONTRACT_COLUMNS = (
     "id", "kind", "iso6520", "confidence", "greatest_mm", "greatest_u_mm", "width_mm",
     "width_u_mm", "along_mm", "along_u_mm", "across_mm", "across_u_mm", "area_mm2",
     "area_u_mm2", "x0_mm", "x1_mm", "y0_mm", "y1_mm", "cx_mm", "cy_mm", "dist_root_mm",
-    "dist_end_mm", "dist_edge_mm", "at_edge", "at_root", "cause", "centroid_px", "bbox_px",
-    "outline_px", "source", "status",
+    "dist_end_mm", "dist_edge_mm", "at_edge", "at_root", "cause", "kind_alt", "kind_alt_p",
+    "centroid_px", "bbox_px", "outline_px", "source", "status",
 )  # fmt: skip
 
 
@@ -567,3 +567,38 @@ def test_values_just_over_a_limit_show_enough_decimals():
     assert verdict(ls, imp(1, "pore", 2.3813)).reasons == (
         "r: pore 1: greatest 2.3813 +/- 0 mm > 3/32 in (2.381 mm)",)
     assert verdict(ls, imp(1, "pore", 2.5)).reasons == ("r: pore 1: greatest 2.5 +/- 0 mm > 3/32 in (2.381 mm)",)
+
+
+# --------------------------------------------------------------------------- doubtful kind
+
+
+def _pore_or_slag() -> L.LimitSet:
+    # pores up to 3 mm, slag inclusions up to 1 mm: the kind decides the verdict (invented rules)
+    data = {"schema": "surfaces.limits/1", "name": "t", "tests": ["fillet-break"],
+            "rule": [{"id": "pores", "check": "max_size", "kinds": ["pore"], "max": "3 mm"},
+                     {"id": "slag", "check": "max_size", "kinds": ["inclusion"], "max": "1 mm"}]}
+    return L.parse_limit_set(tomli_w.dumps(data), origin="t.toml")
+
+
+def test_a_pore_that_may_be_slag_goes_to_review():
+    # analytic: 2 mm passes the 3 mm pore rule but fails the 1 mm inclusion rule
+    ls = _pore_or_slag()
+    v = verdict(ls, imp(1, "pore", 2.0, kind_alt="inclusion", kind_alt_p=0.35))
+    assert v.result == "review"
+    assert "imperfection 1" in v.reasons[0] and "inclusion" in v.reasons[0] and "slag" in v.reasons[0]
+    assert any(d["rule"] == "kind-doubt" and d["items"] == [1] for d in v.details)
+
+
+def test_kind_doubt_below_the_threshold_a_reviewed_kind_and_a_reject_stay():
+    ls = _pore_or_slag()
+    low = L.KIND_DOUBT_P / 2
+    assert verdict(ls, imp(1, "pore", 2.0, kind_alt="inclusion", kind_alt_p=low)).result == "accept"
+    assert verdict(ls, imp(1, "pore", 2.0, kind_alt="inclusion", kind_alt_p=0.35,
+                           status="confirmed")).result == "accept"
+    # no runner-up given (an older table): judged as before
+    assert verdict(ls, imp(1, "pore", 2.0, kind_alt="", kind_alt_p=float("nan"))).result == "accept"
+    # a reject is never softened by the other reading
+    v = verdict(ls, imp(1, "inclusion", 2.0, kind_alt="pore", kind_alt_p=0.45))
+    assert v.result == "reject"
+    # the other reading that passes too changes nothing
+    assert verdict(ls, imp(1, "pore", 0.5, kind_alt="inclusion", kind_alt_p=0.45)).result == "accept"
