@@ -626,9 +626,13 @@ def review_panel(w, auto: dict) -> None:
             e = w.review.edits.get(rid) or R.Edit()
             with st.container(key=f"rv_row_{rid}"):
                 c = st.columns(_REVIEW_COLS, vertical_alignment="center")
+                alt, alt_p = str(r.get("kind_alt") or ""), r.get("kind_alt_p")
+                doubt = (f" · may be {KIND_NAMES.get(alt, alt)} ({float(alt_p):.2f})"
+                         if alt in KIND_NAMES and alt_p is not None and math.isfinite(float(alt_p))
+                         and float(alt_p) >= L.KIND_DOUBT_P else "")
                 c[0].markdown(f"**{rid}** · {KIND_NAMES.get(r['kind'], r['kind'])} · "
                               f"{H.fmt_pm(r.get('greatest_mm'), r.get('greatest_u_mm'))} mm · "
-                              f"confidence {float(r.get('confidence') or 0):.2f}")
+                              f"confidence {float(r.get('confidence') or 0):.2f}{doubt}")
                 k = f"rv_{w.key}_{rid}_dec"
                 c[1].radio(f"Decision on imperfection {rid}", R.DECISIONS, index=R.DECISIONS.index(e.decision),
                            horizontal=True, key=k, label_visibility="collapsed",
