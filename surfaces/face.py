@@ -23,8 +23,9 @@ The face is located in two passes:
 
 The result is the outline (``Face.mask``, ``Face.area_mm2``), not its
 bounding rectangle.  An automatic search that is unsure (faint outline, an
-outline much smaller than the textured region it came from, a face wider
-than the test allows, a face running out of the photo) raises
+end beyond which the face's texture and brightness go on, an outline much
+smaller than the textured region it came from, a face wider than the test
+allows, a face running out of the photo) raises
 :class:`~surfaces.model.FaceError` asking for ``--roi`` rather than measure
 the wrong region.
 
@@ -433,6 +434,10 @@ FINE_PX_PER_MM = 10.0
 #: an end moves outwards over the face's brightness only while the texture stays above this
 #: share of the face middle's level (a notch face or smooth plate is below it)
 END_TEXTURE_SHARE = 0.25
+#: texture (share of the face middle's level) 1-4 mm beyond an end, at the face's brightness,
+#: above which the end is not trusted
+OPEN_END_SHARE = 0.12
+OPEN_END_NOTE = "the face's texture goes on beyond an end: check the ends on the overlay"
 #: length of the stretches along the weld whose long edges are located separately
 EDGE_BIN_MM = 2.0
 
@@ -529,6 +534,20 @@ def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: f
             far = float(np.median(prof_i[:mcol] if outward < 0 else prof_i[w - mcol :]))
             new = _calm_end(prof_s, pos, inner_i, far, outward, keep=textured, min_len=pers_x, persist=pers_x)
             x_lo, x_hi = (new, x_hi) if side == 0 else (x_lo, new)
+        # an end beyond which the face's brightness goes on, still clearly textured, is not
+        # an end that can be trusted (a face much calmer there than in its middle, or the
+        # plate of the face's own look): the outline is then as likely a part of the face
+        # (texture just beside the long edges there too is the plate or table around the face)
+        r0, r1 = max(0, int(y_lo - 3 * q)), max(1, int(y_lo - 1 * q))
+        r2, r3 = min(h - 1, int(y_hi + 1 * q)), min(h, int(y_hi + 3 * q))
+        beside = np.maximum(np.median(e[r0:r1], axis=0) if r1 > r0 else 0.0,
+                            np.median(e[r2:r3], axis=0) if r3 > r2 else 0.0)
+        for pos, outward, far in ((x_lo, -1, prof_i[:mcol]), (x_hi, +1, prof_i[w - mcol :])):
+            if _texture_goes_on(prof_x, prof_s, beside, pos, outward, inner_i=inner_i, outer_i=float(np.median(far)),
+                                level=OPEN_END_SHARE * lv_in, q=q):
+                c_x = min(c_x, 0.3)
+                warnings.append(OPEN_END_NOTE)
+                break
     if x_hi - x_lo <= 1 * q or y_hi - y_lo <= 0.5 * q:
         raise FaceError("the face found is too small to assess: give --roi around the face")
 
@@ -637,10 +656,9 @@ def find_face(
     if conf < MIN_AUTO_CONFIDENCE and roi is None:
         # an outline this unsure is as likely a part of the face (or of the plate) as the
         # face: measuring against it could pass a face that was never looked at
-        raise FaceError(
-            "the face's outline barely stands out from its surroundings (outline confidence "
-            f"{conf:.2f}): give --roi X0,Y0,X1,Y1 around the face"
-        )
+        why = ("an end of the face found is unsure (the face's texture goes on beyond it; "
+               if OPEN_END_NOTE in warnings else "the face's outline barely stands out from its surroundings (")
+        raise FaceError(f"{why}outline confidence {conf:.2f}): give --roi X0,Y0,X1,Y1 around the face")
     if conf < WARN_CONFIDENCE:
         warnings.append("the face outline is uncertain: check it on the overlay or give --roi")
 
@@ -785,6 +803,26 @@ def _edge_line(x: np.ndarray, y: np.ndarray, inward: float, *, q: float) -> np.n
     else:
         off = float(np.median(r[r <= med + tol]))
     return np.array([a, off * inward])
+
+
+def _texture_goes_on(tex, bright, beside, pos: float, outward: int, *, inner_i: float, outer_i: float,
+                     level: float, q: float) -> bool:
+    """Whether the face seems to go on beyond an end.
+
+    True when the stretch 1-4 mm beyond the end is still textured (mean
+    ``tex`` at least ``level``), of the face's brightness (median ``bright``
+    within 15 % of the face-to-surroundings difference of ``inner_i``) and
+    textured only within the face's band (``beside``, the texture just
+    outside the long edges, under half of it there: plate or table carry
+    their texture across).
+    """
+    a, b = sorted((int(round(pos + outward * 1.0 * q)), int(round(pos + outward * 4.0 * q))))
+    a, b = max(a, 0), min(b, len(tex) - 1)
+    if b - a < q or abs(inner_i - outer_i) < 12.0:
+        return False
+    t = float(np.mean(tex[a : b + 1]))
+    same = abs(float(np.median(bright[a : b + 1])) - inner_i) <= 0.15 * abs(inner_i - outer_i)
+    return bool(same and t >= level and float(np.mean(beside[a : b + 1])) < 0.5 * t)
 
 
 def _calm_end(p, pos: float, inner: float, outer: float, outward: int, *, keep, min_len: int, persist: int):

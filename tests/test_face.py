@@ -179,6 +179,20 @@ def test_face_rougher_in_its_middle_keeps_its_calm_ends(rough):
     assert iou_plane(plane_outline(face, calib), np.asarray(RECT)) > 0.93
 
 
+def test_face_much_calmer_at_its_ends_is_refused_not_cut():
+    """Ends four times calmer (in texture energy) than the middle, of the face's brightness and bounded
+    by its long edges: the outline cannot tell where the face ends, so it asks for a box rather than
+    return the rough middle alone (55 % short)."""
+    rgb, gray, calib = analytic_photo(RECT, seed=12, rough=(60.0, 110.0, 2.0))
+    with pytest.raises(FaceError, match="goes on beyond it.*--roi"):
+        find_face(rgb, gray, calib)
+    # with a box the same face is measured, and the doubt stays on it as a warning
+    box = apply_h(H_PLANE_TO_PHOTO, np.array([[20.0, 30.0], [150.0, 60.0]]))
+    (x0, y0), (x1, y1) = box.min(0), box.max(0)
+    face = find_face(rgb, gray, calib, roi=(x0, y0, x1, y1))
+    assert any("beyond an end" in w for w in face.warnings)
+
+
 def test_no_face_raises_with_advice():
     rgb, gray, calib = analytic_photo(None, seed=7)
     with pytest.raises(FaceError, match="--roi"):
