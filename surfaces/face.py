@@ -501,8 +501,15 @@ def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: f
         # face's own brightness is still face
         inner_i = float(np.median(prof_i[int(y_lo + 0.3 * (y_hi - y_lo)) : int(y_hi - 0.3 * (y_hi - y_lo)) + 1]))
         reach_b = max(1.5 * q, 0.3 * (y_hi - y_lo))
-        y_lo = _same_brightness_reach(prof_i, y_lo, inner_i, float(np.median(prof_i[:mrow])), -1, reach_b)
-        y_hi = _same_brightness_reach(prof_i, y_hi, inner_i, float(np.median(prof_i[h - mrow :])), +1, reach_b)
+        # the surroundings' level: the far margin, or just beyond the reach when that differs more
+        # from the face (a background shaded towards the face's brightness)
+        def _outer(far, pos, outward):
+            a, b = sorted((int(pos + outward * reach_b), int(pos + outward * (reach_b + q))))
+            near = prof_i[max(a, 0) : max(min(b, h - 1), 0) + 1]
+            lv = [float(np.median(far))] + ([float(np.median(near))] if near.size else [])
+            return max(lv, key=lambda v: abs(v - inner_i))
+        y_lo = _same_brightness_reach(prof_i, y_lo, inner_i, _outer(prof_i[:mrow], y_lo, -1), -1, reach_b)
+        y_hi = _same_brightness_reach(prof_i, y_hi, inner_i, _outer(prof_i[h - mrow :], y_hi, +1), +1, reach_b)
     band = slice(int(math.ceil(y_lo + 0.15 * (y_hi - y_lo))), int(y_hi - 0.15 * (y_hi - y_lo)) + 1)
     # along the face: a profile smoothed over half a millimetre, walked in from both margins
     prof_x = cv2.blur(np.median(e[band, :], axis=0).reshape(1, -1), (max(1, int(0.5 * q)) | 1, 1)).ravel()

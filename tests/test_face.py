@@ -56,7 +56,8 @@ def _texture(rng, shape, *, grain_px: float, mean: float, std: float) -> np.ndar
     return mean + std * t / (t.std() + 1e-9)
 
 
-def analytic_photo(face_mm=None, *, seed=0, band=None, grain_std=28.0, rough=None):
+def analytic_photo(face_mm=None, *, seed=0, band=None, grain_std=28.0, rough=None, band_value=140.0, table=95.0,
+                   shadow=None):
     """Photo (rgb, gray) and calibration of a textured polygon on a plain, shaded background.
 
     ``band``: (x0, x1, y_edge, width, inward) mm - an untextured strip of the
@@ -65,11 +66,20 @@ def analytic_photo(face_mm=None, *, seed=0, band=None, grain_std=28.0, rough=Non
     ``rough``: (x0, x1, factor) mm - the grain between X = x0 and x1 is
     ``factor`` times stronger (a stretch of the face rougher than its ends),
     same mean brightness.
+    ``band_value``: the band's grey level; ``table``: the background's level.
+    ``shadow``: (x0, x1, y_edge, width, outward, value) mm - a plain strip of grey ``value``
+    just outside the straight edge ``y = y_edge`` (the gap or shadow beside a coupon's edge).
     """
     rng = np.random.default_rng(seed)
     w, h = int(CANVAS_MM[0] * CANVAS_PX_PER_MM), int(CANVAS_MM[1] * CANVAS_PX_PER_MM)
     yy, xx = np.mgrid[0:h, 0:w].astype(np.float32)
-    canvas = 95.0 + 20.0 * xx / w - 10.0 * yy / h  # plain table, gently shaded
+    canvas = table + 20.0 * xx / w - 10.0 * yy / h  # plain table, gently shaded
+    if shadow is not None:
+        sx0, sx1, sy, sw, sout, sval = shadow
+        strip = [(sx0, sy), (sx1, sy), (sx1, sy + sout * sw), (sx0, sy + sout * sw)]
+        sm = np.zeros((h, w), np.uint8)
+        cv2.fillPoly(sm, [np.round(_to_canvas(strip) * 16).astype(np.int32)], 1, shift=4)
+        canvas[sm > 0] = sval
     if face_mm is not None:
         m = np.zeros((h, w), np.uint8)
         cv2.fillPoly(m, [np.round(_to_canvas(face_mm) * 16).astype(np.int32)], 1, shift=4)
@@ -84,7 +94,7 @@ def analytic_photo(face_mm=None, *, seed=0, band=None, grain_std=28.0, rough=Non
             bm = np.zeros((h, w), np.uint8)
             strip = [(x0, y_edge), (x1, y_edge), (x1, y_edge + inward * bw), (x0, y_edge + inward * bw)]
             cv2.fillPoly(bm, [np.round(_to_canvas(strip) * 16).astype(np.int32)], 1, shift=4)
-            tex[bm > 0] = 140.0  # smooth, no grain
+            tex[bm > 0] = band_value  # smooth, no grain
         canvas = np.where(m > 0, tex, canvas)
     canvas = cv2.GaussianBlur(canvas.astype(np.float32), (0, 0), 0.8)  # optics, and no aliasing on the way down
     M = H_PLANE_TO_PHOTO @ _canvas_to_plane()
@@ -191,6 +201,18 @@ def test_face_much_calmer_at_its_ends_is_refused_not_cut():
     (x0, y0), (x1, y1) = box.min(0), box.max(0)
     face = find_face(rgb, gray, calib, roi=(x0, y0, x1, y1))
     assert any("beyond an end" in w for w in face.warnings)
+
+
+def test_smooth_rim_brighter_than_the_face_beside_a_shadow_stays_in_the_face():
+    """A smooth rim along the edge, a little brighter than the face's middle, with a dark gap beyond it
+    and a table nearly as bright as the face further out: the rim is face up to the dark gap (the
+    surroundings' level is the gap's, not the far table's)."""
+    band = (30.0, 140.0, 40.0, 2.0, +1.0)  # along y = 40 (RECT's upper edge), 2 mm into the face
+    shadow = (25.0, 145.0, 40.0, 2.5, -1.0, 100.0)  # 2.5 mm dark gap above that edge
+    rgb, gray, calib = analytic_photo(RECT, seed=13, band=band, band_value=158.0, table=128.0, shadow=shadow)
+    face = find_face(rgb, gray, calib)
+    assert face.area_mm2 == pytest.approx(shoelace(RECT), rel=0.04)  # analytic geometry
+    assert face.width_mm == pytest.approx(RECT[2][1] - RECT[1][1], rel=0.06)  # the polygon's Y extent
 
 
 def test_no_face_raises_with_advice():
