@@ -31,7 +31,9 @@ Two steps:
    ridge fraction, contact with the face edge) and scored by a small
    multinomial logistic model (:mod:`surfaces.regionmodel`) whose weights are
    fitted on synthetic faces by ``scripts/fit_region_model.py``; a few
-   candidates are settled by physics first (:func:`ruled_out`).  The model's
+   candidates are settled by physics first (:func:`ruled_out`: a ridge
+   brighter than its ring, an untinted patch not clearly smoother than its
+   ring, an untinted smooth strip along the face's edge).  The model's
    probability is the detection's confidence; two views of one imperfection
    are merged (:func:`_dedupe`).  Nothing under ``min_size_mm``
    is reported, and nothing the photo cannot resolve (under
@@ -168,6 +170,7 @@ class _Maps:
     seed_level: float = SEED_LEVEL
     hp2: np.ndarray | None = None  # squared detail finer than the grain scale (unblurred)
     hp_px: float = 1.0  # the grain scale in face px
+    border_px: np.ndarray | None = None  # distance (face px) to the nearest pixel off the face mask
 
 
 def _maps(rgb, mask, mm, photo_mm) -> _Maps:
@@ -195,8 +198,10 @@ def _maps(rgb, mask, mm, photo_mm) -> _Maps:
     dk = 1.0 - rel[mask][:: max(1, int(mask.sum() // 200000))]
     spread = float(np.median(dk) + 6.0 * _robust_sigma(dk)) if dk.size else 1.0 - SEED_LEVEL
     seed_level = 1.0 - min(max(spread, 1.0 - SEED_MAX_LEVEL), 1.0 - SEED_LEVEL)
+    # the image's own border counts as off the face
+    border = cv2.distanceTransform(np.pad(mask, 1).astype(np.uint8), cv2.DIST_L2, 3)[1:-1, 1:-1]
     return _Maps(g, gs, bg, rel, tex, tex_med, lab, lab_med, ridge, ridge_med, ridge_sig, np.hypot(gx, gy), mask, mm,
-                 photo_mm, seed_level, hp * hp, hp_px)  # fmt: skip
+                 photo_mm, seed_level, hp * hp, hp_px, border)  # fmt: skip
 
 
 def segment(
@@ -307,17 +312,30 @@ def ruled_out(f: dict) -> str:
     * an untinted smooth region whose grain is not clearly finer than its
       surroundings' (inner texture over the ring's above
       :data:`SMOOTH_RATIO`): lack of fusion shows a smooth wall or an oxide
-      tint; a patch only somewhat smoother than a smooth surface is neither.
+      tint; a patch only somewhat smoother than a smooth surface is neither;
+    * a smooth strip along the face's edge (a good part of its outline,
+      :data:`STRIP_TOUCH`, on the face mask's border, reaching under
+      :data:`STRIP_REACH_MM` into the face) without a clear tint
+      (:data:`STRIP_TINT`): a rounded or sheared edge, the blur of the edge
+      and a sliver of the plate or its shadow that the face outline took in
+      all look like that.  A band of lack of fusion at the root is either
+      tinted or reaches further in.
     """
     if f["source"] == "ridge" and f["contrast"] <= 0.0:
         return "a ridge region brighter than its surroundings"
     if f["source"] == "smooth" and f["chroma_face"] < UNTINTED and f["tex_in"] > SMOOTH_RATIO * f["tex_ring"]:
         return "an untinted region not clearly smoother than its surroundings"
+    if (f["source"] == "smooth" and f.get("border_touch", 0.0) >= STRIP_TOUCH
+            and f.get("border_reach_mm", np.inf) < STRIP_REACH_MM and f["chroma_face"] < STRIP_TINT):  # fmt: skip
+        return "an untinted strip along the face's edge"
     return ""
 
 
 SMOOTH_RATIO = 0.5
 UNTINTED = 5.0  # Lab chroma distance to the face's colour under which a region has no tint of its own
+STRIP_TOUCH = 0.3  # share of a region's outline on the face's border that makes it a strip along the edge
+STRIP_REACH_MM = 1.0  # ... when it reaches less than this into the face (90 % of its pixels)
+STRIP_TINT = 1.5 * UNTINTED  # ... and then it needs a clear tint: edges catch light and colour casts
 
 
 # --------------------------------------------------------------------------
@@ -445,7 +463,7 @@ def _region_candidates(lab, M: _Maps, *, min_px: float, min_greatest_mm: float, 
             continue
         win = (slice(max(0, sl[0].start - pad), min(h, sl[0].stop + pad)),
                slice(max(0, sl[1].start - pad), min(w, sl[1].stop + pad)))  # fmt: skip
-        out.append(Detection(kind, 0.0, cont, ISO6520[kind], _appearance(f, lab[win] == i, win, M, source=source)))
+        out.append(Detection(kind, 0.0, cont, ISO6520[kind], _appearance(f, lab[win] == i, win, M, source=source, contour=cont)))
     return out
 
 
@@ -572,7 +590,7 @@ def _dark_detection(region, patch, level, b, core, R0, C0, M: _Maps) -> Detectio
     if f["area_mm2"] <= 0:
         return None
     sl2 = (slice(R0, R0 + patch.shape[0]), slice(C0, C0 + patch.shape[1]))
-    f = _appearance(f, region, sl2, M, source="dark", ring_level=b, core_level=core)
+    f = _appearance(f, region, sl2, M, source="dark", contour=cont, ring_level=b, core_level=core)
     return Detection("candidate", 0.0, cont, "", f)
 
 
@@ -582,11 +600,12 @@ def _quantile(x: np.ndarray, q: float) -> float:
     return float(np.partition(x, k)[k])
 
 
-def _appearance(f: dict, reg: np.ndarray, sl, M: _Maps, *, source: str, ring_level=None, core_level=None) -> dict:
+def _appearance(f: dict, reg: np.ndarray, sl, M: _Maps, *, source: str, contour=None, ring_level=None, core_level=None) -> dict:
     """Generic region features used by the region model (all dimensionless or mm).
 
     ``reg`` is the region inside the window ``sl`` of the face, which should
-    leave room for the surrounding ring (about 0.3 mm) on every side.
+    leave room for the surrounding ring (about 0.3 mm) on every side;
+    ``contour`` is its outline in face pixels (col, row).
     """
     mm = M.mm
     h, w = M.g.shape
@@ -637,6 +656,17 @@ def _appearance(f: dict, reg: np.ndarray, sl, M: _Maps, *, source: str, ring_lev
     near_edge = (rr < edge_band) | (rr >= h - edge_band)
     edge_contact = float(per_row[near_edge].sum() / max(per_row.sum(), 1)) if len(rows) else 0.0
     thick = f["area_mm2"] / max(f["greatest_mm"], 1e-6)
+    # how the region sits against the face mask's border: the share of its outline on
+    # the border and how far into the face it reaches (a strip along the edge: much, little)
+    bd = M.border_px[sl]
+    reach = _quantile(bd[reg], 0.9) / mm if reg.any() else 0.0
+    cont = np.round(contour).astype(int) if contour is not None else None
+    if cont is not None and len(cont):
+        cc = np.clip(cont[:, 0], 0, w - 1)
+        rr_ = np.clip(cont[:, 1], 0, h - 1)
+        touch = float((M.border_px[rr_, cc] <= 1.5).mean())
+    else:
+        touch = 0.0
     f = dict(f)
     f.update(
         source=source,
@@ -653,6 +683,8 @@ def _appearance(f: dict, reg: np.ndarray, sl, M: _Maps, *, source: str, ring_lev
         photo_px=f["greatest_mm"] * M.photo_mm,
         photo_thick_px=thick * M.photo_mm,
         bright_frac=float((pin > b).mean()),
+        border_touch=touch,
+        border_reach_mm=reach,
     )
     return f
 

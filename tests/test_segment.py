@@ -205,3 +205,55 @@ def test_bad_input_is_a_clear_error(rgb, kw, words):
     msg = str(e.value)
     assert words in msg and "\n" not in msg
     assert isinstance(e.value, SurfacesError)
+
+
+def rimmed_face(*, seed, rim_mm, H=8.0, W=50.0):
+    """A grain face whose top edge is a bright smooth rim, with two smooth bands at the root (bottom) edge.
+
+    The rim: over its outer half the grain keeps 5 % of its contrast and the
+    face is 25 grey levels brighter, then both ramp back to the face's grain
+    over its inner half (a rounded or sheared edge catching the light).  The
+    bands: grain at 15 % contrast, one 17 mm x 1.4 mm with an oxide-like tint,
+    one 17 mm x 2.6 mm untinted.  The mask leaves a 0.25 mm edge band out, as
+    the pipeline does.  Returns the RGB face, the mask and the bands as
+    (x0, x1, visible width) in mm.
+    """
+    h, w = int(H * PPM), int(W * PPM)
+    g = grain((h, w), seed=seed)
+    rows = (np.arange(h) + 0.5) / PPM
+    ramp = np.clip((rows - 0.5 * rim_mm) / (0.5 * rim_mm), 0, 1)[:, None]
+    g = 150 + (g - 150) * (0.05 + 0.95 * ramp) + 25 * (1 - ramp)
+    inset = 0.25
+    bands = {"tinted": (5.0, 22.0, 1.4), "grey": (28.0, 45.0, 2.6)}
+    masks = {}
+    for name, (x0, x1, bw) in bands.items():
+        m = np.zeros((h, w), bool)
+        m[int(round((H - bw) * PPM)) :, int(x0 * PPM) : int(x1 * PPM)] = True
+        masks[name] = m
+    smooth = masks["tinted"] | masks["grey"]
+    g = np.where(smooth, 150 + (g - 150) * 0.15, g)
+    g = cv2.GaussianBlur(g.astype(np.float32), (0, 0), 0.8)
+    rgb = np.dstack([g, g, g])
+    rgb[masks["tinted"]] += np.array([18.0, 4.0, -14.0])  # brown-blue shift: Lab chroma ~11 from the face
+    rgb = np.clip(np.round(rgb), 0, 255).astype(np.uint8)
+    k = int(round(inset * PPM))
+    mask = np.zeros((h, w), bool)
+    mask[k:-k, k:-k] = True
+    return rgb, mask, {n: (x0, x1, bw - inset) for n, (x0, x1, bw) in bands.items()}, H
+
+
+@pytest.mark.parametrize("seed,rim_mm", [(3, 1.0), (5, 1.0), (7, 0.8), (3, 1.2)])
+def test_smooth_rim_along_the_edge_is_not_unfused_but_root_bands_are(seed, rim_mm):
+    # truth by construction (rimmed_face); sizes against the drawn rectangles (analytic geometry)
+    rgb, mask, bands, H = rimmed_face(seed=seed, rim_mm=rim_mm)
+    dets = segment(rgb, mask, px_per_mm=PPM, photo_px_per_mm=PPM)
+    unfused = [d for d in dets if d.kind == "unfused"]
+    # nothing called unfused within the rim (the top 1.5 mm of the face)
+    assert not [d for d in unfused if d.features["cy_mm"] < 1.5], [round(d.features["cy_mm"], 2) for d in unfused]
+    for name, (x0, x1, width) in bands.items():
+        d, dist = nearest(unfused, (x0 + x1) / 2, H - width / 2)
+        assert d is not None and dist < 1.0, name
+        # greatest dimension within the evaluation's tolerance (max(0.15 mm, 5 %))
+        assert abs(d.features["greatest_mm"] - (x1 - x0)) <= greatest_tolerance_mm(x1 - x0), name
+        # width: the 0.8 px blur and the half-contrast outline move each side by under a pixel or two
+        assert abs(d.features["width_mm"] - width) <= 0.25, (name, d.features["width_mm"], width)
