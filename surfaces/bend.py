@@ -62,6 +62,8 @@ END_LOW_SHARE = 0.4
 END_LOW_RATIO = 1.4
 END_BOTH_RATIO = 1.2
 END_BOTH_SHARE = 0.05
+#: An end whose contrast fades over more than this (mm) is placed at the fade's foot.
+END_RAMP_MM = 1.0
 #: When the coupon runs on to the end of the strip looked at, look this much further
 #: (or half the coarse length), at most this many times.
 EXTEND_MM = 20.0
@@ -972,8 +974,9 @@ def _visible_extent(sub: np.ndarray, *, px_per_mm: float, m_y: float, width: flo
     # outside within a few mm of where it stays low (a matched step, so a dip of the
     # noisy contrast near the end does not stop it early), then half-way down that step
     span, a = int(4.0 * e), max(2, int(1.5 * e))
-    x_lo = _end_step(c, i, span=span, arm=a, outward=-1) if i > 0 else 0.0
-    x_hi = _end_step(c, j, span=span, arm=a, outward=+1) if j < w - 1 else float(w - 1)
+    ramp = int(round(END_RAMP_MM * e))
+    x_lo = _end_step(c, i, span=span, arm=a, outward=-1, low=low, ramp=ramp) if i > 0 else 0.0
+    x_hi = _end_step(c, j, span=span, arm=a, outward=+1, low=low, ramp=ramp) if j < w - 1 else float(w - 1)
     if not x_hi > x_lo:
         return 0.0, -1.0, False
     return x_lo, x_hi, ok
@@ -998,31 +1001,54 @@ def _longest_run(mask: np.ndarray, *, gap: int, prefer: int, weight: np.ndarray)
     return int(starts[k]), int(ends[k])
 
 
-def _end_step(c: np.ndarray, at: int, *, span: int, arm: int, outward: int) -> float:
+def _end_step(c: np.ndarray, at: int, *, span: int, arm: int, outward: int, low: float | None = None,
+              ramp: int | None = None) -> float:
     """Sub-pixel position of the coupon's end near index ``at`` of the contrast profile ``c``.
 
     The end is the largest drop from the mean over ``arm`` samples inside to
     the mean over ``arm`` samples outside, within ``span`` of ``at``; it is
-    placed where ``c`` crosses half-way between those two means.
+    placed where ``c`` crosses half-way between those two means.  With
+    ``low`` (the level below which there is no coupon) and ``ramp``: a drop
+    that fades gradually (a dark flank turning away ever darker) is followed
+    out to its foot, the first crossing, outwards, of ``low`` (when the
+    table beyond ``at`` lies below it), if that is more than ``ramp``
+    samples beyond the half-way point (a sharp step keeps its half-way point).
     """
     n = len(c)
     cs = np.r_[0.0, np.cumsum(np.asarray(c, np.float64))]
-    best, xb, lv = -np.inf, at, None
+    best, xb, lv, out = -np.inf, at, None, None
     for x in range(max(arm, at - span), min(n - arm, at + span) + 1):
         left = (cs[x] - cs[x - arm]) / arm  # samples x-arm .. x-1
         right = (cs[x + arm] - cs[x]) / arm  # samples x .. x+arm-1
         drop = (left - right) if outward > 0 else (right - left)
         if drop > best:
-            best, xb, lv = drop, x, 0.5 * (left + right)
+            best, xb, lv, out = drop, x, 0.5 * (left + right), (right if outward > 0 else left)
     if lv is None:
         return float(at)
     # the crossing of the half level nearest the boundary between xb-1 and xb
     lo_i, hi_i = max(0, xb - arm // 2), min(n - 2, xb + arm // 2)
     cands = [q for q in range(lo_i, hi_i + 1) if (c[q] - lv) * (c[q + 1] - lv) <= 0 and c[q] != c[q + 1]]
     if not cands:
-        return float(xb) - 0.5
-    q = min(cands, key=lambda q: abs(q + 0.5 - (xb - 0.5)))
-    return _cross(c, lv, q)
+        x_half = float(xb) - 0.5
+    else:
+        q = min(cands, key=lambda q: abs(q + 0.5 - (xb - 0.5)))
+        x_half = _cross(c, lv, q)
+    if low is None or ramp is None:
+        return x_half
+    beyond = c[at + 1 : at + 1 + arm] if outward > 0 else c[max(0, at - arm) : at]
+    floor = float(np.median(beyond)) if len(beyond) else float(out)
+    if not floor < low < lv:
+        return x_half
+    foot = low
+    q = int(math.floor(x_half)) if outward > 0 else int(math.ceil(x_half))
+    stop = min(n - 2, q + span) if outward > 0 else max(1, q - span)
+    while q != stop:
+        nxt = q + outward
+        if (c[q] - foot) * (c[nxt] - foot) <= 0 and c[q] != c[nxt]:
+            x_foot = _cross(c, foot, min(q, nxt))
+            return x_foot if abs(x_foot - x_half) > ramp else x_half
+        q = nxt
+    return x_half
 
 
 def _cross(p: np.ndarray, level: float, i: int) -> float:

@@ -137,11 +137,11 @@ def test_curvature_turns_an_accept_into_a_reject():
     R = 25.0
     face, calib = _face_and_calib(L=2 * R * math.sin(math.radians(75)))
     apex = face.length_mm / 2
-    # an opening along the coupon on the flank, projected u = -20.0 .. -17.5 mm (2.5 mm)
-    u1, u2 = 17.5, 20.0
+    # an opening along the coupon on the flank, projected u = -21.0 .. -18.5 mm (2.5 mm)
+    u1, u2 = 18.5, 21.0
     det = _det(face, apex - u2, 12.0, apex - u1, 12.0)
-    true_len = R * (math.asin(u2 / R) - math.asin(u1 / R))  # analytic: 3.80 mm
-    assert true_len > 3.7
+    true_len = R * (math.asin(u2 / R) - math.asin(u1 / R))  # analytic: 4.10 mm
+    assert true_len > 4.0
     flat = measure([det], face, calib, photo_px_per_mm=10.0)
     assert flat["greatest_mm"].iloc[0] == pytest.approx(2.5, abs=0.13)
     v_flat = _verdict(flat, face, "aws-d1.1-bend")
@@ -518,3 +518,19 @@ def test_coupon_cut_by_the_photo_edge_is_said_and_not_extended():
     poly = f.polygon_px.astype(np.float32)
     inside_f, _ = cv2.intersectConvexConvex(poly, frame)
     assert inside_f >= 0.97 * cv2.contourArea(poly)
+
+
+def test_a_fading_end_is_placed_at_its_foot_a_sharp_one_half_way():
+    # analytic profile: a dark flank fading in linearly from 1 (table) at column 100 to 20 at
+    # column 150, coupon at 20 up to column 299, a sharp end to 0.5 after it.  With the
+    # coupon's low level 3.6 the fading end lies where the ramp crosses 3.6:
+    # 100 + 50 * (3.6 - 1) / 19 = 106.842...; the sharp end keeps its half-way point 299.5
+    x = np.arange(400, dtype=float)
+    c = np.where(x < 100, 1.0, np.where(x < 150, 1.0 + 19.0 * (x - 100) / 50, 20.0))
+    c[300:] = 0.5
+    i, j = bend._longest_run(c >= 3.6, gap=16, prefer=200, weight=c)
+    assert (i, j) == (107, 299)
+    lo = bend._end_step(c, i, span=32, arm=12, outward=-1, low=3.6, ramp=8)
+    hi = bend._end_step(c, j, span=32, arm=12, outward=+1, low=3.6, ramp=8)
+    assert lo == pytest.approx(100 + 50 * 2.6 / 19, abs=1e-9)
+    assert hi == pytest.approx(299.5, abs=1e-9)
