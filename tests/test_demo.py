@@ -196,9 +196,6 @@ def test_reviewed_verdicts_follow_the_readings(loaded):
     assert by["BF-2610-NB03"] == "accept"
 
 
-@pytest.mark.xfail(strict=False, reason="two demo coupons do not yet come out as their story says "
-                                        "(BF-2609-NB01 review for accept, BF-2609-FB05 reject for review): "
-                                        "segmenter accuracy, see the accuracy tests")
 def test_pipeline_gives_the_story_verdicts(loaded):
     """The automatic verdicts the story needs (borderline coupons must come out review)."""
     _, s = loaded
