@@ -188,7 +188,7 @@ class Store:
             self._con = sqlite3.connect(self.path, timeout=timeout_s, isolation_level=None)
             self._con.row_factory = sqlite3.Row
             self._con.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000)}")
-            mode = self._con.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+            mode = self._switch_to_wal(timeout_s)
             self._con.execute("PRAGMA synchronous = FULL")
             self._con.execute("PRAGMA foreign_keys = ON")
             if str(mode).lower() != "wal":
@@ -196,6 +196,28 @@ class Store:
             self._migrate()
         except sqlite3.DatabaseError as err:
             raise StoreError(f"{self.path} is not a usable records database ({err}); choose another --db") from err
+
+    def _switch_to_wal(self, timeout_s: float) -> str:
+        """``PRAGMA journal_mode = WAL``, retried while another process holds the file.
+
+        SQLite can answer "database is locked" to a journal-mode change at once,
+        without waiting on the busy timeout, when a second process is opening
+        (and switching) the same new database at the same moment.
+        """
+        import time
+
+        deadline = time.monotonic() + timeout_s
+        pause = 0.01
+        while True:
+            try:
+                return self._con.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+            except sqlite3.OperationalError as err:
+                if "locked" not in str(err) and "busy" not in str(err):
+                    raise
+                if time.monotonic() + pause > deadline:
+                    raise
+                time.sleep(pause)
+                pause = min(pause * 2, 0.5)
 
     # -- plumbing ----------------------------------------------------------
     def __enter__(self) -> "Store":
