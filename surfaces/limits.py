@@ -1073,6 +1073,7 @@ class _Item:
     row: dict
     confident: bool
     conf: float
+    reviewed: bool = False  # a person confirmed or edited it, or added it by hand
 
     def value(self, measure: str) -> tuple[float, float, bool]:
         """(value, expanded U, uncertainty known) for a measure or ``area``."""
@@ -1149,7 +1150,7 @@ def _table_items(table: pd.DataFrame, ls: LimitSet) -> tuple[list[_Item], int, l
         conf = _num(row.get("confidence"))
         reviewed = status in ("confirmed", "edited") or _text(row.get("source")) == "manual"
         confident = reviewed or not math.isfinite(conf) or conf >= ls.min_confidence
-        items.append(_Item(id=ident, kind=kind, row=row, confident=confident, conf=conf))
+        items.append(_Item(id=ident, kind=kind, row=row, confident=confident, conf=conf, reviewed=reviewed))
     items.sort(key=lambda it: it.id)
     return items, dismissed, notes
 
@@ -1699,8 +1700,7 @@ def _kind_doubts(table: pd.DataFrame, items: list, *, face, nominal, limit_set: 
     out, ids = [], []
     ident = pd.to_numeric(table["id"], errors="coerce")
     for it in items:
-        status = _text(it.row.get("status")).lower() or "auto"
-        if status in ("confirmed", "edited") or _text(it.row.get("source")) == "manual":
+        if it.reviewed:
             continue  # a person has settled the kind
         alt, p = _text(it.row.get("kind_alt")).lower(), _num(it.row.get("kind_alt_p"))
         if alt not in KINDS or alt == it.kind or not (math.isfinite(p) and p >= KIND_DOUBT_P):

@@ -12,6 +12,7 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Callable
 
+import cv2
 import numpy as np
 import pandas as pd
 
@@ -131,8 +132,6 @@ def _inset(mask: np.ndarray, k: int) -> np.ndarray:
     """The face mask eroded by ``k`` pixels, so a band along every edge (slanted ones too) is left out."""
     if k <= 0 or min(mask.shape) <= 4 * k:
         return mask.copy()
-    import cv2
-
     return cv2.erode(mask.astype(np.uint8), np.ones((2 * k + 1, 2 * k + 1), np.uint8),
                      borderType=cv2.BORDER_CONSTANT, borderValue=0) > 0
 
