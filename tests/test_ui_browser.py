@@ -110,6 +110,10 @@ def test_upload_dismiss_save_and_download(page, tmp_path_factory, screenshot_dir
         expect(app).to_have_attribute("data-test-script-state", "notRunning")
         page.get_by_role("radiogroup", name=f"Decision on imperfection {rid}").get_by_text(
             "dismiss", exact=True).click()
+    # while a rerun draws, the old and the new verdict box can both be on the page:
+    # wait for the reviewed one, then for the old one to go
+    expect(page.locator(".st-key-verdict", has_text="After your review")).to_have_count(1, timeout=60_000)
+    expect(verdict).to_have_count(1, timeout=60_000)
     expect(app).to_have_attribute("data-test-script-state", "notRunning")
     table = pd.DataFrame(auto["imperfections"])
     table.loc[table["id"].isin(ids), "status"] = "dismissed"
