@@ -279,6 +279,91 @@ def test_flat_bend_projection_equals_truth():
         assert imp["projected"]["greatest_mm"] == pytest.approx(imp["greatest_mm"], rel=1e-9)
 
 
+def _drawn_layers(monkeypatch, **kw):
+    """Render a bend photo and keep the coupon layers the generator composited."""
+    from surfaces.synth import _bend
+
+    kept = []
+    orig = _bend.BendBuilder.layers
+
+    def spy(self, *a, **k):
+        out = orig(self, *a, **k)
+        kept.extend(out)
+        return out
+
+    monkeypatch.setattr(_bend.BendBuilder, "layers", spy)
+    return render_bend(**kw), kept
+
+
+@pytest.mark.parametrize("curved", [True, False])
+def test_bend_truth_records_the_drawn_surface(monkeypatch, curved):
+    R, L, W = 40.0, 70.0, 20.0
+    photo, layers = _drawn_layers(monkeypatch, seed=34, curvature=curved, radius_mm=R, length_mm=L, width_mm=W,
+                                  megapixels=2, defects="none")  # fmt: skip
+    t = photo.truth
+    vis = t["face"]["visible"]
+    (layer,) = layers
+    # source: OpenCV's contour of the coupon layer's coverage (alpha >= 0.5), mapped to face mm by its grid
+    mask = (layer.alpha >= 0.5).astype(np.uint8)
+    (cnt,) = cv2.findContours(mask, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_SIMPLE)[0]
+    c0, r0, cw, ch = cv2.boundingRect(cnt)
+    r = 1.0 / layer.A[0, 0]
+    x0 = layer.A[0, 2] - 0.5 / r + c0 / r
+    x1 = x0 + cw / r
+    assert x0 == pytest.approx(vis["face_x0_mm"], abs=1.5 / r)
+    assert x1 == pytest.approx(vis["face_x1_mm"], abs=1.5 / r)
+    assert ch / r == pytest.approx(W, abs=1.5 / r)
+    assert cv2.countNonZero(mask) / r**2 == pytest.approx(vis["area_mm2"], rel=0.01)
+    # analytic geometry: the drawn strip is the cylinder out to phi either side of the apex, seen from
+    # above; its projection is 2 R sin(phi) long, its arc 2 R phi, both centred on the inspected arc
+    phi = math.radians(vis["half_angle_deg"])
+    if curved:
+        assert vis["length_mm"] == pytest.approx(2 * R * math.sin(phi), rel=1e-9)
+        assert vis["arc_length_mm"] == pytest.approx(2 * R * phi, rel=1e-9)
+        assert vis["surface_x0_mm"] + vis["surface_x1_mm"] == pytest.approx(L, rel=1e-9)
+        assert vis["half_angle_deg"] > t["curvature"]["half_angle_deg"]
+        assert vis["length_mm"] > t["curvature"]["projected_length_mm"]
+    else:
+        assert (vis["length_mm"], vis["arc_length_mm"], vis["surface_x0_mm"]) == pytest.approx((L, L, 0.0))
+    assert vis["area_mm2"] == pytest.approx(vis["length_mm"] * W, rel=1e-12)
+    # analytic: shoelace area of the plane outline (the plane frame is isometric to the face axes)
+    x, y = np.array(vis["polygon_mm"]).T
+    assert 0.5 * abs(np.dot(x, np.roll(y, -1)) - np.dot(y, np.roll(x, -1))) == pytest.approx(vis["area_mm2"], rel=1e-9)
+    # the inspected arc is what the imperfections are placed on; the truth face stays that arc
+    assert t["face"]["length_mm"] == pytest.approx(L) and t["face"]["area_mm2"] == pytest.approx(L * W)
+
+
+@pytest.mark.parametrize("kw", [{"seed": 35}, {"seed": 36, "width_mm": 25.0}, {"seed": 37, "radius_mm": 50.0, "length_mm": 60.0}])
+def test_old_bend_truth_without_the_drawn_surface_is_replayed_from_its_seed(kw):
+    from surfaces.synth._bend import visible_face
+
+    photo = render_bend(curvature=True, megapixels=1, defects="none", distractors=False, **kw)
+    t = json.loads(json.dumps(photo.truth))
+    recorded = t["face"].pop("visible")
+    again = visible_face(t)
+    assert again is not None and again.pop("replayed") is True
+    assert again.keys() == recorded.keys()
+    for k, v in recorded.items():
+        if isinstance(v, float):
+            assert again[k] == pytest.approx(v, rel=1e-12, abs=1e-9), k
+    assert np.allclose(again["polygon_px"], recorded["polygon_px"], atol=1e-6)
+    # a drawn size the seed's draws do not reproduce: the drawn surface cannot be told
+    t["curvature"]["thickness_mm"] += 0.01
+    assert visible_face(t) is None
+
+
+def test_a_fully_fixed_bend_is_not_replayed():
+    from surfaces.synth._bend import visible_face
+
+    # every size fixed: every fitting attempt reproduces them, each with its own drawn extent, so
+    # the replay cannot tell which one was used and returns None rather than a guess
+    photo = render_bend(38, curvature=True, radius_mm=30.0, thickness_mm=10.0, width_mm=38.0, length_mm=40.0,
+                        megapixels=1, defects="none")  # fmt: skip
+    t = json.loads(json.dumps(photo.truth))
+    assert t["face"].pop("visible")["length_mm"] > t["curvature"]["projected_length_mm"]
+    assert visible_face(t) is None
+
+
 def test_corner_crack_starts_at_an_edge():
     photo = render_bend(33, curvature=False, megapixels=2, width_mm=20.0, defects=[{"kind": "crack", "length_mm": 4.0, "edge": "y0"}])
     (imp,) = photo.truth["imperfections"]

@@ -21,7 +21,15 @@ Truth (``surfaces.truth/1``), all mm on the card's plane unless named ``_px``
   true arc length on a bend coupon), ``width_mm``, ``area_mm2`` (true),
   ``axis_deg`` (direction of face +x in the plane), ``root_side`` (y0, y1,
   unknown), ``A_face_to_plane`` (face axes -> plane; projected face axes on a
-  curved coupon).
+  curved coupon).  On a bend coupon the face is the inspected arc, and
+  ``face.visible`` is the surface drawn in the photo (the cylinder goes on
+  8-25 degrees beyond the arc's ends and nothing marks where the arc ends):
+  ``polygon_mm``/``_px``, ``length_mm``, ``width_mm``, ``area_mm2``
+  projected onto the card's plane, as the tool measures a coupon;
+  ``face_x0_mm``/``face_x1_mm`` (projected face axes), ``surface_x0_mm``/
+  ``surface_x1_mm`` and ``arc_length_mm``, ``arc_area_mm2`` (true surface x
+  from the inspected arc's start), ``half_angle_deg``.  Older truth files
+  lack it; ``_bend.visible_face`` replays it from the seed when it can.
 * ``imperfections``: ``kind``, ``iso6520``, ``centroid_mm``/``_px``,
   ``bbox_px``, ``greatest_mm`` (max Feret), ``width_mm`` (min Feret),
   ``along_mm``, ``across_mm``, ``area_mm2`` (analytic for circles, ellipses,

@@ -10,20 +10,28 @@ the metal.  With curvature the surface is a cylinder of outer radius
 
 which is the layout frame used for the canvases and the truth polygons.
 Truth sizes are true arc lengths on the surface; ``projected`` sizes are
-measured on the projected outlines.
+measured on the projected outlines.  Imperfections and distractors lie on
+the inspected arc ``0 <= s <= L`` (the truth ``face``); the cylinder is drawn
+on to ``phi_max`` beyond it, and that drawn strip, projected, is the truth
+``face.visible`` (what the photo shows).
 """
 
 from __future__ import annotations
 
+import functools
 import math
 
 import cv2
 import numpy as np
 
+from ..geometry import apply_h
 from . import _noise, _shapes
 from ._paint import Defect, paint_defect, paint_smudge, paint_speck
 from ._render import Layer, fill_alpha, grid_A, to_px
-from ._scene import Context, Geometry, Placed, SynthError, clear_of, layer_res, parse_specs, place_specs
+from ._scene import (
+    GEOMETRY_ATTEMPTS, SHRINK_STEP, Context, Geometry, Placed, SynthError, clear_of, geometry_rng, layer_res,
+    parse_specs, place_specs,
+)  # fmt: skip
 
 KIND_WEIGHTS = {"crack": 0.55, "pore": 0.25, "inclusion": 0.2}
 SPEC_KEYS = {"kind", "shape", "x_mm", "y_mm", "d_mm", "a_mm", "b_mm", "length_mm", "width_mm", "angle_deg", "edge"}
@@ -31,6 +39,118 @@ SPEC_KEYS = {"kind", "shape", "x_mm", "y_mm", "d_mm", "a_mm", "b_mm", "length_mm
 
 def _loguniform(rng, lo, hi):
     return float(math.exp(rng.uniform(math.log(lo), math.log(hi))))
+
+
+def _draw_sizes(rng, *, shrink: float, curved: bool, fixed_W=None, fixed_T=None, fixed_R=None, fixed_L=None) -> dict:
+    """The coupon's sizes, drawn in a fixed order (``visible_face`` replays it from the seed)."""
+    Wc = float(fixed_W or rng.uniform(10.0, 40.0))
+    T = float(fixed_T or rng.uniform(6.0, 25.0))
+    Rf = T * float(rng.choice([1.0, 1.5, 2.0, 3.0, 4.0]))  # former diameter 2T..8T
+    R = float(fixed_R or (Rf + T))
+    if fixed_R:
+        Rf = max(R - T, 0.0)
+    if not (5.0 <= Wc <= 80.0 and R > 0):
+        raise SynthError(f"coupon width {Wc:g} mm is out of range (use 10..40 mm)")
+    lmax, lmin = 150.0, 40.0
+    if curved:
+        lmax = min(lmax, 2 * R * 1.25)  # half angle up to about 72 deg
+        lmin = min(lmin, 0.8 * lmax)  # a tight bend shows a shorter convex arc
+    L = float(fixed_L or max(lmin, rng.uniform(lmin, max(lmin, lmax)) * shrink))
+    if curved and L / (2 * R) >= math.pi / 2:
+        raise SynthError(f"bend arc {L:g} mm is more than half the circumference of radius {R:g} mm; shorten it")
+    Lp = 2 * R * math.sin(L / (2 * R)) if curved else L
+    # the cylinder is drawn 8..25 deg beyond the inspected arc's ends (the coupon bends on)
+    phi_max = min(math.radians(86), L / (2 * R) + math.radians(rng.uniform(8, 25))) if curved else None
+    return {"Wc": Wc, "T": T, "Rf": Rf, "R": R, "L": L, "Lp": Lp, "phi_max": phi_max}
+
+
+def _visible_dict(spec_layout, x0, x1, s0, s1, Wc, phi_max) -> dict:
+    return {
+        "polygon_layout_mm": np.asarray(spec_layout, float),
+        "what": "the convex surface drawn in the photo, projected onto the card's plane",
+        "length_mm": x1 - x0,
+        "width_mm": Wc,
+        "area_mm2": (x1 - x0) * Wc,
+        "face_x0_mm": x0,
+        "face_x1_mm": x1,
+        "surface_x0_mm": s0,
+        "surface_x1_mm": s1,
+        "arc_length_mm": s1 - s0,
+        "arc_area_mm2": (s1 - s0) * Wc,
+        "half_angle_deg": math.degrees(phi_max) if phi_max is not None else 0.0,
+    }
+
+
+@functools.lru_cache(maxsize=256)
+def _replay_half_angle(seed: int, Wc: float, T: float, R: float, Rf: float, L: float) -> float | None:
+    """phi_max of the draws that reproduce these sizes, or None when none or several different ones do.
+
+    Which sizes the caller fixed is not recorded.  A size a draw reproduces to
+    1e-9 was drawn, not given (fixing the arc length, the last size drawn,
+    would otherwise leave every earlier draw matching as well), so the
+    explanations with the fewest fixed sizes are tried first.
+    """
+    want = {"Wc": Wc, "T": T, "R": R, "Rf": Rf, "L": L}
+    names = (("fixed_W", "Wc"), ("fixed_T", "T"), ("fixed_R", "R"), ("fixed_L", "L"))
+    for n_fixed in range(len(names) + 1):
+        phis: list[float] = []
+        for mask in (m for m in range(1 << len(names)) if bin(m).count("1") == n_fixed):
+            fixed = {k: (want[n] if mask >> i & 1 else None) for i, (k, n) in enumerate(names)}
+            shrink = 1.0
+            for attempt in range(GEOMETRY_ATTEMPTS):
+                try:
+                    z = _draw_sizes(geometry_rng(seed, attempt), shrink=shrink, curved=True, **fixed)
+                except SynthError:
+                    z = None
+                if z is not None and all(abs(z[k] - v) <= 1e-9 * max(1.0, abs(v)) for k, v in want.items()):
+                    phis.append(z["phi_max"])
+                shrink *= SHRINK_STEP
+        if phis:
+            return float(phis[0]) if max(phis) - min(phis) <= 1e-12 else None
+    return None
+
+
+def visible_face(truth: dict) -> dict | None:
+    """The drawn (visible) face of a bend truth, as ``truth["face"]["visible"]`` records it.
+
+    Truth files written before that field existed are replayed from their
+    seed: the coupon's sizes are drawn again for every fitting attempt and
+    every choice of fixed sizes, and the drawn extent is taken only when the
+    draws that reproduce the recorded width, thickness, radii and arc length
+    all agree on it.  Returns None when it cannot be told (not a bend, no
+    seed, or more than one extent fits).
+    """
+    tf = truth.get("face") or {}
+    if isinstance(tf.get("visible"), dict):
+        return tf["visible"]
+    cur = truth.get("curvature") or {}
+    if truth.get("scene") != "bend" or not cur or "A_face_to_plane" not in tf:
+        return None
+    try:
+        A = np.asarray(tf["A_face_to_plane"], float)
+        H = np.asarray(truth["H_plane_to_photo"], float)
+        Wc, L, T = float(tf["width_mm"]), float(tf["length_mm"]), float(cur["thickness_mm"])
+        seed = int(truth["seed"])
+    except (KeyError, TypeError, ValueError):
+        return None
+    if not cur.get("enabled"):
+        x0, x1, s0, s1, phi = 0.0, L, 0.0, L, None
+    else:
+        try:
+            R, Rf = float(cur["radius_mm"]), float(cur["former_radius_mm"])
+        except (KeyError, TypeError, ValueError):
+            return None
+        phi = _replay_half_angle(seed, Wc, T, R, Rf, L)
+        if phi is None:
+            return None
+        Lp = 2 * R * math.sin(L / (2 * R))
+        x0, x1 = Lp / 2 - R * math.sin(phi), Lp / 2 + R * math.sin(phi)
+        s0, s1 = L / 2 - R * phi, L / 2 + R * phi
+    spec = np.array([[x0, 0.0], [x1, 0.0], [x1, Wc], [x0, Wc]])
+    v = _visible_dict(spec, x0, x1, s0, s1, Wc, phi)
+    poly = apply_h(A, v.pop("polygon_layout_mm"))
+    out = {"polygon_mm": poly.tolist(), "polygon_px": apply_h(H, poly).tolist(), **v, "replayed": True}
+    return {k: (float(x) if isinstance(x, np.floating) else x) for k, x in out.items()}
 
 
 class BendBuilder:
@@ -77,28 +197,30 @@ class BendBuilder:
             "mapping": "x_plane_face = Lp/2 + R*sin((s - L/2)/R)",
         }
 
+    def visible_truth(self) -> dict:
+        """The convex surface drawn in the photo, in the layout frame (projected onto the card's plane).
+
+        On a curved coupon the cylinder is drawn beyond the inspected arc, to
+        ``phi_max`` either side of the apex, and nothing in the picture marks
+        where the inspected arc ends; that drawn strip is what the photo
+        shows.  ``x`` is the projected face axis, ``surface_x`` the true arc
+        length from the inspected arc's start.
+        """
+        spec = np.asarray(self.geo.specimen_poly, float)
+        x0, x1 = float(spec[:, 0].min()), float(spec[:, 0].max())
+        s0, s1 = self.s_ext
+        return _visible_dict(spec, x0, x1, s0, s1, self.Wc, self.phi_max)
+
     # ------------------------------------------------------------------ geometry
     def geometry(self, rng, *, shrink: float = 1.0) -> Geometry:
-        Wc = float(self.fixed_W or rng.uniform(10.0, 40.0))
-        T = float(self.fixed_T or rng.uniform(6.0, 25.0))
-        Rf = T * float(rng.choice([1.0, 1.5, 2.0, 3.0, 4.0]))  # former diameter 2T..8T
-        R = float(self.fixed_R or (Rf + T))
-        if self.fixed_R:
-            Rf = max(R - T, 0.0)
-        if not (5.0 <= Wc <= 80.0 and R > 0):
-            raise SynthError(f"coupon width {Wc:g} mm is out of range (use 10..40 mm)")
-        lmax, lmin = 150.0, 40.0
-        if self.curved:
-            lmax = min(lmax, 2 * R * 1.25)  # half angle up to about 72 deg
-            lmin = min(lmin, 0.8 * lmax)  # a tight bend shows a shorter convex arc
-        L = float(self.fixed_L or max(lmin, rng.uniform(lmin, max(lmin, lmax)) * shrink))
-        if self.curved and L / (2 * R) >= math.pi / 2:
-            raise SynthError(f"bend arc {L:g} mm is more than half the circumference of radius {R:g} mm; shorten it")
-        self.L, self.R, self.T, self.Rf, self.Wc = L, R, T, Rf, Wc
-        self.Lp = 2 * R * math.sin(L / (2 * R)) if self.curved else L
+        z = _draw_sizes(
+            rng, shrink=shrink, curved=self.curved,
+            fixed_W=self.fixed_W, fixed_T=self.fixed_T, fixed_R=self.fixed_R, fixed_L=self.fixed_L,
+        )  # fmt: skip
+        L, R, T, Rf, Wc, Lp, phi_max = (z[k] for k in ("L", "R", "T", "Rf", "Wc", "Lp", "phi_max"))
+        self.L, self.R, self.T, self.Rf, self.Wc, self.Lp, self.phi_max = L, R, T, Rf, Wc, Lp, phi_max
         face = np.array([[0, 0], [self.Lp, 0], [self.Lp, Wc], [0, Wc]], float)
         if self.curved:
-            phi_max = min(math.radians(86), L / (2 * R) + math.radians(rng.uniform(8, 25)))
             ext = R * math.sin(phi_max)
             self.s_ext = (L / 2 - R * phi_max, L / 2 + R * phi_max)
             spec = np.array([[self.Lp / 2 - ext, 0], [self.Lp / 2 + ext, 0], [self.Lp / 2 + ext, Wc], [self.Lp / 2 - ext, Wc]])

@@ -89,6 +89,16 @@ def streams(seed: int, *names: str) -> dict[str, np.random.Generator]:
     return {n: np.random.default_rng([int(seed), k, 7919]) for k, n in enumerate(names)}
 
 
+#: a face too long for the wanted scale is shortened by this factor per attempt
+SHRINK_STEP = 0.9
+GEOMETRY_ATTEMPTS = 40
+
+
+def geometry_rng(seed: int, attempt: int) -> np.random.Generator:
+    """The generator of a scene's sizes at one fitting attempt (replayable from the seed)."""
+    return np.random.default_rng([int(seed), int(attempt), 31])
+
+
 def photo_size(rng, megapixels, aspect, portrait) -> tuple[int, int]:
     mp = float(rng.uniform(2.0, 12.0)) if megapixels is None else float(megapixels)
     if not (0.3 <= mp <= 50):
@@ -251,9 +261,8 @@ def render_scene(
         ppm_want = float(rs["camera"].uniform(8.0, 25.0)) if rs["camera"].random() < 0.5 else 8.0
     card_rng_state = rs["card"].bit_generator.state
     shrink, last_len = 1.0, None
-    for attempt in range(40):
-        geo_rng = np.random.default_rng([int(seed), attempt, 31])
-        geo = builder.geometry(geo_rng, shrink=shrink)
+    for attempt in range(GEOMETRY_ATTEMPTS):
+        geo = builder.geometry(geometry_rng(seed, attempt), shrink=shrink)
         rs["card"].bit_generator.state = card_rng_state
         ids = [int(i) for i in rs["card"].choice(50, size=n_markers, replace=False)]
         card_rng = np.random.default_rng([int(seed), 41])
@@ -266,7 +275,7 @@ def render_scene(
         if fit_ppm >= ppm_want or (last_len is not None and abs(geo.length_mm - last_len) < 1e-9):
             break
         last_len = geo.length_mm
-        shrink *= 0.9
+        shrink *= SHRINK_STEP
     if px_per_mm is not None:
         if fit_ppm < px_per_mm * 0.98:
             raise SynthError(
@@ -555,6 +564,11 @@ def _truth(seed, builder, geo, placed, card, T_card, T_lp, cam, W, H, look, tabl
         "table": table_kind,
         "params": _jsonable(geo.params),
     }
+    vis = getattr(builder, "visible_truth", None)
+    if vis is not None:
+        v = vis()
+        poly = plane(v.pop("polygon_layout_mm"))
+        truth["face"]["visible"] = {"polygon_mm": poly.tolist(), "polygon_px": px(poly).tolist(), **v}
     curv = getattr(builder, "curvature_truth", None)
     if curv is not None:
         truth["curvature"] = curv()
