@@ -206,6 +206,22 @@ def _init_worker() -> None:
         cv2.setNumThreads(1)  # one process per core already
     except Exception:  # pragma: no cover
         pass
+    try:  # import the pipeline now, while the parent is still hashing the photos
+        from . import pipeline  # noqa: F401
+    except Exception:  # pragma: no cover - the first photo reports it
+        pass
+
+
+def _ready() -> int:
+    return os.getpid()
+
+
+def _start_pool(workers: int) -> ProcessPoolExecutor:
+    """A pool of ``workers`` spawned processes, started at once (not on the first photo)."""
+    pool = ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn"), initializer=_init_worker)
+    for _ in range(workers):
+        pool.submit(_ready)
+    return pool
 
 
 def _pipeline_assess(path: Path, settings: Settings) -> dict:
@@ -377,7 +393,19 @@ def run_batch(
         if progress is not None:
             progress(done_count, total, dict(job.row))
 
-    with Store(db) as store:
+    # the workers start (and import the pipeline) while this process hashes the
+    # photos and looks them up in the store
+    pool = _start_pool(min(workers, total)) if workers > 1 and total > 1 else None
+    try:
+        _run_jobs(jobs, pool, store_path=db, workers=workers, assess_fn=assess_fn, actor=actor, finish=finish)
+    finally:
+        if pool is not None:
+            pool.shutdown(wait=False, cancel_futures=True)
+    return _finish_summary(jobs, batch, summary_csv, summary_pdf, force)
+
+
+def _run_jobs(jobs, pool, *, store_path, workers, assess_fn, actor, finish) -> None:
+    with Store(store_path) as store:
         pending: list[_Job] = []
         in_batch: dict[tuple[str, str], _Job] = {}
         for j in jobs:
@@ -421,12 +449,14 @@ def run_batch(
                 job.row.update(status="error", error=err, result=None)
             finish(job)
 
-        if workers == 1 or len(pending) <= 1:
+        if pool is None or len(pending) <= 1:
             for j in pending:
                 record(j, *_work(str(j.path), j.settings, assess_fn))
         else:
-            _run_pool(pending, min(workers, len(pending)), assess_fn, record)
+            _run_pool(pending, min(workers, len(pending)), assess_fn, record, pool=pool)
 
+
+def _finish_summary(jobs, batch, summary_csv, summary_pdf, force) -> pd.DataFrame:
     summary = pd.DataFrame([j.row for j in jobs], columns=list(SUMMARY_COLUMNS))
     for c in ("assessment_id", "n_imperfections"):
         summary[c] = summary[c].astype("Int64")
@@ -441,13 +471,13 @@ def run_batch(
     return summary
 
 
-def _run_pool(pending: list[_Job], workers: int, assess_fn, record) -> None:
-    """Run jobs in a process pool; a dead worker costs at most its photo."""
-    ctx = mp.get_context("spawn")
+def _run_pool(pending: list[_Job], workers: int, assess_fn, record, *, pool: ProcessPoolExecutor | None = None) -> None:
+    """Run jobs in a process pool (``pool`` first, if given); a dead worker costs at most its photo."""
     queue = list(pending)
     max_in_flight = 2 * workers
     while queue:
-        pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_init_worker)
+        if pool is None:
+            pool = _start_pool(workers)
         running: dict[Future, _Job] = {}
         broken = False
         try:
@@ -481,6 +511,7 @@ def _run_pool(pending: list[_Job], workers: int, assess_fn, record) -> None:
                 proc.terminate()
             raise
         pool.shutdown(wait=not broken, cancel_futures=True)
+        pool = None
         if not broken:
             break
 
