@@ -14,6 +14,18 @@ Truth format (schema ``surfaces.truth/1``, written by :mod:`surfaces.synth`)::
 ``centroid_mm`` is in the marker plane (the frame ``H_plane_to_photo``
 maps from).
 
+Bend coupons
+------------
+On a curved bend coupon the truth ``face`` is the inspected arc (true arc
+length and area), while the photo shows the cylinder further on, and
+nothing in it marks where the inspected arc ends.  The tool reports the
+convex surface it sees, projected onto the card's plane, so the face is
+scored against ``face["visible"]`` (the drawn strip, projected: written by
+the generator; replayed from the seed for older truth files, see
+:func:`visible_face`).  Imperfection sizes are true arc lengths; an
+assessment made without a bend radius reports projected lengths and is
+scored against the truth's ``projected`` sizes.
+
 Matching
 --------
 Each detection's ``centroid_px`` is mapped to the plane with
@@ -64,6 +76,7 @@ __all__ = [
     "truth_band",
     "truth_table",
     "truth_verdict",
+    "visible_face",
 ]
 
 MATCH_MIN_MM: float = 1.0
@@ -141,6 +154,34 @@ def _detections(assessment: dict) -> list[dict]:
     return [r for r in rows if str(r.get("status") or "auto") != "dismissed"]
 
 
+_SIZE_KEYS = ("greatest_mm", "width_mm", "along_mm", "across_mm", "area_mm2")
+
+
+def _projected_lengths(assessment: dict, truth: dict) -> bool:
+    """True when the assessment's lengths along a curved bend coupon are projected, not true arc lengths.
+
+    The tool corrects for curvature only when it knows the outer radius
+    (``outer_radius_mm``, or ``former_diameter_mm`` with
+    ``nominal.thickness_mm``); without it its sizes are as seen on the
+    card's plane, like the truth's ``projected`` sizes.
+    """
+    if not (truth.get("curvature") or {}).get("enabled") or assessment.get("test", "bend") != "bend":
+        return False
+    st = assessment.get("settings")
+    if not isinstance(st, dict):
+        return False  # unknown: score as true surface lengths
+    from types import SimpleNamespace
+
+    from .bend import outer_radius
+
+    keys = ("outer_radius_mm", "former_diameter_mm", "bend_angle_deg")
+    try:
+        R, _, _ = outer_radius(SimpleNamespace(nominal=st.get("nominal") or {}, **{k: st.get(k) for k in keys}))
+    except SurfacesError:
+        return True
+    return R is None
+
+
 def match(assessment: dict, truth: dict) -> pd.DataFrame:
     """Pair truth imperfections with detections, one to one.
 
@@ -150,7 +191,9 @@ def match(assessment: dict, truth: dict) -> pd.DataFrame:
         The assessment (JSON contract); rows with status ``dismissed`` are
         left out.
     truth : dict
-        The photo's truth (``surfaces.truth/1``).
+        The photo's truth (``surfaces.truth/1``).  On a curved bend coupon
+        assessed without a bend radius (lengths projected, see the module
+        notes) the truth's ``projected`` sizes are used.
 
     Returns
     -------
@@ -172,6 +215,8 @@ def match(assessment: dict, truth: dict) -> pd.DataFrame:
     H = _H(truth)
     Hinv = np.linalg.inv(H)
     tru = list(truth.get("imperfections") or [])
+    if _projected_lengths(assessment, truth):
+        tru = [{**t, **{k: v for k, v in (t.get("projected") or {}).items() if k in _SIZE_KEYS}} for t in tru]
     dets = _detections(assessment)
     t_xy = np.array([[_num(c) for c in (t.get("centroid_mm") or [np.nan, np.nan])] for t in tru], float).reshape(-1, 2)
     d_px = np.array([[_num(c) for c in (d.get("centroid_px") or [np.nan, np.nan])] for d in dets], float).reshape(-1, 2)
@@ -332,16 +377,43 @@ def scores(matches: pd.DataFrame | Iterable[pd.DataFrame], *, min_mm: dict | Non
 # --------------------------------------------------------------------------- per photo
 
 
+def visible_face(truth: dict) -> tuple[dict | None, str]:
+    """The truth face the tool's face is compared with, and where it came from.
+
+    Returns ``(face, source)``: ``face["visible"]`` and ``"visible"`` when
+    the truth records the drawn surface (bend coupons); for an older bend
+    truth file without it, the drawn strip replayed from the seed by the
+    generator (``"replayed"``), or ``(None, "unknown")`` when that cannot be
+    told; otherwise the truth face itself (``"face"``: a fracture face, a
+    flat bend coupon or an annotated photo, where what is seen is the face).
+    """
+    tf = truth.get("face") or {}
+    if isinstance(tf.get("visible"), dict):
+        return tf["visible"], "visible"
+    if truth.get("scene") == "bend" and (truth.get("curvature") or {}).get("enabled"):
+        try:
+            from .synth._bend import visible_face as replay
+        except ImportError:  # pragma: no cover - the generator ships with the source tree
+            return None, "unknown"
+        v = replay(truth)
+        return (v, "replayed") if v is not None else (None, "unknown")
+    return tf, "face"
+
+
 def photo_scores(assessment: dict, truth: dict) -> dict:
     """Calibration and face errors of one assessment against its truth.
 
     Returns ``px_per_mm`` (tool), ``px_per_mm_truth``, ``px_per_mm_err_pct``
     (signed, percent of truth), ``face_area_mm2``, ``face_area_truth_mm2``,
-    ``face_area_err_pct``, and the same for face length.
+    ``face_area_err_pct``, the same for face length, and ``face_truth``: the
+    truth face compared with (:func:`visible_face`; on a curved bend coupon
+    the drawn surface projected onto the card's plane, as the tool measures
+    it; the face figures are None when it is ``unknown``).
     """
     cal = assessment.get("calibration") or {}
     face = assessment.get("face") or {}
-    tf = truth.get("face") or {}
+    tf, source = visible_face(truth)
+    tf = tf or {}
     out = {}
 
     def pct(a, b):
@@ -357,6 +429,7 @@ def photo_scores(assessment: dict, truth: dict) -> dict:
     out["face_length_mm"] = _num(face.get("length_mm"))
     out["face_length_truth_mm"] = _num(tf.get("length_mm"))
     out["face_length_err_pct"] = pct(out["face_length_mm"], out["face_length_truth_mm"])
+    out["face_truth"] = source
     return out
 
 
@@ -399,7 +472,9 @@ def truth_table(truth: dict, *, root_side: str | None = None) -> pd.DataFrame:
     the generator); without it, the centroid is mapped into face axes and
     the extents are the centroid +/- half ``along_mm`` / ``across_mm``.
     ``at_edge`` is the truth ``starts_at_edge`` or, when that is false or
-    absent, the same 0.5 mm band the measurement uses; ``confidence`` is 1
+    absent, the same 0.5 mm band the measurement uses (on a bend coupon
+    along the long edges only, and x from the start of the surface seen,
+    :func:`visible_face`, as the tool measures it); ``confidence`` is 1
     and ``status`` ``confirmed``.  ``root_side`` (``y0``/``y1``) defaults to
     the truth face's ``root_side``.
     """
@@ -410,6 +485,13 @@ def truth_table(truth: dict, *, root_side: str | None = None) -> pd.DataFrame:
         return empty_table()
     to_face, L, W = _to_face_mm(truth)
     root = root_side or (truth.get("face") or {}).get("root_side") or "unknown"
+    bend = truth.get("test") == "bend" or truth.get("scene") == "bend"
+    seen = None  # (start, length) of the bend surface seen, in the truth's surface x
+    if bend:
+        vis, _ = visible_face(truth)
+        s0, s1 = _num((vis or {}).get("surface_x0_mm")), _num((vis or {}).get("surface_x1_mm"))
+        if math.isfinite(s0) and math.isfinite(s1) and s1 > s0:
+            seen = (s0, s1 - s0)
     rows = []
     for i, t in enumerate(tru, start=1):
         kind = str(t.get("kind") or "")
@@ -417,16 +499,21 @@ def truth_table(truth: dict, *, root_side: str | None = None) -> pd.DataFrame:
             raise TruthError(f"truth imperfection {i} has kind {kind!r}: expected one of {', '.join(KINDS)}")
         along, across = _num(t.get("along_mm")), _num(t.get("across_mm"))
         fm = t.get("face_mm")
+        Lx = L
         if isinstance(fm, dict) and {"cx", "cy", "x0", "x1", "y0", "y1"} <= set(fm):
             cx, cy, x0, x1, y0, y1 = (_num(fm[k]) for k in ("cx", "cy", "x0", "x1", "y0", "y1"))
+            if seen is not None:  # true surface x from the start of the surface seen, as the tool measures it
+                cx, x0, x1, Lx = cx - seen[0], x0 - seen[0], x1 - seen[0], seen[1]
         else:
             cx, cy = (float(v) for v in to_face([t.get("centroid_mm")])[0])
             x0, x1 = cx - along / 2, cx + along / 2
             y0, y1 = cy - across / 2, cy + across / 2
-        dist_end = min(x0, L - x1)
+        dist_end = min(x0, Lx - x1)
         dist_edge = min(y0, W - y1)
         dist_root = y0 if root == "y0" else (W - y1 if root == "y1" else float("nan"))
-        at_edge = bool(t.get("starts_at_edge")) or dist_edge <= EDGE_BAND_MM or dist_end <= EDGE_BAND_MM
+        # a bend coupon's corners are its long edges; the ends of the surface seen are not (as measure.py)
+        at_end = dist_end <= EDGE_BAND_MM and not bend
+        at_edge = bool(t.get("starts_at_edge")) or dist_edge <= EDGE_BAND_MM or at_end
         at_root = dist_root <= EDGE_BAND_MM if root in ("y0", "y1") else dist_edge <= EDGE_BAND_MM
         row = {c: None for c in TABLE_COLUMNS}
         row.update(

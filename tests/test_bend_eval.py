@@ -15,7 +15,10 @@ Figures asserted (the acceptance figures of the bend-face issue):
 * the edge/corner flag set for at least 95 % of the cracks that start at a
   long edge;
 * never ``accept`` where the truth, judged by the same limits engine
-  (AWS D1.1 4.9.3.3 bend preset, ../shared/REFERENCES.md), rejects.
+  (AWS D1.1 4.9.3.3 bend preset, ../shared/REFERENCES.md), rejects;
+* the face area within 5 % of the surface drawn in the photo, projected
+  onto the card's plane (``truth["face"]["visible"]``; the accuracy test's
+  target, not met on every coupon yet, so marked xfail).
 
 Run ``python -m pytest tests/test_bend_eval.py -q -s`` to see the table.
 
@@ -35,7 +38,7 @@ import math
 import numpy as np
 import pytest
 
-from surfaces.evaluate import truth_band
+from surfaces.evaluate import photo_scores, truth_band
 from surfaces.geometry import apply_h
 from surfaces.limits import load_limit_set
 from surfaces.model import Settings
@@ -126,6 +129,7 @@ def _one(seed: int, curvature: bool) -> dict:
         "truth_verdict": band["result"],
         "borderline": band["borderline"],
         "notes": [w for w in res.assessment["warnings"] if "coupon" in w or "surface" in w],
+        "face": photo_scores(res.assessment, truth),
     }
 
 
@@ -165,7 +169,8 @@ def _print_summary(results):
     for r in results:
         miss = [m for m in r["matched"] if not m["found"]]
         print(f"seed {r['seed']:3d} {'curved' if r['curved'] else 'flat  '} truth {len(r['matched'])} missed {len(miss)} "
-              f"false {r['false']} verdict {r['verdict']} (truth {r['truth_verdict']}{', borderline' if r['borderline'] else ''})")
+              f"false {r['false']} verdict {r['verdict']} (truth {r['truth_verdict']}{', borderline' if r['borderline'] else ''}) "
+              f"face area {r['face']['face_area_err_pct']:+.1f} % ({r['face']['face_truth']})")
     for k, v in _figures(results).items():
         print(f"  {k}: {v:.3f}" if isinstance(v, float) else f"  {k}: {v}")
 
@@ -205,3 +210,17 @@ def test_curved_coupons_are_corrected_and_flat_ones_say_projected(results):
         else:
             # flat coupons are rendered without curvature and assessed without a former: projected
             assert any("projected" in n for n in r["notes"]), r["notes"]
+
+
+def test_face_is_scored_against_the_surface_the_photo_shows(results):
+    # the truth face of a bend photo is the drawn convex surface, projected onto the card's plane
+    # (what the tool measures), not the inspected arc, which nothing in the photo marks
+    assert all(r["face"]["face_truth"] == "visible" for r in results), [r["face"]["face_truth"] for r in results]
+
+
+@pytest.mark.xfail(strict=False, reason="accuracy target not met yet; the failure message gives the figure")
+def test_face_area_within_five_percent_of_the_drawn_surface(results):
+    # the accuracy target of tests/test_accuracy.py (face area within 5 %, every photo), on these coupons
+    errs = {r["seed"]: r["face"]["face_area_err_pct"] for r in results}
+    bad = {s: round(e, 1) for s, e in errs.items() if e is None or abs(e) > 5.0}
+    assert not bad, f"face area off by more than 5 % on seeds {bad} of {len(errs)}"

@@ -169,6 +169,87 @@ def test_photo_scores_percent_errors():
     assert s["face_length_err_pct"] == pytest.approx(-1.0)
 
 
+def _bend_truth(imps=(), **visible):
+    """A curved bend truth: inspected arc 60 x 20 mm (R = 40 mm), drawn strip 80 mm projected."""
+    R, L, W = 40.0, 60.0, 20.0
+    Lp = 2 * R * math.sin(L / (2 * R))
+    t = _truth(list(imps), polygon_mm=[[0, 0], [Lp, 0], [Lp, W], [0, W]], length_mm=L, width_mm=W, area_mm2=L * W)
+    t.update(scene="bend", test="bend", curvature={"enabled": True, "radius_mm": R, "projected_length_mm": Lp})
+    if visible is not None:
+        v = {"length_mm": 80.0, "width_mm": W, "area_mm2": 80.0 * W, "surface_x0_mm": -20.0, "surface_x1_mm": 80.0}
+        v.update(visible)
+        t["face"]["visible"] = v
+    return t
+
+
+def test_bend_face_is_scored_against_the_drawn_surface():
+    ass = {"calibration": {"px_per_mm": 10.0}, "face": {"area_mm2": 1560.0, "length_mm": 78.0}}
+    s = ev.photo_scores(ass, _bend_truth())
+    # by hand: 1560 / (80 x 20) - 1 = -2.5 %; 78 / 80 - 1 = -2.5 % (the inspected arc would give +30 %)
+    assert s["face_truth"] == "visible"
+    assert s["face_area_err_pct"] == pytest.approx(-2.5) and s["face_length_err_pct"] == pytest.approx(-2.5)
+    # an older curved-bend truth without the drawn strip and without a seed to replay: not scored
+    old = _bend_truth()
+    del old["face"]["visible"]
+    s = ev.photo_scores(ass, old)
+    assert s["face_truth"] == "unknown" and s["face_area_err_pct"] is None and s["face_length_err_pct"] is None
+    # a fracture face (or a flat coupon) is what the photo shows: scored against the face itself
+    s = ev.photo_scores(ass, _truth([]))
+    assert s["face_truth"] == "face" and s["face_area_err_pct"] == pytest.approx(56.0)
+
+
+def test_bend_sizes_projected_when_the_tool_had_no_radius():
+    imp = _t("crack", 30, 10, 4.0, along=4.0, projected={"greatest_mm": 3.6, "along_mm": 3.6, "width_mm": 0.3})
+    truth = _bend_truth([imp])
+    det = _d(1, "crack", 30, 10, 3.62)
+    plain = {"test": "bend", "settings": {"nominal": {"thickness_mm": 10.0}}, "imperfections": [det]}
+    m = ev.match(plain, truth)
+    assert m.loc[0, "truth_greatest_mm"] == 3.6 and m.loc[0, "truth_along_mm"] == 3.6 and m.loc[0, "greatest_ok"]
+    # with the radius (or former + thickness) the tool reports true arc lengths: scored against them
+    for st in ({"outer_radius_mm": 40.0}, {"former_diameter_mm": 60.0, "nominal": {"thickness_mm": 10.0}}):
+        m = ev.match({**plain, "settings": st}, truth)
+        assert m.loc[0, "truth_greatest_mm"] == 4.0 and not m.loc[0, "greatest_ok"]
+    # a flat coupon, or an assessment that does not say how it was made: true sizes
+    flat = {**truth, "curvature": {"enabled": False}}
+    assert ev.match(plain, flat).loc[0, "truth_greatest_mm"] == 4.0
+    assert ev.match({"imperfections": [det]}, truth).loc[0, "truth_greatest_mm"] == 4.0
+
+
+def test_projected_check_agrees_with_the_tools_own_radius_rule():
+    from dataclasses import asdict
+
+    from surfaces.bend import outer_radius
+    from surfaces.model import Settings
+
+    truth = _bend_truth()
+    for kw in ({}, {"outer_radius_mm": 30.0}, {"former_diameter_mm": 40.0}, {"former_diameter_mm": 40.0, "nominal": {"thickness_mm": 8.0}},
+               {"nominal": {"thickness_mm": 8.0}}, {"bend_angle_deg": 120.0, "outer_radius_mm": 25.0}):  # fmt: skip
+        st = Settings(test="bend", **kw)
+        projected = ev._projected_lengths({"test": "bend", "settings": asdict(st)}, truth)
+        assert projected == (outer_radius(st)[0] is None), kw
+
+
+def test_bend_truth_table_measures_x_from_the_surface_seen_and_corners_are_long_edges():
+    # a crack 0.4 mm from the inspected arc's start (surface x 0.4..2.4) and one from the y = 0 edge
+    c1 = _t("crack", 5, 10, 2.0, face_mm={"cx": 1.4, "cy": 10.0, "x0": 0.4, "x1": 2.4, "y0": 9.9, "y1": 10.1})
+    c2 = _t("crack", 30, 1, 2.0, starts_at_edge=True, face_mm={"cx": 30.0, "cy": 1.0, "x0": 29.9, "x1": 30.1, "y0": 0.0, "y1": 2.0})
+    tab = ev.truth_table(_bend_truth([c1, c2]))
+    r1, r2 = tab.iloc[0], tab.iloc[1]
+    # by hand: the surface seen starts 20 mm of arc before the inspected arc, and is 100 mm long
+    assert r1["x0_mm"] == pytest.approx(20.4) and r1["cx_mm"] == pytest.approx(21.4)
+    assert r1["dist_end_mm"] == pytest.approx(20.4)
+    assert not r1["at_edge"] and r2["at_edge"] and r2["dist_edge_mm"] == pytest.approx(0.0)
+    # without the drawn strip (and no seed): face x as recorded, but the end is still not a corner
+    old = _bend_truth([c1])
+    del old["face"]["visible"]
+    r = ev.truth_table(old).iloc[0]
+    assert r["x0_mm"] == pytest.approx(0.4) and r["dist_end_mm"] == pytest.approx(0.4) and not r["at_edge"]
+    # measure.py's own rule on a bend coupon (edges_only): the same 0.5 mm band, long edges only
+    from surfaces.measure import EDGE_BAND_MM
+
+    assert r["dist_end_mm"] <= EDGE_BAND_MM
+
+
 def test_truth_table_face_axes_and_verdict():
     # face rotated 30 degrees in the plane, origin at (5, 7): a pore at face (x, y) = (40, 4)
     a = math.radians(30)
