@@ -13,7 +13,10 @@ it never stops the batch.
 
 Manifest CSV (optional): columns ``photo`` (required; relative to the batch
 folder), ``coupon_id``, ``welder``, ``procedure``, ``process``, ``position``,
-``material``, ``thickness_mm``, ``throat_mm``, ``wall_mm``.  Without a row a
+``material``, ``thickness_mm``, ``throat_mm``, ``wall_mm``, ``length_mm``
+(nominal sizes of the coupon), ``test`` and ``limits`` (this photo's test and
+limit set, instead of ``--test`` and ``--limits``), ``date`` (YYYY-MM-DD, the
+test date) and ``note`` (read and left in the manifest).  Without a row a
 photo's coupon id is its file name without suffix.
 """
 
@@ -28,6 +31,7 @@ import sys
 from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field, replace
+from datetime import date
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
@@ -51,9 +55,10 @@ __all__ = [
 IMAGE_SUFFIXES = frozenset({".jpg", ".jpeg", ".png", ".tif", ".tiff", ".webp", ".bmp"})
 MANIFEST_COLUMNS: tuple[str, ...] = (
     "photo", "coupon_id", "welder", "procedure", "process", "position", "material",
-    "thickness_mm", "throat_mm", "wall_mm",
+    "thickness_mm", "throat_mm", "wall_mm", "length_mm", "test", "limits", "date", "note",
 )
-_NOMINAL_COLUMNS = ("thickness_mm", "throat_mm", "wall_mm")
+_NOMINAL_COLUMNS = ("thickness_mm", "throat_mm", "wall_mm", "length_mm")
+_TESTS = ("fillet-break", "nick-break", "bend")
 SUMMARY_COLUMNS: tuple[str, ...] = (
     "photo", "coupon_id", "welder", "status", "result", "first_reason", "n_imperfections",
     "assessment_id", "photo_sha256", "error",
@@ -190,8 +195,35 @@ def read_manifest(path: str | os.PathLike, *, folder: str | os.PathLike | None =
             v = _number(row.get(c, ""), c, where)
             if v is not None:
                 coupon[c] = v
+        if row.get("test"):
+            if row["test"] not in _TESTS:
+                raise ManifestError(f"{where}: test {row['test']!r} is not one of {', '.join(_TESTS)}")
+            coupon["test"] = row["test"]
+        if row.get("date"):
+            try:
+                coupon["date"] = date.fromisoformat(row["date"]).isoformat()
+            except ValueError:
+                raise ManifestError(f"{where}: date {row['date']!r} is not a date; write it as YYYY-MM-DD") from None
+        if row.get("limits"):
+            coupon[_LIMITS_KEY] = _manifest_limits(row["limits"], base, where)
         out[full] = coupon
     return out
+
+
+_LIMITS_KEY = "_limits"  # a row's limit set: a setting of the job, not a coupon field
+
+
+def _manifest_limits(text: str, base: Path, where: str) -> str:
+    """The limit set named in a manifest row, checked now (not after the photos are assessed)."""
+    from .limits import load_limit_set
+
+    looks_like_path = text.endswith(".toml") or "/" in text or os.sep in text
+    name = str((base / text).resolve()) if looks_like_path and not Path(text).is_absolute() else text
+    try:
+        load_limit_set(name)
+    except SurfacesError as err:
+        raise ManifestError(f"{where}: limits: {' '.join(str(err).split())}") from None
+    return name
 
 
 # --------------------------------------------------------------------------- workers
@@ -281,12 +313,20 @@ class TextProgress:
 # --------------------------------------------------------------------------- the batch
 
 
-def _job_settings(settings: Settings, coupon: dict) -> Settings:
+def _job_settings(settings: Settings, coupon: dict, limits: str | None = None) -> Settings:
+    """``settings`` with this coupon's nominal sizes, test and limit set from its manifest row."""
     nominal = dict(settings.nominal or {})
     for c in _NOMINAL_COLUMNS:
         if coupon.get(c) is not None:
             nominal[c] = coupon[c]
-    return replace(settings, nominal=nominal) if nominal != dict(settings.nominal or {}) else settings
+    changes = {}
+    if nominal != dict(settings.nominal or {}):
+        changes["nominal"] = nominal
+    if coupon.get("test") and coupon["test"] != settings.test:
+        changes["test"] = coupon["test"]
+    if limits and limits != settings.limits:
+        changes["limits"] = limits
+    return replace(settings, **changes) if changes else settings
 
 
 def _summary_row(job: _Job) -> dict:
@@ -372,10 +412,11 @@ def run_batch(
     jobs: list[_Job] = []
     for i, p in enumerate(photos):
         coupon = dict(meta.get(p.resolve()) or {"id": p.stem})
+        limits = coupon.pop(_LIMITS_KEY, None)
         coupon.setdefault("test", settings.test)
         if batch:
             coupon.setdefault("batch", batch)
-        jobs.append(_Job(i, p, coupon, _job_settings(settings, coupon)))
+        jobs.append(_Job(i, p, coupon, _job_settings(settings, coupon, limits)))
     seen_ids: dict[str, Path] = {}
     for j in jobs:
         cid = j.coupon["id"]
@@ -527,7 +568,8 @@ def add_commands(sub) -> None:
     p.add_argument("inputs", nargs="+", metavar="FOLDER_OR_PHOTO", help="a folder of photos, or photo files")
     _add_photo_args(p)
     p.add_argument("--db", help="records database (default $SURFACES_DB or the user data folder)")
-    p.add_argument("--manifest", metavar="CSV", help="CSV mapping photos to coupon ids and welders")
+    p.add_argument("--manifest", metavar="CSV", help="CSV mapping photos to coupon ids, welders and nominal sizes; its test and limits "
+                   "columns replace --test and --limits for their photos")
     p.add_argument("--workers", type=int, default=None, help="worker processes (default: one per core)")
     p.add_argument("--batch-name", help="batch name stored with each coupon (default: the folder name)")
     p.add_argument("--summary-csv", metavar="OUT.csv", help="write the summary table")

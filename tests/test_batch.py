@@ -165,6 +165,10 @@ def test_manifest_maps_photos_to_coupons_and_nominal_sizes(tmp_path):
     ("photo,coupon_id\nmissing.png,C-1\n", "row 2: photo 'missing.png' not found"),
     ("photo,thickness_mm\nok.png,thick\n", "row 2: thickness_mm = 'thick' is not a number"),
     ("photo,wall_mm\nok.png,-4\n", "row 2: wall_mm = '-4' must be a positive size in mm"),
+    ("photo,test\nok.png,tensile\n", "row 2: test 'tensile' is not one of fillet-break, nick-break, bend"),
+    ("photo,date\nok.png,07/09/2026\n", "row 2: date '07/09/2026' is not a date; write it as YYYY-MM-DD"),
+    ("photo,limits\nok.png,no-such-set\n", "row 2: limits: no limit set named 'no-such-set'"),
+    ("photo,limits\nok.png,sets/missing.toml\n", "row 2: limits:"),
 ])
 def test_manifest_errors_name_the_row(tmp_path, body, message):
     folder = tmp_path / "in"
@@ -179,6 +183,30 @@ def test_manifest_errors_name_the_row(tmp_path, body, message):
         run_batch(folder, settings=SETTINGS, db=tmp_path / "r.sqlite3", manifest=m, workers=1,
                   assess_fn=fake_assess)
     assert not (tmp_path / "r.sqlite3").exists()
+
+
+def test_manifest_rows_carry_their_own_test_limits_length_and_date(tmp_path):
+    # A shift's coupons are of several kinds: each row may name its test and limit
+    # set (instead of --test/--limits), the weld length a sum rule needs, and the date.
+    make_photos(tmp_path / "in", ["f.png", "b.png", "plain.png"])
+    m = tmp_path / "in" / "manifest.csv"
+    m.write_text("photo,coupon_id,test,limits,length_mm,date,note\n"
+                 "f.png,F-1,,asme-ix-fillet-break-pipe,150,2026-09-07,sound face\n"
+                 "b.png,B-1,bend,aws-d1.1-bend,,2026-09-08,\"root bend, 180 deg\"\n")
+    db = tmp_path / "r.sqlite3"
+    out = run_batch(tmp_path / "in", settings=SETTINGS, db=db, manifest=m, workers=1, assess_fn=fake_assess)
+    by = out.set_index("photo")
+    with Store(db) as s:
+        f = s.get_assessment(int(by.loc["f.png", "assessment_id"]))
+        b = s.get_assessment(int(by.loc["b.png", "assessment_id"]))
+        p = s.get_assessment(int(by.loc["plain.png", "assessment_id"]))
+    assert (f["settings"]["test"], f["settings"]["limits"], f["nominal"]) == (
+        "fillet-break", "asme-ix-fillet-break-pipe", {"length_mm": 150.0})
+    assert f["record"]["coupon"]["date"] == "2026-09-07" and f["record"]["coupon"]["length_mm"] == 150.0
+    assert (b["settings"]["test"], b["settings"]["limits"]) == ("bend", "aws-d1.1-bend")
+    assert b["record"]["coupon"]["test"] == "bend"
+    assert (p["settings"]["test"], p["settings"]["limits"]) == (SETTINGS.test, SETTINGS.limits)
+    assert "note" not in f["record"]["coupon"]  # the note stays in the manifest
 
 
 def test_symlink_out_of_the_folder_is_refused(tmp_path):
