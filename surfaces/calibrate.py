@@ -12,7 +12,8 @@ How the marker is measured
    other misses; the results are merged; the retries below run them one
    after the other).  Large photos are searched on a
    copy reduced by the smallest whole number that brings the long side to at
-   most ``DETECT_LONG_SIDE_PX``; when nothing is found there, the search is
+   most ``DETECT_LONG_SIDE_PX`` and the copy to at most ``DETECT_MAX_PIXELS``
+   (12 MP photos: a third); when nothing is found there, the search is
    repeated at full resolution (small markers) and at a long side near half
    of ``DETECT_LONG_SIDE_PX`` (big, blurred markers).
 2. **Module grid.**  Every black/white boundary of the marker's bit
@@ -120,6 +121,10 @@ MODULES = 6  # 4 data bits + 1 border module each side
 
 #: Long side of the reduced copy that the first detection pass searches.
 DETECT_LONG_SIDE_PX: int = 2000
+#: A photo reduced for that pass anyway is reduced further until the copy holds at most this
+#: many pixels (a 4000 x 3000 photo is searched at a third, not at half: its marker is then
+#: still several times the detector's smallest, and the search costs a third as much).
+DETECT_MAX_PIXELS: int = 2_000_000
 #: Smallest marker side (px in the searched image) the detector accepts.
 MIN_DETECT_SIDE_PX: float = 14.0
 
@@ -264,6 +269,8 @@ def detect_markers(gray: np.ndarray) -> tuple[list[MarkerHit], int]:
     scales: list[float] = []
     first = max(1, math.ceil(long_side / DETECT_LONG_SIDE_PX))
     if first > 1:
+        while (h // first) * (w // first) > DETECT_MAX_PIXELS:
+            first += 1
         scales.append(1.0 / first)
     scales.append(1.0)
     second = max(2, round(2 * long_side / DETECT_LONG_SIDE_PX))

@@ -395,28 +395,40 @@ def _otsu(vals: np.ndarray) -> float:
 # fine edges
 
 
-def _snap_to_step(profile: np.ndarray, pos: float, *, win: int) -> float:
+def _step_stats(profiles: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """What :func:`_snap_to_step` needs of brightness profiles (along axis 0), for many at once.
+
+    Returns the absolute gradient (same shape, float64) and each profile's
+    sample-to-sample noise, ``1.4826 * MAD`` of its differences plus 1e-6.
+    """
+    p = np.asarray(profiles, dtype=np.float64)
+    d = np.diff(p, axis=0)
+    noise = 1.4826 * np.median(np.abs(d - np.median(d, axis=0)), axis=0) + 1e-6
+    return np.abs(np.gradient(p, axis=0)), noise
+
+
+def _snap_to_step(profile: np.ndarray, pos: float, *, win: int, stats=None) -> float:
     """Move an edge estimate to the strongest brightness step within ``win`` samples.
 
     The texture profile locates the face; where the face also differs in
     brightness from its surroundings, the brightness step is the sharper
     edge.  The step is taken only when it clearly stands out of the profile's
     own sample-to-sample noise; its sub-sample position is the vertex of a
-    parabola through the gradient peak.
+    parabola through the gradient peak.  ``stats``: the profile's
+    ``(gradient, noise)`` from :func:`_step_stats`, when already computed.
     """
-    p = np.asarray(profile, dtype=np.float64)
-    grad = np.abs(np.gradient(p))
-    i0, i1 = max(1, int(pos) - win), min(len(p) - 2, int(pos) + win)
+    n = len(profile)
+    i0, i1 = max(1, int(pos) - win), min(n - 2, int(pos) + win)
     if i1 <= i0:
         return pos
-    noise = 1.4826 * float(np.median(np.abs(np.diff(p) - np.median(np.diff(p))))) + 1e-6
+    grad, noise = _step_stats(profile) if stats is None else stats
     k = i0 + int(np.argmax(grad[i0 : i1 + 1]))
     if grad[k] < 4 * noise:
         return pos
     a, b, c = grad[k - 1], grad[k], grad[k + 1]
     den = a - 2 * b + c
     off = 0.5 * (a - c) / den if abs(den) > 1e-12 else 0.0
-    return float(k + np.clip(off, -0.5, 0.5))
+    return float(k + min(max(off, -0.5), 0.5))
 
 
 #: widest face (mean extent across the weld, mm) accepted per test: a fillet-break face spans the
@@ -748,17 +760,21 @@ def _edges_by_stretch(e, gi, x_lo, x_hi, y_lo, y_hi, *, out_lo, out_hi, q, snap)
     cols = slice(a_start, a_start + nb * bw)
     P = np.median(e[:, cols].reshape(h, nb, bw), axis=2)
     PI = np.median(gi[:, cols].reshape(h, nb, bw), axis=2)
+    grads, noises = _step_stats(PI)
+    # each stretch's face level and outside levels, all stretches at once
+    c0, c1 = int(y_lo + 0.3 * W), int(y_hi - 0.3 * W) + 1
+    inners = np.percentile(P[c0:max(c1, c0 + 1)], 60, axis=0)
+    ols = np.median(P[out_lo], axis=0) if P[out_lo].shape[0] else 0.3 * inners
+    ohs = np.median(P[out_hi], axis=0) if P[out_hi].shape[0] else 0.3 * inners
+    mid = 0.5 * (y_lo + y_hi)
     for k in range(nb):
         p, pi = P[:, k], PI[:, k]
-        c0, c1 = int(y_lo + 0.3 * W), int(y_hi - 0.3 * W) + 1
-        inner = float(np.percentile(p[c0:max(c1, c0 + 1)], 60))
-        ol = float(np.median(p[out_lo])) if p[out_lo].size else 0.3 * inner
-        oh = float(np.median(p[out_hi])) if p[out_hi].size else 0.3 * inner
-        mid = 0.5 * (y_lo + y_hi)
+        st = (grads[:, k], float(noises[k]))
+        inner, ol, oh = float(inners[k]), float(ols[k]), float(ohs[k])
         ylo = _rise_from_outside(p, 0.5 * (inner + ol), max(0.0, y_lo - reach), min(mid, y_lo + reach), persist=persist)
         yhi = _rise_from_outside(p, 0.5 * (inner + oh), min(h - 1.0, y_hi + reach), max(mid, y_hi - reach), persist=persist)
-        ylo = y_lo if ylo is None or inner <= 1.2 * ol else _snap_to_step(pi, ylo, win=snap)
-        yhi = y_hi if yhi is None or inner <= 1.2 * oh else _snap_to_step(pi, yhi, win=snap)
+        ylo = y_lo if ylo is None or inner <= 1.2 * ol else _snap_to_step(pi, ylo, win=snap, stats=st)
+        yhi = y_hi if yhi is None or inner <= 1.2 * oh else _snap_to_step(pi, yhi, win=snap, stats=st)
         xb.append(a_start + (k + 0.5) * bw - 0.5)
         lo_b.append(ylo)
         hi_b.append(yhi)
@@ -911,19 +927,19 @@ def _rise_from_outside(p: np.ndarray, level: float, start: float, stop: float, *
     """
     p = np.asarray(p, dtype=np.float64)
     n = len(p)
-    a = int(np.clip(round(start), 0, n - 1))
-    b = int(np.clip(round(stop), 0, n - 1))
+    a = min(max(int(round(start)), 0), n - 1)
+    b = min(max(int(round(stop)), 0), n - 1)
     step = 1 if b >= a else -1
     idx = np.arange(a, b + step, step)
     if len(idx) < 2:
         return None
     v = p[idx]
-    for k in range(1, len(v)):
-        if v[k - 1] < level <= v[k]:
-            after = v[k : k + persist]
-            if len(after) >= min(persist, len(v) - k) and after.mean() >= level and np.mean(after >= level) >= 0.7:
-                frac = (level - v[k - 1]) / (v[k] - v[k - 1])
-                return float(idx[k - 1] + frac * step)
+    # the upward crossings, in walking order; each is checked for staying up
+    for k in (np.flatnonzero((v[:-1] < level) & (level <= v[1:])) + 1).tolist():
+        after = v[k : k + persist]
+        if len(after) >= min(persist, len(v) - k) and after.mean() >= level and np.mean(after >= level) >= 0.7:
+            frac = (level - v[k - 1]) / (v[k] - v[k - 1])
+            return float(idx[k - 1] + frac * step)
     if v[0] >= level and v[: persist].mean() >= level:
         return float(idx[0])
     return None
