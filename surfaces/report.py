@@ -417,6 +417,18 @@ def _fit_text(text: str, max_w: int, font_scale: float, thick: int) -> str:
     return text + "..."
 
 
+def _shrink_to_fit(text: str, max_w: int, font_scale: float, thick: int, *, smallest: float = 0.6) -> tuple[str, float]:
+    """``text`` in the largest of a few type sizes (down to ``smallest`` x) that fits
+    ``max_w``; cut with "..." only when even that one does not."""
+    text = _ascii(text)
+    fsz = font_scale
+    for f in (1.0, 0.85, 0.72, smallest):
+        fsz = max(0.4, font_scale * f)
+        if cv2.getTextSize(text, cv2.FONT_HERSHEY_SIMPLEX, fsz, thick)[0][0] <= max_w:
+            return text, fsz
+    return _fit_text(text, max_w, fsz, thick), fsz
+
+
 def _nice_bar_mm(px_per_mm: float, max_px: float) -> float | None:
     """Largest round length (1, 2, 5 x 10^k mm) whose bar fits in ``max_px``."""
     if not px_per_mm or not math.isfinite(px_per_mm) or px_per_mm <= 0:
@@ -593,8 +605,10 @@ def render_overlay(photo_rgb: np.ndarray, assessment: dict, *, max_side: int = 2
     ww = cv2.getTextSize(word, cv2.FONT_HERSHEY_SIMPLEX, big, bthick + 1)[0][0]
     first = reasons[0] if reasons else ("no reason given" if result != "accept" else "within the limits")
     more = f"  (+{len(reasons) - 1} more)" if len(reasons) > 1 else ""
-    rest = _fit_text(f"- {first}{more}", lay.photo_w - ww - 3 * pad, fs, tthick)
-    cv2.putText(canvas, rest, (ww + 2 * pad, line1_y), cv2.FONT_HERSHEY_SIMPLEX, fs, fg, tthick, cv2.LINE_AA)
+    # the deciding reason should be read whole (it names the limit): a smaller
+    # type before it is cut
+    rest, rfs = _shrink_to_fit(f"- {first}{more}", lay.photo_w - ww - 3 * pad, fs, tthick)
+    cv2.putText(canvas, rest, (ww + 2 * pad, line1_y), cv2.FONT_HERSHEY_SIMPLEX, rfs, fg, tthick, cv2.LINE_AA)
     lim = assessment.get("limits") or {}
     photo_meta = assessment.get("photo") or {}
     n_live = sum(1 for r in rows if str(r.get("status")) != "dismissed")
@@ -602,10 +616,9 @@ def render_overlay(photo_rgb: np.ndarray, assessment: dict, *, max_side: int = 2
         f"{photo_meta.get('name', '')}  |  {assessment.get('test', '')}  |  "
         f"{n_live} imperfection(s)  |  limits: {lim.get('name') or lim.get('title') or 'none'}"
     )
-    cv2.putText(
-        canvas, _fit_text(sub, lay.photo_w - 2 * pad, fs * 0.85, max(1, tthick - 1)),
-        (pad, int(round(top * 0.84))), cv2.FONT_HERSHEY_SIMPLEX, fs * 0.85, fg, max(1, tthick - 1), cv2.LINE_AA,
-    )
+    sub, sfs = _shrink_to_fit(sub, lay.photo_w - 2 * pad, fs * 0.85, max(1, tthick - 1))
+    cv2.putText(canvas, sub, (pad, int(round(top * 0.84))), cv2.FONT_HERSHEY_SIMPLEX, sfs, fg, max(1, tthick - 1),
+                cv2.LINE_AA)
 
     # Footer: scale bar then legend.
     fy0 = top + lay.photo_h

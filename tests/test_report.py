@@ -412,3 +412,18 @@ def test_crowded_labels_do_not_overlap():
         assert not report._overlaps(a, others), i
     # and the full drawing still works
     report.render_overlay(synthetic_photo(), make_assessment(rows=rows))
+
+
+def test_banner_text_shrinks_before_it_is_cut():
+    # The banner's reason names the limit at its end: a smaller type keeps it whole;
+    # only text too long even then is cut (widths from OpenCV's own getTextSize).
+    import cv2
+
+    text = "single-size: pore 1: greatest 2.96 +/- 0.35 mm > 3/32 in (2.381 mm)"
+    full = cv2.getTextSize(text, cv2.FONT_HERSHEY_SIMPLEX, 1.0, 1)[0][0]
+    got, fs = report._shrink_to_fit(text, int(full * 0.8), 1.0, 1)
+    assert got == text and fs < 1.0
+    assert cv2.getTextSize(got, cv2.FONT_HERSHEY_SIMPLEX, fs, 1)[0][0] <= int(full * 0.8)
+    got, fs = report._shrink_to_fit(text, int(full * 0.3), 1.0, 1)
+    assert got.endswith("...") and len(got) < len(text)
+    assert report._shrink_to_fit(text, full + 5, 1.0, 1) == (text, 1.0)
