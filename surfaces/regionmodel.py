@@ -28,7 +28,7 @@ FEATURES = (
     "log_greatest", "log_area", "log_aspect", "solidity", "roughness", "log_thickness",
     "contrast", "depth", "edge_sharpness", "tex_in", "tex_ring", "chroma_ring", "chroma_face",
     "ridge_frac", "edge_contact", "log_photo_px", "log_photo_thick_px", "bright_frac",
-    "src_dark", "src_ridge", "src_smooth",
+    "src_dark", "src_ridge", "src_smooth", "ellipse_misfit", "highlight", "inner_spread", "along_elong",
 )  # fmt: skip
 
 
@@ -61,8 +61,30 @@ def feature_vector(f: dict) -> np.ndarray:
         float(src == "dark"),
         float(src == "ridge"),
         float(src == "smooth"),
+        min(f["ellipse_misfit"], 1.5),
+        min(f["highlight"], 2.0),
+        min(f["inner_spread"], 2.0),
+        along_elongation(f["aspect"], f["angle_rad"]),
     ]
     return np.asarray(v, dtype=np.float64)
+
+
+#: beyond this aspect ratio a region is a line (crack, edge, scratch), which ``log_aspect`` tells
+ALONG_ASPECT_CAP = 8.0
+
+
+def along_elongation(aspect: float, angle_rad: float) -> float:
+    """How much a region is drawn out along the weld: ``log(min(aspect, 8)) |cos(angle)|``.
+
+    ``angle_rad`` is the direction of its greatest dimension from the face's
+    x axis (the weld axis).  Slag trails along the weld as it is left behind
+    by the pass (common practice); a round pore has no direction, and 0
+    here, whatever angle its Feret diameter happens to take.  Past
+    :data:`ALONG_ASPECT_CAP` more length says "line", not "slag": the
+    measure stops growing there (a dark strip along the face's edge fitted
+    as slag otherwise).
+    """
+    return _log(min(aspect, ALONG_ASPECT_CAP), 1.0) * abs(math.cos(float(angle_rad)))
 
 
 @lru_cache(maxsize=1)
@@ -76,6 +98,15 @@ def load_model(path: str | None = None) -> dict:
     m["mean"] = np.asarray(m["mean"], dtype=np.float64)
     m["std"] = np.asarray(m["std"], dtype=np.float64)
     return m
+
+
+def model_fits(path: str | None = None) -> bool:
+    """Whether a fitted model for the current :data:`FEATURES` is there (else candidates get no kind yet)."""
+    try:
+        load_model(path)
+    except (OSError, RuntimeError, ValueError, KeyError):
+        return False
+    return True
 
 
 def probabilities(X: np.ndarray, model: dict | None = None) -> np.ndarray:

@@ -28,7 +28,9 @@ Two steps:
 
 2. **Decision**: every candidate is described by generic region features
    (size, shape, contrast to its ring, edge steepness, inner texture, colour,
-   ridge fraction, contact with the face edge) and scored by a small
+   ridge fraction, contact with the face edge, how far its outline is from an
+   ellipse, how its inner grey levels spread; the model adds its elongation
+   along the weld) and scored by a small
    multinomial logistic model (:mod:`surfaces.regionmodel`) whose weights are
    fitted on synthetic faces by ``scripts/fit_region_model.py``; a few
    candidates are settled by physics first (:func:`ruled_out`: a ridge
@@ -51,7 +53,7 @@ from scipy import ndimage as ndi
 from skimage import measure as skm
 
 from .model import SurfacesError
-from .shapes import polygon_features
+from .shapes import ellipse_misfit, polygon_features
 
 BACKGROUND_MM = 6.0  # window of the local background median
 SMOOTH_SEED = 0.45  # texture energy (of the face's median) where a smooth region starts
@@ -240,7 +242,7 @@ def segment(
     -------
     list of Detection, outlines in face pixels (col, row), sorted along x.
     """
-    from .regionmodel import MODEL_PATH, classify
+    from .regionmodel import classify, model_fits
 
     rgb, mask = _check_input(rgb, mask, px_per_mm=px_per_mm, photo_px_per_mm=photo_px_per_mm)
     photo_mm = float(photo_px_per_mm or px_per_mm)
@@ -249,7 +251,7 @@ def segment(
     cands += _smooth_candidates(M, cands)
     min_resolvable = RESOLVE_PX / photo_mm
     out = []
-    fitting = keep_all and not MODEL_PATH.exists()
+    fitting = keep_all and not model_fits()
     for c in cands:
         f = c.features
         if fitting:  # bootstrapping the region model: features only
@@ -686,7 +688,39 @@ def _appearance(f: dict, reg: np.ndarray, sl, M: _Maps, *, source: str, contour=
         border_touch=touch,
         border_reach_mm=reach,
     )
+    f.update(inner_grey(patch[deep], ring_level=b, core_level=core))
+    f["ellipse_misfit"] = ellipse_misfit(contour) if contour is not None else 0.0
     return f
+
+
+def inner_grey(values: np.ndarray, *, ring_level: float, core_level: float) -> dict:
+    """How the grey levels inside a region are spread, over its ring-to-core span (dimensionless).
+
+    A pore is an open cavity: its inside is evenly dark, or dark with a small
+    sharp specular highlight; slag fills its hole with a dull, mottled, partly
+    glassy solid whose grey levels spread more (common practice).
+
+    * ``inner_spread``: inter-quartile range of the grey levels;
+    * ``highlight``: the 98th percentile above the median (a highlight, or
+      glassy flecks).
+
+    Parameters
+    ----------
+    values : 1-d ndarray
+        Grey levels of the region's pixels (away from its outline).
+    ring_level, core_level : float
+        Grey levels of the surrounding ring and of the region's dark core.
+
+    Returns
+    -------
+    dict with ``inner_spread`` and ``highlight`` (0 with fewer than 4 values).
+    """
+    v = np.asarray(values, dtype=np.float64).ravel()
+    if v.size < 4:
+        return {"inner_spread": 0.0, "highlight": 0.0}
+    q25, med, q75, top = np.percentile(v, (25, 50, 75, 98))
+    span = max(float(ring_level) - float(core_level), 1.0)
+    return {"inner_spread": float(q75 - q25) / span, "highlight": float(top - med) / span}
 
 
 _CROSS = cv2.getStructuringElement(cv2.MORPH_CROSS, (3, 3))
