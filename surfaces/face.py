@@ -81,8 +81,10 @@ def _texture_energy(gray: np.ndarray, *, px_per_mm: float, fine_mm: float, windo
     """Local RMS of the band-pass detail between ``fine_mm`` and the pixel scale."""
     g = gray.astype(np.float32)
     hp = g - cv2.GaussianBlur(g, (0, 0), max(fine_mm * px_per_mm, 0.6))
-    e = cv2.GaussianBlur(hp * hp, (0, 0), max(window_mm * px_per_mm, 0.8))
-    return np.sqrt(np.maximum(e, 0))
+    hp *= hp
+    e = cv2.GaussianBlur(hp, (0, 0), max(window_mm * px_per_mm, 0.8))
+    np.maximum(e, 0, out=e)
+    return np.sqrt(e, out=e)
 
 
 # --------------------------------------------------------------------------
@@ -222,7 +224,7 @@ def _best_component(e: np.ndarray, allowed: np.ndarray, s: float):
         cand = ((e > thr) & allowed).astype(np.uint8)
         cand = cv2.morphologyEx(cand, cv2.MORPH_CLOSE, k_close)
         cand = cv2.morphologyEx(cand, cv2.MORPH_OPEN, k_open)
-        n, lab, stats, cents = cv2.connectedComponentsWithStats(cand, connectivity=8)
+        n, lab, stats, cents = _components(cand)
         labs.append((lab, n, stats, cents))
         for i in range(1, n):
             area_px = stats[i, cv2.CC_STAT_AREA]
@@ -289,6 +291,19 @@ def _best_component(e: np.ndarray, allowed: np.ndarray, s: float):
     return _merge_collinear(best, best_lab, e, s)
 
 
+def _components(binary: np.ndarray):
+    """``cv2.connectedComponentsWithStats`` (8-connected), with 16-bit labels while they suffice.
+
+    Writing half the label memory makes the labelling about three times
+    faster on a large photo's search plane; OpenCV refuses a 16-bit count
+    that would overflow, and the labelling is then repeated with 32 bits.
+    """
+    try:
+        return cv2.connectedComponentsWithStats(binary, connectivity=8, ltype=cv2.CV_16U)
+    except cv2.error:
+        return cv2.connectedComponentsWithStats(binary, connectivity=8, ltype=cv2.CV_32S)
+
+
 def _card_mask(val: np.ndarray, quad_px: np.ndarray, s: float) -> np.ndarray:
     """Coarse-plane pixels of the paper card that carries the marker ``quad_px``."""
     h, w = val.shape
@@ -324,7 +339,9 @@ def _card_mask(val: np.ndarray, quad_px: np.ndarray, s: float) -> np.ndarray:
     card = cv2.morphologyEx(card.astype(np.uint8), cv2.MORPH_CLOSE, np.ones((k, k), np.uint8))
     n, lab = cv2.connectedComponents(1 - card, connectivity=4)
     border = np.unique(np.r_[lab[0], lab[-1], lab[:, 0], lab[:, -1]])
-    holes = ~np.isin(lab, border) & (card == 0)
+    at_border = np.zeros(n, bool)
+    at_border[border] = True
+    holes = ~at_border[lab] & (card == 0)
     card = (card > 0) | holes
     return cv2.dilate(card.astype(np.uint8), np.ones((k, k), np.uint8)) > 0
 
@@ -377,8 +394,19 @@ def _coherence(gray: np.ndarray, *, sigma_px: float) -> np.ndarray:
     s = max(sigma_px, 0.8)
     jxx = cv2.GaussianBlur(gx * gx, (0, 0), s)
     jyy = cv2.GaussianBlur(gy * gy, (0, 0), s)
-    jxy = cv2.GaussianBlur(gx * gy, (0, 0), s)
-    return np.clip(np.sqrt((jxx - jyy) ** 2 + 4 * jxy**2) / (jxx + jyy + 1e-6), 0, 1)
+    gx *= gy
+    jxy = cv2.GaussianBlur(gx, (0, 0), s)
+    # sqrt((jxx - jyy)^2 + 4 jxy^2) / (jxx + jyy + 1e-6), clipped to 0..1, in place
+    num = jxx - jyy
+    num *= num
+    jxy *= jxy
+    jxy *= 4
+    num += jxy
+    np.sqrt(num, out=num)
+    jxx += jyy
+    jxx += 1e-6
+    num /= jxx
+    return np.clip(num, 0, 1, out=num)
 
 
 def _otsu(vals: np.ndarray) -> float:
