@@ -16,7 +16,10 @@ of the truth imperfection whose outline contains its centre (grown by
 are left out; every third face is also used as a monochrome photo.  A
 multinomial logistic model with an L2 penalty is fitted (SciPy L-BFGS) with
 class weights that balance the many ``none`` candidates, colour weights tied
-across every class but ``unfused``.  The seeds used here (100000 and up) are
+across every class but ``unfused``; it decides whether a candidate is an
+imperfection from every feature but the orientation ones
+(``regionmodel.KIND_ONLY``), and a second one, fitted on the imperfections
+alone with every feature, shares out the kinds.  The seeds used here (100000 and up) are
 disjoint from the seeds the tests and the benchmark evaluate on.
 """
 
@@ -38,7 +41,9 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from surfaces.regionmodel import CLASSES, FEATURES, MODEL_PATH, feature_vector  # noqa: E402
+from surfaces.regionmodel import CLASSES, DETECT_FEATURES, FEATURES, MODEL_PATH, feature_vector  # noqa: E402
+
+DETECT_IDX = [FEATURES.index(f) for f in DETECT_FEATURES]
 
 
 def prepare_face(args) -> dict | str:
@@ -191,9 +196,10 @@ TRUTH_FACE = os.environ.get("SURFACES_FIT_TRUTH_FACE", "") == "1"
 COLOUR_FEATURES = ("chroma_ring", "chroma_face")
 
 
-def fit(X: np.ndarray, y: np.ndarray, *, l2: float = 1e-2) -> dict:
+def fit(X: np.ndarray, y: np.ndarray, *, l2: float = 1e-2, features=FEATURES, classes=CLASSES) -> dict:
     """Multinomial logistic weights (L2, class-balanced), colour weights tied (:data:`COLOUR_FEATURES`).
 
+    ``X`` has one column per name in ``features``, ``y`` indexes ``classes``.
     Tying is kept by giving the tied weights one shared gradient (their
     mean) from a zero start, so they stay equal and cancel in the softmax.
     """
@@ -204,13 +210,13 @@ def fit(X: np.ndarray, y: np.ndarray, *, l2: float = 1e-2) -> dict:
     std[std < 1e-9] = 1.0
     Z = (X - mean) / std
     n, d = Z.shape
-    k = len(CLASSES)
+    k = len(classes)
     counts = np.bincount(y, minlength=k).astype(float)
     cw = np.where(counts > 0, (n / (k * np.maximum(counts, 1))) ** 0.5, 0.0)
     sw = cw[y]
     Y = np.eye(k)[y]
-    rows = [FEATURES.index(f) for f in COLOUR_FEATURES]
-    tied = np.array([c != "unfused" for c in CLASSES])
+    rows = [list(features).index(f) for f in COLOUR_FEATURES]
+    tied = np.array([c != "unfused" for c in classes])
 
     def loss(theta):
         W = theta[: d * k].reshape(d, k)
@@ -277,10 +283,15 @@ def main() -> int:
         return np.asarray(X, float), np.asarray(y, int)
 
     Xt, yt = stack(train)
-    model = fit(Xt, yt, l2=a.l2)
+    # whether: the detection model, blind to orientation; what: the kind model, on imperfections only
+    model = fit(Xt[:, DETECT_IDX], yt, l2=a.l2, features=DETECT_FEATURES)
+    real = yt > 0
+    model["kinds"] = fit(Xt[real], yt[real] - 1, l2=a.l2, classes=CLASSES[1:])
+    model["kinds"]["classes"] = list(CLASSES[1:])
     model.update(
         classes=list(CLASSES),
         features=list(FEATURES),
+        detect_features=list(DETECT_FEATURES),
         fitted=dt.date.today().isoformat(),
         training={
             "photos": len(train),
@@ -293,13 +304,10 @@ def main() -> int:
         },
     )
     if n_hold:
-        from surfaces.regionmodel import probabilities
+        from surfaces.regionmodel import prepare_model, probabilities
 
         Xh, yh = stack(hold)
-        m = dict(model)
-        for key in ("W", "b", "mean", "std"):
-            m[key] = np.asarray(model[key])
-        P = probabilities(Xh, m)
+        P = probabilities(Xh, prepare_model(model))
         pred = P.argmax(axis=1)
         conf = np.zeros((len(CLASSES), len(CLASSES)), int)
         for t, p in zip(yh, pred):

@@ -9,7 +9,9 @@ which also records the training set, the held-out scores and the date.
 
 The probability of the chosen kind is reported as the detection's
 confidence; ``1 - P(none)`` is the belief that the region is an
-imperfection at all.
+imperfection at all.  That belief comes from a model that does not see the
+region's orientation (:data:`KIND_ONLY`); a second one, which does, shares
+it out among the kinds.
 """
 
 from __future__ import annotations
@@ -87,17 +89,33 @@ def along_elongation(aspect: float, angle_rad: float) -> float:
     return _log(min(aspect, ALONG_ASPECT_CAP), 1.0) * abs(math.cos(float(angle_rad)))
 
 
+#: features that say what an imperfection is, never whether there is one: they enter only the kind
+#: model.  An orientation must not decide that a region is grain: an inclusion lying across the weld
+#: is as real as one along it (and photos of other surfaces have no weld axis at all)
+KIND_ONLY = ("along_elong",)
+#: the features of the detection model (``P(none)`` and the kinds it would give on its own)
+DETECT_FEATURES = tuple(f for f in FEATURES if f not in KIND_ONLY)
+_DETECT_IDX = np.array([FEATURES.index(f) for f in DETECT_FEATURES])
+
+
+def prepare_model(m: dict, *, source: str = "the region model") -> dict:
+    """A model dict as read from JSON with its arrays made numpy (checked against the current features)."""
+    if tuple(m["features"]) != FEATURES or tuple(m["classes"]) != CLASSES or "kinds" not in m:
+        raise RuntimeError(f"{source} was fitted for other features; re-run scripts/fit_region_model.py")
+    m = dict(m)
+    m["kinds"] = dict(m["kinds"])
+    for part, n in ((m, len(DETECT_FEATURES)), (m["kinds"], len(FEATURES))):
+        for key in ("W", "b", "mean", "std"):
+            part[key] = np.asarray(part[key], dtype=np.float64)
+        if part["W"].shape[0] != n or part["mean"].shape != (n,):
+            raise RuntimeError(f"{source} has weights for {part['W'].shape[0]} features, not {n}; re-run scripts/fit_region_model.py")
+    return m
+
+
 @lru_cache(maxsize=1)
 def load_model(path: str | None = None) -> dict:
     p = Path(path) if path else MODEL_PATH
-    m = json.loads(p.read_text())
-    if tuple(m["features"]) != FEATURES or tuple(m["classes"]) != CLASSES:
-        raise RuntimeError(f"{p}: the region model was fitted for other features; re-run scripts/fit_region_model.py")
-    m["W"] = np.asarray(m["W"], dtype=np.float64)
-    m["b"] = np.asarray(m["b"], dtype=np.float64)
-    m["mean"] = np.asarray(m["mean"], dtype=np.float64)
-    m["std"] = np.asarray(m["std"], dtype=np.float64)
-    return m
+    return prepare_model(json.loads(p.read_text()), source=str(p))
 
 
 def model_fits(path: str | None = None) -> bool:
@@ -109,14 +127,24 @@ def model_fits(path: str | None = None) -> bool:
     return True
 
 
-def probabilities(X: np.ndarray, model: dict | None = None) -> np.ndarray:
-    """Class probabilities for rows of raw feature vectors ``X`` (n, len(FEATURES))."""
-    m = model or load_model()
-    Z = (np.atleast_2d(X) - m["mean"]) / m["std"]
-    logits = Z @ m["W"] + m["b"]
+def _softmax(X: np.ndarray, part: dict) -> np.ndarray:
+    logits = ((X - part["mean"]) / part["std"]) @ part["W"] + part["b"]
     logits -= logits.max(axis=1, keepdims=True)
     e = np.exp(logits)
     return e / e.sum(axis=1, keepdims=True)
+
+
+def probabilities(X: np.ndarray, model: dict | None = None) -> np.ndarray:
+    """Class probabilities for rows of raw feature vectors ``X`` (n, len(FEATURES)).
+
+    Two logistic models: the detection model over :data:`DETECT_FEATURES`
+    gives ``P(none)``; the kind model over every feature splits the rest,
+    ``P(kind) = (1 - P(none)) P(kind | an imperfection)``.
+    """
+    m = model or load_model()
+    X = np.atleast_2d(np.asarray(X, dtype=np.float64))
+    p_none = _softmax(X[:, _DETECT_IDX], m)[:, :1]
+    return np.c_[p_none, (1.0 - p_none) * _softmax(X, m["kinds"])]
 
 
 def classify(f: dict) -> tuple[str, float, dict]:

@@ -134,3 +134,32 @@ def test_shaded_or_flecked_inside_spreads_more_than_an_even_one():
     assert ramp["inner_spread"] == pytest.approx(30.0 * u / (150.0 - 40.0), abs=0.03)
     assert even["inner_spread"] < 0.03
     assert fleck["highlight"] > even["highlight"] + 0.2
+
+
+def test_a_model_for_other_features_is_not_used(tmp_path):
+    # a refit after a feature change starts from a model file written for the old features:
+    # it is recognised as not fitting (so candidates come out bare for the fit), never half-used
+    import json
+
+    from surfaces.regionmodel import MODEL_PATH, model_fits
+
+    assert model_fits()  # the shipped model matches the shipped features
+    m = json.loads(MODEL_PATH.read_text())
+    m["features"] = m["features"][:-1]
+    p = tmp_path / "old.json"
+    p.write_text(json.dumps(m))
+    assert not model_fits(str(p))
+    assert not model_fits(str(tmp_path / "missing.json"))
+
+
+def test_orientation_changes_the_kind_never_whether_there_is_one(drawn):
+    # by construction: the same 4 x 1.2 mm rectangle along and across the weld; whether it is an
+    # imperfection (1 - P(none)) must not depend on which way it lies, only what kind it is may
+    from surfaces.regionmodel import probabilities
+
+    along = dict(drawn["along"].features)
+    across = dict(along, angle_rad=along["angle_rad"] + math.pi / 2)
+    p_along, p_across = probabilities(np.stack([feature_vector(along), feature_vector(across)]))
+    assert p_along[0] == pytest.approx(p_across[0], abs=1e-12)
+    assert p_along.sum() == pytest.approx(1.0) and p_across.sum() == pytest.approx(1.0)
+    assert not np.allclose(p_along[1:], p_across[1:])  # the kinds do see it
