@@ -263,3 +263,24 @@ def test_rendered_fracture_photo(test, seed, tilt):
     Ht = np.linalg.inv(np.asarray(sp.truth["H_plane_to_photo"]))
     assert iou_plane(apply_h(Ht, face.polygon_px), np.asarray(truth["polygon_mm"]), px_per_mm=10) > 0.9
     assert math.isfinite(face.confidence) and 0 < face.confidence <= 1
+
+
+def test_region_labelling_matches_opencvs_32_bit_labels_and_survives_overflow():
+    """The face search labels its candidate regions with 16-bit labels while they suffice.
+
+    Reference: OpenCV's own ``connectedComponentsWithStats`` with 32-bit labels on
+    the same input (same labels, statistics and centroids); a dotted plane with more
+    regions than 16 bits can number still gets every one of them.
+    """
+    from surfaces.face import _components
+
+    rng = np.random.default_rng(5)
+    blobs = (cv2.GaussianBlur(rng.random((400, 600)).astype(np.float32), (0, 0), 3) > 0.5).astype(np.uint8)
+    dots = np.zeros((800, 800), np.uint8)
+    dots[::3, ::3] = 1  # 267 x 267 isolated dots: more than 65535 regions
+    for img in (blobs, dots):
+        n, lab, stats, cents = _components(img)
+        n_ref, lab_ref, stats_ref, cents_ref = cv2.connectedComponentsWithStats(img, connectivity=8, ltype=cv2.CV_32S)
+        assert n == n_ref and np.array_equal(lab, lab_ref)
+        assert np.array_equal(stats, stats_ref) and np.allclose(cents, cents_ref)
+    assert _components(dots)[0] - 1 == 267 * 267
