@@ -1,8 +1,8 @@
 """The region model: kind and confidence of a candidate region from its features.
 
-A multinomial logistic model over the classes ``none, pore, inclusion,
-unfused, crack``.  Its inputs are generic, dimensionless region features
-(see :func:`feature_vector`), standardised; its weights live in
+Multinomial logistic models over the classes ``none, pore, inclusion,
+unfused, crack``.  Their inputs are generic, dimensionless region features
+(see :func:`feature_vector`), standardised; their weights live in
 ``regionmodel.json`` beside this file and are fitted on seeded synthetic
 faces (truth known by construction) by ``scripts/fit_region_model.py``,
 which also records the training set, the held-out scores and the date.
