@@ -1293,6 +1293,7 @@ def find_openings(
         f["touches_edge"] = bool(min(f["y0_mm"], W - f["y1_mm"]) < 0.25)
         kind, iso, conf = _bend_kind(f)
         d.kind, d.iso6520, d.confidence = kind, iso, conf
+        d.probs = bend_kind_shares(f, kind)
         d.cause = {"pore": "pore", "inclusion": "slag"}.get(kind, "")
         dets.append(d)
     dets.sort(key=lambda d: (d.features["cx_px"], d.features["cy_px"]))
@@ -1465,6 +1466,26 @@ def _trace_opening(i, sl, lab, gs, bg, ridge_mask, labc, inner_mask, *, mm: floa
 
 def _sigmoid(x: float) -> float:
     return 1.0 / (1.0 + math.exp(-max(min(x, 50.0), -50.0)))
+
+
+def bend_kind_shares(f: dict, kind: str) -> dict:
+    """How much an opening looks like each kind: shares summing to 1, the chosen ``kind`` largest.
+
+    Soft versions of the thresholds of :func:`_bend_kind` (thinness for a
+    crack, tint and irregular walls for slag, the rest for a pore), so that
+    the runner-up kind and its share are recorded with the detection and the
+    judge can try an opening as that kind too.  They are memberships, not
+    probabilities fitted to data.
+    """
+    a = float(f["aspect"])
+    thick = f["area_mm2"] / max(f["greatest_mm"], 1e-6)
+    slag = _sigmoid((f.get("tint", 0.0) - 3.0) / 1.0) * 0.6 + _sigmoid((0.86 - f["solidity"]) / 0.04) * 0.4
+    crack = max(_sigmoid((a - 2.2) / 0.4), _sigmoid((0.3 - thick) / 0.05) * _sigmoid((a - 1.8) / 0.3))
+    raw = {"crack": crack, "inclusion": (1.0 - crack) * slag, "pore": (1.0 - crack) * (1.0 - slag)}
+    top = max(v for k, v in raw.items() if k != kind)
+    raw[kind] = max(raw[kind], top + 1e-3)  # the rules chose this kind: it stays first
+    tot = sum(raw.values())
+    return {k: round(v / tot, 4) for k, v in raw.items()}
 
 
 def _bend_kind(f: dict) -> tuple[str, str, float]:

@@ -534,3 +534,27 @@ def test_a_fading_end_is_placed_at_its_foot_a_sharp_one_half_way():
     hi = bend._end_step(c, j, span=32, arm=12, outward=+1, low=3.6, ramp=8)
     assert lo == pytest.approx(100 + 50 * 2.6 / 19, abs=1e-9)
     assert hi == pytest.approx(299.5, abs=1e-9)
+
+
+def test_bend_openings_carry_kind_shares_with_the_chosen_kind_first():
+    # an opening's kind comes from thresholds (common practice: thin = crack, tinted or
+    # irregular = slag, rounded = pore); its shares name the runner-up for the judge
+    from surfaces.bend import _bend_kind, bend_kind_shares
+
+    base = {"cnr": 12.0, "edge_sharpness": 3.0, "tint": 0.0, "solidity": 0.95, "touches_edge": False}
+    cases = {
+        "round": dict(base, aspect=1.1, area_mm2=0.8, greatest_mm=1.0),
+        "thin": dict(base, aspect=4.0, area_mm2=0.5, greatest_mm=3.0),
+        "tinted": dict(base, aspect=1.4, area_mm2=1.5, greatest_mm=1.6, tint=5.0, solidity=0.8),
+        "in between": dict(base, aspect=2.1, area_mm2=0.9, greatest_mm=1.5),
+    }
+    for name, f in cases.items():
+        kind = _bend_kind(f)[0]
+        sh = bend_kind_shares(f, kind)
+        assert set(sh) == {"crack", "inclusion", "pore"} and sum(sh.values()) == pytest.approx(1.0, abs=1e-3), name
+        assert max(sh, key=sh.get) == kind, name
+    assert _bend_kind(cases["round"])[0] == "pore" and _bend_kind(cases["thin"])[0] == "crack"
+    assert _bend_kind(cases["tinted"])[0] == "inclusion"
+    # an opening on the crack/pore threshold is not called either with certainty
+    sh = bend_kind_shares(cases["in between"], _bend_kind(cases["in between"])[0])
+    assert sorted(sh.values())[-2] >= 0.2
