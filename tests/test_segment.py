@@ -257,3 +257,20 @@ def test_smooth_rim_along_the_edge_is_not_unfused_but_root_bands_are(seed, rim_m
         assert abs(d.features["greatest_mm"] - (x1 - x0)) <= greatest_tolerance_mm(x1 - x0), name
         # width: the 0.8 px blur and the half-contrast outline move each side by under a pixel or two
         assert abs(d.features["width_mm"] - width) <= 0.25, (name, d.features["width_mm"], width)
+
+
+def test_label_medians_equal_scipys():
+    # reference library: scipy.ndimage.median on the same labels and values
+    from scipy import ndimage as ndi
+
+    from surfaces.segment import label_medians
+
+    rng = np.random.default_rng(5)
+    lab, n = ndi.label(rng.random((300, 260)) > 0.55)
+    for values in (rng.random((300, 260)).astype(np.float32), rng.integers(0, 9, (300, 260)).astype(np.float64)):
+        want = np.asarray(ndi.median(values, lab, np.arange(1, n + 1)), float)
+        np.testing.assert_allclose(label_medians(values, lab, n), want, rtol=0, atol=1e-6)
+    one = np.zeros((50, 50), np.int32)
+    one[10:14, 20:26] = 1  # a single small region in a large array
+    vals = rng.random((50, 50))
+    assert label_medians(vals, one, 1)[0] == pytest.approx(float(np.median(vals[one == 1])))
