@@ -45,6 +45,11 @@ Every rule returns ``pass``, ``fail`` or ``review`` and the verdict is
   ``accept`` becomes ``review`` with a reason naming the detection and the
   rule.  A reject stays a reject; a confirmed or edited row is taken as the
   reviewer says.
+* **Cut by a face end.**  An unreviewed imperfection that some rule judges
+  and that lies within ``END_CUT_MM`` of an end of the face found may go on
+  past that end (a cavity at the end of a break can end the face the tool
+  finds): its full size is not known, so a coupon that is not rejected
+  anyway goes to ``review`` naming it.
 * **Thresholds** (smallest size that counts, corner sizes, band limits) are
   also compared with ``U``: an imperfection within its uncertainty of a
   threshold is counted when asking "could this fail?" and left out when
@@ -1674,6 +1679,15 @@ def judge(table: pd.DataFrame, *, face: dict, nominal: dict, limit_set: LimitSet
         reasons = [f"accept: all {len(limit_set.rules)} rules of '{limit_set.name}' pass for "
                    f"{len(items)} imperfection(s) judged ({dismissed} dismissed)"]
     if check_kinds and result != "reject":
+        cut = _cut_by_end(items, limit_set)
+        if cut:
+            result, reasons = "review", [r for r, _ in cut] + (reasons if result == "review" else [])
+            details.append({
+                "rule": "face-end", "check": "face-end", "kinds": [], "status": "review", "outcome": "review",
+                "limit": f"imperfection within {END_CUT_MM:g} mm of a face end", "limit_mm": None, "value": None,
+                "u_expanded": None, "items": [i for _, i in cut], "clause": "", "confidence": "",
+                "messages": [r for r, _ in cut],
+            })
         doubts, ids = _kind_doubts(table, items, face=face, nominal=nominal, limit_set=limit_set, test=test,
                                    accepted=result == "accept")
         if doubts:
@@ -1684,6 +1698,31 @@ def judge(table: pd.DataFrame, *, face: dict, nominal: dict, limit_set: LimitSet
                 "u_expanded": None, "items": ids, "clause": "", "confidence": "", "messages": doubts,
             })
     return Verdict(result=result, reasons=tuple(reasons + notes), details=tuple(details))
+
+
+#: An unreviewed imperfection this close to an end of the face found may be cut
+#: by that end: a dark cavity at the end of a fracture face stops the texture the
+#: face finder follows, so the face can end inside it, and then only part of the
+#: imperfection is measured (the segmenter leaves the outermost 0.25 mm of the
+#: face to the face's own edge, so a cut one stops about there).
+END_CUT_MM = 0.4
+
+
+def _cut_by_end(items: list, limit_set: LimitSet) -> list[tuple[str, int]]:
+    """Reasons to review: unreviewed imperfections some rule judges that reach an end of the face."""
+    judged = {k for r in limit_set.rules for k in r.kinds}
+    out = []
+    for it in items:
+        if it.reviewed or (judged and "any" not in judged and it.kind not in judged):
+            continue
+        d = _num(it.row.get("dist_end_mm"))
+        if math.isfinite(d) and d <= END_CUT_MM:
+            g = _num(it.row.get("greatest_mm"))
+            size = f" ({g:.2f} mm measured)" if math.isfinite(g) else ""
+            out.append((f"face-end: {it.label()}{size} reaches an end of the face found ({d:.2f} mm from it): "
+                        "it may go on past the outline, so its full size is not known; check that end of the face "
+                        "on the overlay (or give --roi), then confirm or correct it", it.id))
+    return out
 
 
 #: A detection whose second most probable kind has at least this probability is

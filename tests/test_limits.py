@@ -38,7 +38,11 @@ CONTRACT_COLUMNS = (
 def imp(ident: int, kind: str, greatest: float, *, u: float = 0.0, conf: float = 0.9,
         along: float | None = None, across: float | None = None, width: float | None = None,
         area: float | None = None, x0: float | None = None, **extra) -> dict:
-    """One table row; unspecified sizes follow from ``greatest`` (an ellipse-like blob)."""
+    """One table row; unspecified sizes follow from ``greatest`` (an ellipse-like blob).
+
+    The row lies well inside the face (5 mm from its ends) unless ``dist_end_mm``
+    is given: the rules under test here do not depend on where the face ends.
+    """
     along = greatest if along is None else along
     width = greatest / 2 if width is None else width
     across = width if across is None else across
@@ -53,7 +57,7 @@ def imp(ident: int, kind: str, greatest: float, *, u: float = 0.0, conf: float =
         "area_mm2": area, "area_u_mm2": u * greatest,
         "x0_mm": x0, "x1_mm": x0 + along, "y0_mm": 2.0, "y1_mm": 2.0 + across,
         "cx_mm": x0 + along / 2, "cy_mm": 2.0 + across / 2,
-        "dist_root_mm": 2.0, "dist_end_mm": min(x0, 150 - x0 - along), "dist_edge_mm": 2.0,
+        "dist_root_mm": 2.0, "dist_end_mm": 5.0, "dist_edge_mm": 2.0,
         "at_edge": False, "at_root": False, "cause": "",
         "centroid_px": [0, 0], "bbox_px": [0, 0, 1, 1], "outline_px": [], "source": "auto",
         "status": "auto",
@@ -602,3 +606,21 @@ def test_kind_doubt_below_the_threshold_a_reviewed_kind_and_a_reject_stay():
     assert v.result == "reject"
     # the other reading that passes too changes nothing
     assert verdict(ls, imp(1, "pore", 0.5, kind_alt="inclusion", kind_alt_p=0.45)).result == "accept"
+
+
+# --------------------------------------------------------------------------- cut by a face end
+
+
+def test_an_imperfection_at_a_face_end_goes_to_review_unless_reviewed():
+    # a pore well under the 3 mm limit, but touching the end of the face found: the face
+    # may end inside it (common practice: a cavity at the end of a break stops the texture)
+    ls = one_rule(**MAX3)
+    at_end = imp(1, "pore", 1.0, x0=0.2, dist_end_mm=0.2)
+    v = verdict(ls, at_end)
+    assert v.result == "review" and v.reasons[0].startswith("face-end: pore 1 (1.00 mm measured)")
+    assert any(d["rule"] == "face-end" and d["items"] == [1] for d in v.details)
+    assert verdict(ls, imp(1, "pore", 1.0, x0=5.0)).result == "accept"  # away from the ends
+    assert verdict(ls, dict(at_end, status="confirmed")).result == "accept"  # a person looked
+    # a kind no rule judges does not hold the coupon up, and a reject stays a reject
+    assert verdict(ls, imp(1, "crack", 1.0, x0=0.2, dist_end_mm=0.2)).result == "accept"
+    assert verdict(ls, at_end, imp(2, "pore", 4.0)).result == "reject"
