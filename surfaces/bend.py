@@ -128,6 +128,8 @@ END_ZONE_MM = 2.5  # an opening wholly this close to an end, touching the ignore
 BACKGROUND_MM = 6.0  # window of the local background median
 SCRATCH_ALIGN_DEG = 12.0
 SOFT_EDGE_PER_MM = 2.0  # an opening's walls go from dark to bright within about 0.5 mm
+LOCAL_GRAIN_MM = 3.0  # the neighbourhood (beyond the opening's box) whose texture grain it must stand out of
+LOCAL_MIN_CNR = 6.5  # ... by this many of that grain's spreads
 MIN_CNR = 4.5  # an opening's depth must stand this many texture spreads out of the surface
 SCRATCH_MAX_CONTRAST = 0.3  # grinding marks are shallow: less than 30 % darker than the surface
 MERGE_GAP_MM = 0.4  # pieces of one opening closer than this are one opening
@@ -1285,6 +1287,12 @@ def find_openings(
         # grinding / machining marks: long, shallow, parallel to the face's line family
         if f["cnr"] < MIN_CNR:
             continue  # no deeper than the texture itself
+        # ... nor than the texture of its own neighbourhood: the grain of a stretched surface is
+        # coarser in places (orange peel, the shaded slopes towards the ends), and a dip of that
+        # grain's depth there is no opening, however smooth the rest of the coupon is
+        f["local_cnr"] = f["contrast"] / max(_local_grain(rel, cand, seed_mask, f, mm=mm), 1e-4)
+        if f["local_cnr"] < LOCAL_MIN_CNR:
+            continue
         if f["aspect"] < 2.6 and f["edge_sharpness"] < SOFT_EDGE_PER_MM and f["cnr"] < 10:
             continue  # a soft dark patch (shading, a smudge) rather than an opening with walls
         aligned = _angle_diff(f["angle_rad"], theta_lines) < math.radians(SCRATCH_ALIGN_DEG)
@@ -1348,6 +1356,32 @@ def _line_evidence(rel: np.ndarray, valid: np.ndarray, *, px_per_mm: float, reso
     sp = np.asarray(spreads)
     k = int(np.argmax(sp))
     return mask, math.pi * k / 12, float((sp[k] - np.median(sp)) / sp[k])
+
+
+def _local_grain(rel: np.ndarray, cand: np.ndarray, valid: np.ndarray, f: dict, *, mm: float) -> float:
+    """Texture grain around one opening: robust spread of the relative darkness of the surface near it.
+
+    The neighbourhood is the opening's box widened by :data:`LOCAL_GRAIN_MM`,
+    without any candidate openings and outside ``valid``; its four halves (before,
+    after, above, below the opening's centre) are taken separately and the
+    coarsest counts, so an opening at the border of a coarse stretch is judged
+    by the coarse side it sits in rather than by the smooth surface beyond.
+    Spreads are normal-scaled median absolute deviations.
+    """
+    h, w = rel.shape
+    r = int(round(LOCAL_GRAIN_MM * mm))
+    c0, c1 = max(0, int(f["x0_mm"] * mm) - r), min(w, int(math.ceil(f["x1_mm"] * mm)) + r + 1)
+    r0, r1 = max(0, int(f["y0_mm"] * mm) - r), min(h, int(math.ceil(f["y1_mm"] * mm)) + r + 1)
+    keep = valid[r0:r1, c0:c1] & ~cand[r0:r1, c0:c1]
+    win = rel[r0:r1, c0:c1]
+    cc = int(round(0.5 * (f["x0_mm"] + f["x1_mm"]) * mm)) - c0
+    cr = int(round(0.5 * (f["y0_mm"] + f["y1_mm"]) * mm)) - r0
+    spreads = []
+    for part in (np.s_[:, :cc], np.s_[:, cc:], np.s_[:cr, :], np.s_[cr:, :]):
+        vals = win[part][keep[part]]
+        if vals.size >= 50:
+            spreads.append(_robust_sigma(vals))
+    return max(spreads) if spreads else _robust_sigma(rel[valid])
 
 
 def _robust_sigma(x: np.ndarray) -> float:
