@@ -45,7 +45,7 @@ from scipy import ndimage as ndi
 
 from .face import face_to_photo
 from .model import Calibration, Face
-from .segment import Detection
+from .segment import Detection, dark_piece, grow_by_reach, ring_around, trace_sigma_px
 from .shapes import polygon_features
 
 EDGE_BAND_MM = 0.5  # "starts at an edge / touches the root" tolerance
@@ -106,15 +106,12 @@ def level_spread(gray: np.ndarray, contour: np.ndarray, *, px_per_mm: float, pho
     if C1 - C0 < 3 or R1 - R0 < 3:
         return None
     g = np.ascontiguousarray(gray[R0:R1, C0:C1], dtype=np.float32)
-    # the same smoothing the segmenter traces on: about 0.7 photo pixel
-    gs = cv2.GaussianBlur(g, (0, 0), max(0.05, 0.7 / photo_px_per_mm) * mm)
+    gs = cv2.GaussianBlur(g, (0, 0), trace_sigma_px(mm, photo_px_per_mm))  # as the segmenter traces
     reg = np.zeros(g.shape, np.uint8)
     cv2.fillPoly(reg, [np.round((c - [C0, R0]) * 16).astype(np.int32)], 1, shift=4)
     if int(reg.sum()) < 4:
         return None
-    rw = max(2, int(round(0.3 * mm)))
-    ring = (cv2.dilate(reg, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * rw + 1, 2 * rw + 1))) > 0) & ~(
-        cv2.dilate(reg, np.ones((3, 3), np.uint8)) > 0)
+    ring = ring_around(reg, mm=mm)
     if int(ring.sum()) < 8:
         return None
     inside = reg > 0
@@ -124,16 +121,13 @@ def level_spread(gray: np.ndarray, contour: np.ndarray, *, px_per_mm: float, pho
     if contrast <= 1.0:
         return None
     darkest = inside & (gs <= np.percentile(vals, 20))
-    reach = max(2, int(round(max(1.5 * mm / photo_px_per_mm, 0.1 * mm))))
-    near = cv2.dilate(reg, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * reach + 1, 2 * reach + 1))) > 0
+    near = grow_by_reach(reg, mm=mm, photo_mm=photo_px_per_mm)
     out = {"greatest_mm": [], "area_mm2": []}
     for f in LEVEL_FRACS:
-        lab, _ = ndi.label((gs < b - f * contrast) & near, structure=np.ones((3, 3)))
-        keep = np.unique(lab[darkest])
-        keep = keep[keep > 0]
-        if keep.size == 0:
+        piece = dark_piece(gs, b - f * contrast, near, darkest)
+        if piece is None:
             return None
-        m = ndi.binary_fill_holes(np.isin(lab, keep)).astype(np.uint8)
+        m = ndi.binary_fill_holes(piece).astype(np.uint8)
         cs, _ = cv2.findContours(m, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_NONE)
         pts = np.vstack([x.reshape(-1, 2) for x in cs]).astype(np.float64)
         out["greatest_mm"].append(polygon_features(pts, px_per_mm=mm)["greatest_mm"] + 1.0 / mm)  # pixel centres -> edges

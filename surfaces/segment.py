@@ -178,7 +178,7 @@ class _Maps:
 def _maps(rgb, mask, mm, photo_mm) -> _Maps:
     g = _gray(rgb)
     resolve = 1.0 / photo_mm  # one photo pixel, in mm
-    gs = cv2.GaussianBlur(g, (0, 0), max(0.05, 0.7 * resolve) * mm)
+    gs = cv2.GaussianBlur(g, (0, 0), trace_sigma_px(mm, photo_mm))
     bg = background(g, px_per_mm=mm)
     rel = gs / np.maximum(bg, 1.0)
     grain_mm = max(0.08, 1.2 * resolve)
@@ -499,6 +499,32 @@ def _outline(reg: np.ndarray, sl) -> np.ndarray | None:
     return cont if len(cont) >= 3 else None
 
 
+def trace_sigma_px(mm: float, photo_mm: float) -> float:
+    """Blur (face pixels) of the grey image dark outlines are traced on: about 0.7 photo pixel."""
+    return max(0.05, 0.7 * (1.0 / photo_mm)) * mm
+
+
+def ring_around(seed_u8: np.ndarray, *, mm: float) -> np.ndarray:
+    """The band 0.3 mm wide around a region (uint8 mask), its own border pixels left out."""
+    rw = max(2, int(round(0.3 * mm)))
+    disc = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * rw + 1, 2 * rw + 1))
+    return (cv2.dilate(seed_u8, disc) > 0) & ~(cv2.dilate(seed_u8, np.ones((3, 3), np.uint8)) > 0)
+
+
+def grow_by_reach(seed_u8: np.ndarray, *, mm: float, photo_mm: float) -> np.ndarray:
+    """Where a re-traced outline may go: within 1.5 photo pixels (at least 0.1 mm) of the region."""
+    reach = max(2, int(round(max(1.5 * (mm / photo_mm), 0.1 * mm))))
+    return cv2.dilate(seed_u8, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * reach + 1, 2 * reach + 1))) > 0
+
+
+def dark_piece(patch: np.ndarray, level: float, near: np.ndarray, darkest: np.ndarray) -> np.ndarray | None:
+    """The connected parts of ``patch < level`` within ``near`` that hold any ``darkest`` pixel, or ``None``."""
+    rl, _ = ndi.label((patch < level) & near, structure=np.ones((3, 3)))
+    keep = np.unique(rl[darkest])
+    keep = keep[keep > 0]
+    return np.isin(rl, keep) if keep.size else None
+
+
 def _trace_dark(i, sl, lab, M: _Maps, *, speck_px: float, max_parts: int = 6) -> list[Detection]:
     """Outlines at half contrast of the dark parts of one dark region.
 
@@ -520,16 +546,11 @@ def _trace_dark(i, sl, lab, M: _Maps, *, speck_px: float, max_parts: int = 6) ->
     patch = M.gs[R0:R1, C0:C1]
     pmask = M.mask[R0:R1, C0:C1]
     strong = seed_all & (M.rel[R0:R1, C0:C1] < M.seed_level)
-    rw = max(2, int(round(0.3 * mm)))
     photo_px = mm / M.photo_mm  # one photo pixel in face pixels
-    reach = max(2, int(round(max(1.5 * photo_px, 0.1 * mm))))
-    disc = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * rw + 1, 2 * rw + 1))
     seed_u8 = seed_all.astype(np.uint8)
-    ring = (cv2.dilate(seed_u8, disc) > 0) & ~(cv2.dilate(seed_u8, np.ones((3, 3), np.uint8)) > 0)
-    ring &= (labp == 0) & pmask
+    ring = ring_around(seed_u8, mm=mm) & (labp == 0) & pmask
     b = float(np.median(patch[ring])) if ring.sum() >= 8 else float(np.median(M.bg[R0:R1, C0:C1][seed_all]))
-    reach_k = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * reach + 1, 2 * reach + 1))
-    near_seed = cv2.dilate(seed_u8, reach_k) > 0
+    near_seed = grow_by_reach(seed_u8, mm=mm, photo_mm=M.photo_mm) & pmask
     out = []
     left = strong.copy()
     for _ in range(max_parts):
@@ -541,15 +562,10 @@ def _trace_dark(i, sl, lab, M: _Maps, *, speck_px: float, max_parts: int = 6) ->
         if contrast <= 1.0:
             break
         level = b - 0.5 * contrast
-        below = (patch < level) & near_seed & pmask
-        rl, _ = ndi.label(below, structure=np.ones((3, 3)))
         # the piece holding the darkest pixels of what is left of the seed
-        darkest = left & (patch <= np.percentile(vals, 20))
-        keep = np.unique(rl[darkest])
-        keep = keep[keep > 0]
-        if keep.size == 0:
+        region = dark_piece(patch, level, near_seed, left & (patch <= np.percentile(vals, 20)))
+        if region is None:
             break
-        region = np.isin(rl, keep)
         left &= ~region  # what this part took (before opening) is done with
         region = _open_at(region, photo_px)
         region = ndi.binary_fill_holes(region) & pmask
