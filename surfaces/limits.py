@@ -1160,8 +1160,12 @@ def _table_items(table: pd.DataFrame, ls: LimitSet) -> tuple[list[_Item], int, l
     return items, dismissed, notes
 
 
+def _takes_kind(rule: Rule, kind: str) -> bool:
+    return "any" in rule.kinds or kind in rule.kinds
+
+
 def _matches(rule: Rule, item: _Item) -> bool:
-    if "any" not in rule.kinds and item.kind not in rule.kinds:
+    if not _takes_kind(rule, item.kind):
         return False
     for key, want in rule.where:
         if key == "at_root":
@@ -1679,24 +1683,23 @@ def judge(table: pd.DataFrame, *, face: dict, nominal: dict, limit_set: LimitSet
         reasons = [f"accept: all {len(limit_set.rules)} rules of '{limit_set.name}' pass for "
                    f"{len(items)} imperfection(s) judged ({dismissed} dismissed)"]
     if check_kinds and result != "reject":
+        def doubt(rule_id: str, limit: str, messages: list[str], ids: list[int]) -> None:
+            # a doubt the rules cannot see: the coupon goes to review, its reasons first
+            nonlocal result, reasons
+            if messages:
+                result, reasons = "review", messages + (reasons if result == "review" else [])
+                details.append({
+                    "rule": rule_id, "check": rule_id, "kinds": [], "status": "review", "outcome": "review",
+                    "limit": limit, "limit_mm": None, "value": None, "u_expanded": None, "items": ids,
+                    "clause": "", "confidence": "", "messages": messages,
+                })
+
         cut = _cut_by_end(items, limit_set)
-        if cut:
-            result, reasons = "review", [r for r, _ in cut] + (reasons if result == "review" else [])
-            details.append({
-                "rule": "face-end", "check": "face-end", "kinds": [], "status": "review", "outcome": "review",
-                "limit": f"imperfection within {END_CUT_MM:g} mm of a face end", "limit_mm": None, "value": None,
-                "u_expanded": None, "items": [i for _, i in cut], "clause": "", "confidence": "",
-                "messages": [r for r, _ in cut],
-            })
-        doubts, ids = _kind_doubts(table, items, face=face, nominal=nominal, limit_set=limit_set, test=test,
-                                   accepted=result == "accept")
-        if doubts:
-            result, reasons = "review", doubts + (reasons if result == "review" else [])
-            details.append({
-                "rule": "kind-doubt", "check": "kind-doubt", "kinds": [], "status": "review", "outcome": "review",
-                "limit": f"runner-up kind probability >= {KIND_DOUBT_P:g}", "limit_mm": None, "value": None,
-                "u_expanded": None, "items": ids, "clause": "", "confidence": "", "messages": doubts,
-            })
+        doubt("face-end", f"imperfection within {END_CUT_MM:g} mm of a face end", [r for r, _ in cut],
+              [i for _, i in cut])
+        doubt("kind-doubt", f"runner-up kind probability >= {KIND_DOUBT_P:g}",
+              *_kind_doubts(table, items, face=face, nominal=nominal, limit_set=limit_set, test=test,
+                            accepted=result == "accept"))
     return Verdict(result=result, reasons=tuple(reasons + notes), details=tuple(details))
 
 
@@ -1710,10 +1713,9 @@ END_CUT_MM = 0.4
 
 def _cut_by_end(items: list, limit_set: LimitSet) -> list[tuple[str, int]]:
     """Reasons to review: unreviewed imperfections some rule judges that reach an end of the face."""
-    judged = {k for r in limit_set.rules for k in r.kinds}
     out = []
     for it in items:
-        if it.reviewed or (judged and "any" not in judged and it.kind not in judged):
+        if it.reviewed or not any(_takes_kind(r, it.kind) for r in limit_set.rules):
             continue
         d = _num(it.row.get("dist_end_mm"))
         if math.isfinite(d) and d <= END_CUT_MM:
