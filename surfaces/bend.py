@@ -1502,6 +1502,13 @@ def _sigmoid(x: float) -> float:
     return 1.0 / (1.0 + math.exp(-max(min(x, 50.0), -50.0)))
 
 
+def _thickness_and_slag(f: dict) -> tuple[float, float]:
+    """An opening's mean thickness (area / greatest, mm) and how slag-like it is (0..1: tint, irregular walls)."""
+    thick = f["area_mm2"] / max(f["greatest_mm"], 1e-6)
+    slag = _sigmoid((f.get("tint", 0.0) - 3.0) / 1.0) * 0.6 + _sigmoid((0.86 - f["solidity"]) / 0.04) * 0.4
+    return thick, slag
+
+
 def bend_kind_shares(f: dict, kind: str) -> dict:
     """How much an opening looks like each kind: shares summing to 1, the chosen ``kind`` largest.
 
@@ -1512,8 +1519,7 @@ def bend_kind_shares(f: dict, kind: str) -> dict:
     probabilities fitted to data.
     """
     a = float(f["aspect"])
-    thick = f["area_mm2"] / max(f["greatest_mm"], 1e-6)
-    slag = _sigmoid((f.get("tint", 0.0) - 3.0) / 1.0) * 0.6 + _sigmoid((0.86 - f["solidity"]) / 0.04) * 0.4
+    thick, slag = _thickness_and_slag(f)
     crack = max(_sigmoid((a - 2.2) / 0.4), _sigmoid((0.3 - thick) / 0.05) * _sigmoid((a - 1.8) / 0.3))
     raw = {"crack": crack, "inclusion": (1.0 - crack) * slag, "pore": (1.0 - crack) * (1.0 - slag)}
     top = max(v for k, v in raw.items() if k != kind)
@@ -1533,9 +1539,8 @@ def _bend_kind(f: dict) -> tuple[str, str, float]:
     sharpness of the opening's walls.
     """
     real = _sigmoid((f["cnr"] - 6.0) / 1.2) * _sigmoid((f["edge_sharpness"] - 1.0) / 0.4)
-    thick = f["area_mm2"] / max(f["greatest_mm"], 1e-6)
+    thick, slag = _thickness_and_slag(f)
     a = f["aspect"]
-    slag = _sigmoid((f.get("tint", 0.0) - 3.0) / 1.0) * 0.6 + _sigmoid((0.86 - f["solidity"]) / 0.04) * 0.4
     crack_shape = a >= 2.6 or (thick < 0.3 and a >= 1.8) or (f.get("touches_edge") and a >= 1.6)
     if crack_shape and not (slag >= 0.5 and a < 2.6):
         shape = _sigmoid((a - 2.2) / 0.6)
