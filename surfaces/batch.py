@@ -39,7 +39,7 @@ import multiprocessing as mp
 import pandas as pd
 
 from .atomic import OutputExistsError, write_bytes_atomic, write_text_atomic
-from .model import Settings, SurfacesError
+from .model import TEST_TYPES, Settings, SurfacesError
 from .records import Store, sha256_file
 
 __all__ = [
@@ -58,7 +58,6 @@ MANIFEST_COLUMNS: tuple[str, ...] = (
     "thickness_mm", "throat_mm", "wall_mm", "length_mm", "test", "limits", "date", "note",
 )
 _NOMINAL_COLUMNS = ("thickness_mm", "throat_mm", "wall_mm", "length_mm")
-_TESTS = ("fillet-break", "nick-break", "bend")
 SUMMARY_COLUMNS: tuple[str, ...] = (
     "photo", "coupon_id", "welder", "status", "result", "first_reason", "n_imperfections",
     "assessment_id", "photo_sha256", "error",
@@ -196,8 +195,8 @@ def read_manifest(path: str | os.PathLike, *, folder: str | os.PathLike | None =
             if v is not None:
                 coupon[c] = v
         if row.get("test"):
-            if row["test"] not in _TESTS:
-                raise ManifestError(f"{where}: test {row['test']!r} is not one of {', '.join(_TESTS)}")
+            if row["test"] not in TEST_TYPES:
+                raise ManifestError(f"{where}: test {row['test']!r} is not one of {', '.join(TEST_TYPES)}")
             coupon["test"] = row["test"]
         if row.get("date"):
             try:

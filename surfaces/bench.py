@@ -199,10 +199,16 @@ def _worker_main(argv: list[str]) -> int:
     return 0
 
 
-def _run_worker(photo: Path, repeat: int) -> dict:
-    cmd = [sys.executable, "-m", "surfaces.bench", "worker", str(photo), "--repeat", str(repeat)]
+def _child_env() -> dict:
+    """The environment for a child ``python -m surfaces ...``: this checkout first on its path."""
     env = dict(os.environ)
     env["PYTHONPATH"] = str(Path(__file__).resolve().parent.parent) + os.pathsep + env.get("PYTHONPATH", "")
+    return env
+
+
+def _run_worker(photo: Path, repeat: int) -> dict:
+    cmd = [sys.executable, "-m", "surfaces.bench", "worker", str(photo), "--repeat", str(repeat)]
+    env = _child_env()
     r = subprocess.run(cmd, capture_output=True, text=True, env=env)
     if r.returncode != 0:
         tail = (r.stderr.strip().splitlines() or ["no output"])[-1]
@@ -270,8 +276,7 @@ def batch_command(folder: Path, manifest: Path, *, workers: int, workdir: Path) 
     cmd = [sys.executable, "-m", "surfaces", "batch", str(folder), "--test", "fillet-break",
            "--marker-mm", f"{BATCH_MARKER_MM:g}", "--manifest", str(manifest), "--workers", str(workers),
            "--db", str(db), "--summary-csv", str(db.parent / "summary.csv"), "--quiet"]
-    env = dict(os.environ)
-    env["PYTHONPATH"] = str(Path(__file__).resolve().parent.parent) + os.pathsep + env.get("PYTHONPATH", "")
+    env = _child_env()
     t0 = time.perf_counter()
     r = subprocess.run(cmd, capture_output=True, text=True, env=env)
     dt = time.perf_counter() - t0
