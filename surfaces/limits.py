@@ -45,6 +45,15 @@ Every rule returns ``pass``, ``fail`` or ``review`` and the verdict is
   ``accept`` becomes ``review`` with a reason naming the detection and the
   rule.  A reject stays a reject; a confirmed or edited row is taken as the
   reviewer says.
+* **Root side not known.**  Rules may judge an unfused region differently
+  at the root (``where = { at_root = true }``, incomplete root penetration)
+  and away from it (lack of fusion).  The face finder does not yet tell the
+  root edge from the other long edge, so a measured row without
+  ``dist_root_mm`` has ``at_root`` only as "touches a long edge"; a band
+  along the root that the face outline runs past reads as "not at the root".
+  Each such unreviewed detection is judged once more with ``at_root`` the
+  other way, and a worse verdict sends an ``accept`` to ``review`` (as for a
+  doubtful kind).
 * **Cut by a face end.**  An unreviewed imperfection that some rule judges
   and that lies within ``END_CUT_MM`` of an end of the face found may go on
   past that end (a cavity at the end of a break can end the face the tool
@@ -1700,6 +1709,9 @@ def judge(table: pd.DataFrame, *, face: dict, nominal: dict, limit_set: LimitSet
         doubt("kind-doubt", f"runner-up kind probability >= {KIND_DOUBT_P:g}",
               *_kind_doubts(table, items, face=face, nominal=nominal, limit_set=limit_set, test=test,
                             accepted=result == "accept"))
+        doubt("root-doubt", "root side of the face not known",
+              *_root_doubts(table, items, face=face, nominal=nominal, limit_set=limit_set, test=test,
+                            accepted=result == "accept"))
     return Verdict(result=result, reasons=tuple(reasons + notes), details=tuple(details))
 
 
@@ -1755,6 +1767,54 @@ def _kind_doubts(table: pd.DataFrame, items: list, *, face, nominal, limit_set: 
             out.append(f"kind-doubt: imperfection {it.id} was called {it.kind}{conf} but may be {alt} "
                        f"(p {p:.2f}); judged as {alt} the coupon would be {v2.result} ({first}): "
                        "confirm or correct its kind")
+            ids.append(it.id)
+    return out, ids
+
+
+def _root_unknown(row: dict) -> bool:
+    """True when the row's ``at_root`` was not measured from a known root edge.
+
+    :mod:`surfaces.measure` gives ``dist_root_mm`` only when the face's root
+    side is known; without it ``at_root`` only says "touches a long edge",
+    which misses a band along the root that the face outline runs past.
+    """
+    if not math.isfinite(_num(row.get("dist_root_mm"))):
+        return "dist_edge_mm" in row or "dist_root_mm" in row  # a measured row; a bare table is taken as given
+    return False
+
+
+def _root_doubts(table: pd.DataFrame, items: list, *, face, nominal, limit_set: LimitSet, test: str,
+                 accepted: bool) -> tuple[list[str], list[int]]:
+    """Reasons to review: unreviewed detections whose place (at the root or not) is a guess and decides.
+
+    The set's rules that ask ``where = { at_root = ... }`` judge a region
+    differently at the root (incomplete root penetration) and away from it
+    (lack of fusion).  When the root side of the face is not known, each such
+    detection is judged again with ``at_root`` the other way; a verdict that
+    would then be worse sends the coupon to review, like :func:`_kind_doubts`.
+    """
+    if "id" not in table.columns or not any(k == "at_root" for r in limit_set.rules for k, _ in r.where):
+        return [], []
+    worse = ("reject", "review") if accepted else ("reject",)
+    out, ids = [], []
+    ident = pd.to_numeric(table["id"], errors="coerce")
+    for it in items:
+        if it.reviewed or not _root_unknown(it.row):
+            continue
+        if not any(_takes_kind(r, it.kind) and any(k == "at_root" for k, _ in r.where) for r in limit_set.rules):
+            continue
+        was = bool(_flag(it.row.get("at_root")))
+        t2 = table.copy()
+        t2["at_root"] = t2["at_root"].astype(object) if "at_root" in t2.columns else None
+        t2.loc[ident == it.id, "at_root"] = not was
+        v2 = judge(t2, face=face, nominal=nominal, limit_set=limit_set, test=test, check_kinds=False)
+        if v2.result in worse:
+            first = next((r for r in v2.reasons if not r.startswith("note")), v2.reasons[0])
+            place = "away from the root" if not was else "at the root"
+            other = "at the root" if not was else "away from it"
+            out.append(f"root-doubt: {it.label()} was judged {place}, but the root side of the face is not known; "
+                       f"judged {other} the coupon would be {v2.result} ({first}): check where the root is on "
+                       "the overlay, then confirm or correct it")
             ids.append(it.id)
     return out, ids
 

@@ -608,6 +608,55 @@ def test_kind_doubt_below_the_threshold_a_reviewed_kind_and_a_reject_stay():
     assert verdict(ls, imp(1, "pore", 0.5, kind_alt="inclusion", kind_alt_p=0.45)).result == "accept"
 
 
+# --------------------------------------------------------------------------- root side not known
+
+
+def _root_or_not() -> L.LimitSet:
+    # ISO 5817 shape (nos. 402 and 401, values from memory, see the preset): an unfused region
+    # at the root may be 0.2 x throat across, elsewhere 0.4 x throat
+    data = {"schema": "surfaces.limits/1", "name": "t", "tests": ["fillet-break"],
+            "rule": [{"id": "root", "check": "max_size", "kinds": ["unfused"], "where": {"at_root": True},
+                      "measure": "across", "max_fraction": 0.2, "of": "throat"},
+                     {"id": "elsewhere", "check": "max_size", "kinds": ["unfused"], "where": {"at_root": False},
+                      "measure": "across", "max_fraction": 0.4, "of": "throat"}]}
+    return L.parse_limit_set(tomli_w.dumps(data), origin="t.toml")
+
+
+def test_an_unfused_band_that_may_be_at_an_unknown_root_goes_to_review():
+    # analytic: throat 7.3 mm -> 1.46 mm at the root, 2.92 mm elsewhere; a 2.0 mm band passes
+    # only if it is not at the root, and the root side of the face is not known (no dist_root_mm)
+    ls, nom = _root_or_not(), {"throat_mm": 7.3}
+    band = imp(1, "unfused", 12.0, across=2.0, width=2.0, dist_root_mm=float("nan"), dist_edge_mm=0.6)
+    v = verdict(ls, band, nominal=nom)
+    assert v.result == "review" and v.reasons[0].startswith("root-doubt: unfused 1 was judged away from the root")
+    assert "reject" in v.reasons[0] and any(d["rule"] == "root-doubt" and d["items"] == [1] for d in v.details)
+    # the root side known (the band is 2 mm from it): judged as it is, no doubt
+    assert verdict(ls, dict(band, dist_root_mm=2.0), nominal=nom).result == "accept"
+    # a person looked at it, or it fails elsewhere too, or passes at the root too: nothing to doubt
+    assert verdict(ls, dict(band, status="confirmed"), nominal=nom).result == "accept"
+    assert verdict(ls, dict(band, across_mm=3.5), nominal=nom).result == "reject"
+    assert verdict(ls, dict(band, across_mm=1.0), nominal=nom).result == "accept"
+    # a set whose rules do not ask where the root is is not held up
+    assert verdict(one_rule(check="max_size", kinds=["unfused"], measure="across", max="4 mm"), band,
+                   nominal=nom).result == "accept"
+
+
+def test_the_root_doubt_works_both_ways():
+    # judged at the root (touching a long edge, side unknown) and failing there, it stays a reject;
+    # judged at the root and passing, the other reading (a stricter "elsewhere" rule) sends it to review
+    ls = _root_or_not()
+    at_edge = imp(1, "unfused", 12.0, across=2.0, width=2.0, dist_root_mm=float("nan"), dist_edge_mm=0.1,
+                  at_root=True)
+    assert verdict(ls, at_edge, nominal={"throat_mm": 7.3}).result == "reject"
+    strict_elsewhere = {"schema": "surfaces.limits/1", "name": "t", "tests": ["fillet-break"],
+                        "rule": [{"id": "root", "check": "max_size", "kinds": ["unfused"], "where": {"at_root": True},
+                                  "measure": "across", "max": "3 mm"},
+                                 {"id": "elsewhere", "check": "not_permitted", "kinds": ["unfused"],
+                                  "where": {"at_root": False}}]}
+    v = verdict(L.parse_limit_set(tomli_w.dumps(strict_elsewhere), origin="t.toml"), at_edge)
+    assert v.result == "review" and "judged away from it the coupon would be reject" in v.reasons[0]
+
+
 # --------------------------------------------------------------------------- cut by a face end
 
 
