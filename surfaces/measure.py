@@ -31,6 +31,16 @@ Uncertainty model (1 sigma, documented in the README):
   the greatest dimension is taken as uniformly distributed between them, which
   adds (size at 35 % - size at 65 %) / sqrt(12) to its 1-sigma uncertainty, in
   proportion to every other length and likewise for the area.
+* thin protrusion (pores and slag inclusions): the greatest dimension can be
+  set by a spur a few photo pixels wide, which may be dark grain touching the
+  cavity rather than the cavity.  The region is opened with a disc of
+  ``SPUR_PHOTO_PX`` photo pixels' or ``SPUR_INSCRIBED`` x its inscribed
+  radius, whichever is larger (the scale at which the segmenter itself cuts
+  grain off a cavity); the true value is taken as uniformly distributed
+  between the greatest dimension with and without what the opening cuts off.
+  The value reported is the end of that range with the spur, so this adds
+  (difference) / sqrt(3) (the RMS distance from that end) to its uncertainty;
+  the greatest dimension only: a spur hardly changes width or area.
 * an area carries perimeter x sigma_edge and twice the relative outline term.
 """
 
@@ -135,6 +145,60 @@ def level_spread(gray: np.ndarray, contour: np.ndarray, *, px_per_mm: float, pho
     return out
 
 
+#: radius, in photo pixels, of the disc that cuts thin protrusions off a dark region
+#: (see the module docstring): wider than the blur of one photo pixel, much
+#: narrower than any cavity the photo resolves (RESOLVE_PX)
+SPUR_PHOTO_PX = 1.5
+SPUR_INSCRIBED = 0.35  # ... or a third of the region's inscribed radius, as the segmenter opens it
+
+
+def spur_spread_mm(contour: np.ndarray, *, px_per_mm: float, photo_px_per_mm: float) -> float:
+    """How much the greatest dimension of a region rests on thin protrusions, in mm.
+
+    Parameters
+    ----------
+    contour : (N, 2) ndarray
+        The region's outline (col, row) in face-image pixels.
+    px_per_mm, photo_px_per_mm : float
+        Scales of the face image and of the photo at the face.
+
+    Returns
+    -------
+    float
+        Greatest dimension of the filled outline minus that of the outline
+        opened with a disc of :data:`SPUR_PHOTO_PX` photo pixels or
+        :data:`SPUR_INSCRIBED` x the inscribed radius, whichever is larger
+        (both on the same raster), 0 when the opening would take half the region or more (a
+        region that thin is all "spur": its size is judged as traced).
+    """
+    c = np.asarray(contour, dtype=np.float64).reshape(-1, 2)
+    if len(c) < 3:
+        return 0.0
+    mm = float(px_per_mm)
+    pad = 3
+    C0, R0 = np.floor(c.min(axis=0)).astype(int) - pad
+    w, h = (np.ceil(c.max(axis=0)).astype(int) + pad + 1) - [C0, R0]
+    reg = np.zeros((int(h), int(w)), np.uint8)
+    cv2.fillPoly(reg, [np.round((c - [C0, R0]) * 16).astype(np.int32)], 1, shift=4)
+    n = int(reg.sum())
+    if n < 4:
+        return 0.0
+    inscribed = float(cv2.distanceTransform(reg, cv2.DIST_L2, 5).max())
+    r = max(1, int(round(max(SPUR_PHOTO_PX * mm / float(photo_px_per_mm), SPUR_INSCRIBED * inscribed))))
+    reg = np.pad(reg, r)
+    k = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1))
+    op = cv2.morphologyEx(reg, cv2.MORPH_OPEN, k)
+    if int(op.sum()) < 0.5 * n:
+        return 0.0
+
+    def greatest(m: np.ndarray) -> float:
+        cs, _ = cv2.findContours(m, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_NONE)
+        pts = np.vstack([x.reshape(-1, 2) for x in cs]).astype(np.float64)
+        return polygon_features(pts, px_per_mm=mm)["greatest_mm"]
+
+    return max(0.0, greatest(reg) - greatest(op))
+
+
 def _runner_up(d: Detection) -> dict:
     """The second most probable imperfection kind of a detection and its probability
     (``""`` and NaN when the segmenter gave no class probabilities)."""
@@ -208,7 +272,11 @@ def measure(
         ur = math.hypot(u_scale, extra)
         ur_len = math.hypot(ur, OUTLINE_REL)
 
-        u_level, u_level_area = 0.0, 0.0  # relative to the greatest dimension; mm2
+        u_level, u_level_area, u_spur = 0.0, 0.0, 0.0  # relative to the greatest dimension; mm2; mm
+        if d.kind in LEVEL_KINDS and f["greatest_mm"] > 0 and length_factor is None:
+            # the value reported is the end of the range with the spur, not its middle: the
+            # RMS distance from it to a value uniform over the range is (range) / sqrt(3)
+            u_spur = spur_spread_mm(c, px_per_mm=face.px_per_mm, photo_px_per_mm=photo_px_per_mm) / math.sqrt(3.0)
         if gray is not None and d.kind in LEVEL_KINDS and f["greatest_mm"] > 0:
             ls = level_spread(gray, c, px_per_mm=face.px_per_mm, photo_px_per_mm=photo_px_per_mm)
             if ls is not None:
@@ -240,7 +308,7 @@ def measure(
                 "iso6520": d.iso6520,
                 "confidence": float(d.confidence),
                 "greatest_mm": f["greatest_mm"],
-                "greatest_u_mm": ulen(f["greatest_mm"]),
+                "greatest_u_mm": math.hypot(ulen(f["greatest_mm"]), u_spur),
                 "width_mm": f["width_mm"],
                 "width_u_mm": ulen(f["width_mm"]),
                 "along_mm": f["along_mm"],

@@ -1,8 +1,11 @@
-"""The outline-level term of the size uncertainty (surfaces.measure.level_spread).
+"""The outline-level and thin-protrusion terms of the size uncertainty
+(surfaces.measure.level_spread, spur_spread_mm).
 
 Checked against analytic geometry: a disc of radius R blurred by a Gaussian of
 sigma s crosses the level ``b - f * contrast`` at radius R - s * Phi^-1(f)
-(Phi^-1 from SciPy's ``norm.ppf``), when R is many sigmas.
+(Phi^-1 from SciPy's ``norm.ppf``), when R is many sigmas.  Opening a disc
+with a smaller disc gives the disc back (analytic), so only what sticks out
+of it (a spur of known length) is counted.
 """
 
 from __future__ import annotations
@@ -12,7 +15,7 @@ import numpy as np
 import pytest
 from scipy.stats import norm
 
-from surfaces.measure import LEVEL_FRACS, level_spread
+from surfaces.measure import LEVEL_FRACS, level_spread, spur_spread_mm
 
 MM = 16.0  # face-image pixels per mm
 PHOTO = 1000.0  # photo px/mm: the function's own smoothing is then its 0.05 mm floor
@@ -72,3 +75,61 @@ def test_no_contrast_gives_no_level_term():
     yy, xx = np.mgrid[0:120, 0:120]
     mask = (xx - 60) ** 2 + (yy - 60) ** 2 <= 20**2
     assert level_spread(flat, _outline(mask), px_per_mm=MM, photo_px_per_mm=PHOTO) is None
+
+
+# --------------------------------------------------------------------------- thin protrusions
+
+
+def _disc_with_spur(r_px: float, spur_len_px: float, spur_half_px: int) -> np.ndarray:
+    """A disc centred at (120, 120) with a straight spur of ``2 * spur_half_px + 1`` px width to the right."""
+    yy, xx = np.mgrid[0:240, 0:240]
+    m = (xx - 120.0) ** 2 + (yy - 120.0) ** 2 <= r_px**2
+    if spur_len_px > 0:
+        m |= (abs(yy - 120) <= spur_half_px) & (xx >= 120) & (xx <= 120 + r_px + spur_len_px)
+    return m
+
+
+def test_a_round_outline_has_no_spur_term():
+    # analytic: opening a disc with a smaller disc gives the disc back (up to the raster)
+    for r in (6.0, 15.0, 40.0):
+        assert spur_spread_mm(_outline(_disc_with_spur(r, 0, 0)), px_per_mm=MM, photo_px_per_mm=MM) < 1.5 / MM
+
+
+def test_a_thin_spur_is_measured_as_its_length():
+    # analytic: a disc of radius 30 px with a 3 px wide spur reaching 12 px past its rim: its
+    # greatest dimension runs along the spur, 2R + 12 px; opened, it is the disc's 2R again, so
+    # the spread is the spur's 12 px (within the raster's pixel)
+    c = _outline(_disc_with_spur(30.0, 12.0, 1))
+    got = spur_spread_mm(c, px_per_mm=MM, photo_px_per_mm=MM)
+    assert got == pytest.approx(12.0 / MM, abs=1.5 / MM)
+
+
+def test_a_region_too_thin_to_open_keeps_its_size():
+    # a line 3 px wide is all "spur": the opening would take it whole, so no term
+    yy, xx = np.mgrid[0:60, 0:200]
+    line = (abs(yy - 30) <= 1) & (xx >= 20) & (xx <= 180)
+    assert spur_spread_mm(_outline(line), px_per_mm=MM, photo_px_per_mm=MM) == 0.0
+
+
+def test_the_spur_term_enters_the_greatest_uncertainty_only():
+    # through measure(): the same pore with and without a spur on a flat grey face (no level
+    # term: no contrast); the spur adds (spread) / sqrt(3) to the greatest dimension's
+    # uncertainty (the value reported is the end of the range) and leaves the width's alone
+    from test_bend import _face_and_calib
+
+    from surfaces.measure import measure
+    from surfaces.segment import Detection
+
+    face, calib = _face_and_calib()
+    plain = _outline(_disc_with_spur(30.0, 0, 0)) + [200, 100]
+    spur = _outline(_disc_with_spur(30.0, 12.0, 1)) + [200, 100]
+    dets = [Detection("pore", 0.9, plain, "2011"), Detection("pore", 0.9, spur, "2011")]
+    t = measure(dets, face, calib, photo_px_per_mm=face.px_per_mm)
+    spread = spur_spread_mm(spur, px_per_mm=face.px_per_mm, photo_px_per_mm=face.px_per_mm)
+    u0, u1 = t["greatest_u_mm"].iloc[0], t["greatest_u_mm"].iloc[1]
+    g0, g1 = t["greatest_mm"].iloc[0], t["greatest_mm"].iloc[1]
+    # the other terms scale with the length: remove that part before comparing
+    expected = np.hypot(u0 * g1 / g0, spread / np.sqrt(3.0))
+    assert spread > 0.5
+    assert u1 == pytest.approx(expected, rel=0.1)
+    assert t["width_u_mm"].iloc[1] == pytest.approx(t["width_u_mm"].iloc[0], rel=0.1)
