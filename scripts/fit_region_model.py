@@ -5,6 +5,8 @@
     python scripts/fit_region_model.py --render 130 --seed 100200 --mp 2 --mp-max 4 --truth-face --cache DIR2
     python scripts/fit_region_model.py --from-cache DIR1 --from-cache DIR2     # refit, no rendering
     python scripts/fit_region_model.py --folder DIR [--folder DIR2]   # photos + .truth.json
+    python scripts/fit_region_model.py --from-cache DIR1 --from-cache DIR2 --keep-detection surfaces/regionmodel.json
+                                                                      # refit the kind model only
 
 Each photo goes through the runtime's own calibration and face finder (with
 ``--truth-face``, a photo whose face is not found is rectified from its true
@@ -17,9 +19,11 @@ are left out; every third face is also used as a monochrome photo.  A
 multinomial logistic model with an L2 penalty is fitted (SciPy L-BFGS) with
 class weights that balance the many ``none`` candidates, colour weights tied
 across every class but ``unfused``; it decides whether a candidate is an
-imperfection from every feature but the orientation ones
+imperfection from every feature but the kind-only ones
 (``regionmodel.KIND_ONLY``), and a second one, fitted on the imperfections
-alone with every feature, shares out the kinds.  The seeds used here (100000 and up) are
+alone with every feature, shares out the kinds (``--keep-detection`` takes the
+detection model from an earlier fit as it is: after a change to the kind-only
+features, every detection stays as it was).  The seeds used here (100000 and up) are
 disjoint from the seeds the tests and the benchmark evaluate on.
 """
 
@@ -238,6 +242,16 @@ def fit(X: np.ndarray, y: np.ndarray, *, l2: float = 1e-2, features=FEATURES, cl
     return {"W": W.tolist(), "b": b.tolist(), "mean": mean.tolist(), "std": std.tolist(), "loss": float(res.fun)}
 
 
+def kept_detection(path: str) -> dict:
+    """The detection part (weights, standardisation) of a fitted model JSON, checked against :data:`DETECT_FEATURES`."""
+    old = json.loads(Path(path).read_text())
+    if tuple(old.get("detect_features", ())) != DETECT_FEATURES:
+        sys.exit(f"{path}: its detection model was fitted on other features; fit both models (leave out --keep-detection)")
+    kept = {k: old[k] for k in ("W", "b", "mean", "std", "loss")}
+    kept["detection_from"] = {"path": str(path), "fitted": old.get("fitted"), "training": old.get("training")}
+    return kept
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--folder", action="append", default=[], help="folder of synthetic photos with .truth.json")
@@ -256,6 +270,9 @@ def main() -> int:
                     help="L2 penalty on the kind model's (default 0.003: on held-out and fresh faces 0.003 named pores "
                          "and inclusions better than 0.01-0.1 and kept the real photos' recall; 0.001 and under gained "
                          "little more)")  # fmt: skip
+    ap.add_argument("--keep-detection", default="",
+                    help="take the detection model from this fitted JSON (same detection features) and fit the kind "
+                         "model only: a change to the kind-only features then leaves every detection as it was")
     ap.add_argument("--out", default=str(MODEL_PATH))
     a = ap.parse_args()
     jobs = [("file", p) for f in a.folder for p in sorted(glob.glob(os.path.join(f, "*.jpg")))]
@@ -288,7 +305,10 @@ def main() -> int:
 
     Xt, yt = stack(train)
     # whether: the detection model, blind to orientation; what: the kind model, on imperfections only
-    model = fit(Xt[:, DETECT_IDX], yt, l2=a.l2, features=DETECT_FEATURES)
+    if a.keep_detection:
+        model = kept_detection(a.keep_detection)
+    else:
+        model = fit(Xt[:, DETECT_IDX], yt, l2=a.l2, features=DETECT_FEATURES)
     real = yt > 0
     model["kinds"] = fit(Xt[real], yt[real] - 1, l2=a.kind_l2, classes=CLASSES[1:])
     model["kinds"]["classes"] = list(CLASSES[1:])
@@ -307,6 +327,7 @@ def main() -> int:
             "seed": a.seed,
             "l2": a.l2,
             "kind_l2": a.kind_l2,
+            "keep_detection": a.keep_detection or None,
         },
     )
     if n_hold:

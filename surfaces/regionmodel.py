@@ -31,6 +31,7 @@ FEATURES = (
     "contrast", "depth", "edge_sharpness", "tex_in", "tex_ring", "chroma_ring", "chroma_face",
     "ridge_frac", "edge_contact", "log_photo_px", "log_photo_thick_px", "bright_frac",
     "src_dark", "src_ridge", "src_smooth", "ellipse_misfit", "highlight", "inner_spread", "along_elong",
+    "bowl", "log_mottle",
 )  # fmt: skip
 
 
@@ -67,9 +68,14 @@ def feature_vector(f: dict) -> np.ndarray:
         min(f["highlight"], 2.0),
         min(f["inner_spread"], 2.0),
         along_elongation(f["aspect"], f["angle_rad"]),
+        f["bowl"],
+        _log(f["mottle"], MOTTLE_FLOOR),
     ]
     return np.asarray(v, dtype=np.float64)
 
+
+#: mottle under this (a few grey levels in a thousand of the span) is noise: the log stops there
+MOTTLE_FLOOR = 0.005
 
 #: beyond this aspect ratio a region is a line (crack, edge, scratch), which ``log_aspect`` tells
 ALONG_ASPECT_CAP = 8.0
@@ -91,8 +97,10 @@ def along_elongation(aspect: float, angle_rad: float) -> float:
 
 #: features that say what an imperfection is, never whether there is one: they enter only the kind
 #: model.  An orientation must not decide that a region is grain: an inclusion lying across the weld
-#: is as real as one along it (and photos of other surfaces have no weld axis at all)
-KIND_ONLY = ("along_elong",)
+#: is as real as one along it (and photos of other surfaces have no weld axis at all); a shadowed
+#: floor or a mottled fill (:func:`surfaces.segment.inner_relief`) tells a cavity from a solid
+#: filling, and grain shows either
+KIND_ONLY = ("along_elong", "bowl", "log_mottle")
 #: the features of the detection model (``P(none)`` and the kinds it would give on its own)
 DETECT_FEATURES = tuple(f for f in FEATURES if f not in KIND_ONLY)
 _DETECT_IDX = np.array([FEATURES.index(f) for f in DETECT_FEATURES])

@@ -29,8 +29,10 @@ Two steps:
 2. **Decision**: every candidate is described by generic region features
    (size, shape, contrast to its ring, edge steepness, inner texture, colour,
    ridge fraction, contact with the face edge, how far its outline is from an
-   ellipse, how its inner grey levels spread; the model adds its elongation
-   along the weld) and scored by a small
+   ellipse, how its inner grey levels spread and how they follow the depth
+   in from the outline (a cavity's shadowed floor or a mottled solid
+   filling, :func:`inner_relief`); the model adds its elongation along the
+   weld) and scored by a small
    multinomial logistic model (:mod:`surfaces.regionmodel`) whose weights are
    fitted on synthetic faces by ``scripts/fit_region_model.py``; a few
    candidates are settled by physics first (:func:`ruled_out`: a ridge
@@ -721,6 +723,9 @@ def _appearance(f: dict, reg: np.ndarray, sl, M: _Maps, *, source: str, contour=
         border_reach_mm=reach,
     )
     f.update(inner_grey(patch[deep], ring_level=b, core_level=core))
+    inward = cv2.distanceTransform(np.pad(reg8, 1), cv2.DIST_L2, 3)[1:-1, 1:-1]
+    rr_d, cc_d = np.nonzero(deep)
+    f.update(inner_relief(patch[deep], rr_d, cc_d, inward[deep], ring_level=b, core_level=core))
     f["ellipse_misfit"] = ellipse_misfit(contour) if contour is not None else 0.0
     return f
 
@@ -753,6 +758,59 @@ def inner_grey(values: np.ndarray, *, ring_level: float, core_level: float) -> d
     q25, med, q75, top = np.percentile(v, (25, 50, 75, 98))
     span = max(float(ring_level) - float(core_level), 1.0)
     return {"inner_spread": float(q75 - q25) / span, "highlight": float(top - med) / span}
+
+
+def inner_relief(values, rows, cols, inward, *, ring_level: float, core_level: float) -> dict:
+    """How the grey levels inside a region follow its depth (dimensionless).
+
+    A gas pore is a smooth-walled cavity: its floor, deepest in the middle,
+    lies in shadow, its wall grows lighter towards the rim, and one side of
+    the wall may catch the light; slag is a dull solid filling its hole, its
+    grey levels mottled without regard to the distance from the rim (common
+    practice).
+
+    * ``bowl``: correlation between darkness and the distance in from the
+      outline (``inward``): near 1 for a shadowed floor, near 0 for an evenly
+      mottled region, negative for one lighter in the middle;
+    * ``mottle``: root mean square of what a plane ``a + b col + c row``
+      (light falling from one side) and the distance in leave unexplained,
+      over the ring-to-core span.
+
+    Parameters
+    ----------
+    values, rows, cols, inward : 1-d arrays of one length
+        Grey level, row, column and distance in from the outline (pixels) of
+        the region's pixels away from its outline; at most 4000 of them are used.
+    ring_level, core_level : float
+        Grey levels of the surrounding ring and of the region's dark core.
+
+    Returns
+    -------
+    dict with ``bowl`` and ``mottle`` (0 with fewer than 6 values or an even region).
+    """
+    v = np.asarray(values, dtype=np.float64).ravel()
+    out = {"bowl": 0.0, "mottle": 0.0}
+    if v.size < 6:
+        return out
+    step = max(1, v.size // 4000)
+    v = v[::step]
+    vc = v - v.mean()
+    tot = float(vc @ vc)
+    if tot <= 1e-9:
+        return out
+    d = np.asarray(inward, dtype=np.float64).ravel()[::step]
+    dc = d - d.mean()
+    dd = float(dc @ dc)
+    if dd > 1e-9:
+        out["bowl"] = float(-(dc @ vc) / math.sqrt(dd * tot))
+    x = np.asarray(cols, dtype=np.float64).ravel()[::step]
+    y = np.asarray(rows, dtype=np.float64).ravel()[::step]
+    A = np.c_[np.ones_like(v), x - x.mean(), y - y.mean(), dc]
+    coef, *_ = np.linalg.lstsq(A, v, rcond=None)
+    res = v - A @ coef
+    span = max(float(ring_level) - float(core_level), 1.0)
+    out["mottle"] = math.sqrt(float(res @ res) / v.size) / span
+    return out
 
 
 _CROSS = cv2.getStructuringElement(cv2.MORPH_CROSS, (3, 3))

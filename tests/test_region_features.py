@@ -112,6 +112,8 @@ def test_feature_vector_carries_the_new_features(drawn):
     assert v[FEATURES.index("ellipse_misfit")] == pytest.approx(f["ellipse_misfit"])
     assert v[FEATURES.index("inner_spread")] == pytest.approx(f["inner_spread"])
     assert v[FEATURES.index("along_elong")] == pytest.approx(along_elongation(f["aspect"], f["angle_rad"]))
+    assert v[FEATURES.index("bowl")] == pytest.approx(f["bowl"])
+    assert v[FEATURES.index("log_mottle")] == pytest.approx(math.log(max(f["mottle"], 0.005)))
 
 
 def test_shaded_or_flecked_inside_spreads_more_than_an_even_one():
@@ -163,3 +165,101 @@ def test_orientation_changes_the_kind_never_whether_there_is_one(drawn):
     assert p_along[0] == pytest.approx(p_across[0], abs=1e-12)
     assert p_along.sum() == pytest.approx(1.0) and p_across.sum() == pytest.approx(1.0)
     assert not np.allclose(p_along[1:], p_across[1:])  # the kinds do see it
+
+
+def _disc_pixels(radius_px: float):
+    """Rows, columns and distance in from the rim of the pixel centres of a disc (analytic geometry)."""
+    r = int(math.ceil(radius_px))
+    yy, xx = np.mgrid[-r : r + 1, -r : r + 1].astype(float)
+    rho = np.hypot(xx, yy)
+    inside = rho <= radius_px
+    return yy[inside], xx[inside], radius_px - rho[inside]
+
+
+def test_inner_relief_of_a_shadowed_floor_analytic():
+    from surfaces.segment import inner_relief
+
+    rows, cols, inward = _disc_pixels(12.0)
+    # analytic: grey falling linearly with the distance in (a floor darkest in the middle) is
+    # perfectly anti-correlated with it (bowl 1) and fully explained (mottle 0)
+    v = 150.0 - 8.0 * inward
+    f = inner_relief(v, rows, cols, inward, ring_level=150.0, core_level=50.0)
+    assert f["bowl"] == pytest.approx(1.0, abs=1e-9)
+    assert f["mottle"] == pytest.approx(0.0, abs=1e-9)
+    # light from one side (a plane added) is explained as well: still no mottle
+    f = inner_relief(v + 2.0 * cols - 1.0 * rows, rows, cols, inward, ring_level=150.0, core_level=50.0)
+    assert f["mottle"] == pytest.approx(0.0, abs=1e-9)
+    assert 0.0 < f["bowl"] < 1.0
+    # lighter in the middle (a dome): the sign turns
+    f = inner_relief(50.0 + 8.0 * inward, rows, cols, inward, ring_level=150.0, core_level=50.0)
+    assert f["bowl"] == pytest.approx(-1.0, abs=1e-9)
+
+
+def test_inner_relief_equals_scipys_fit():
+    # reference library: SciPy's Pearson correlation and least-squares fit on the same values
+    from scipy import linalg, stats
+
+    from surfaces.segment import inner_relief
+
+    rows, cols, inward = _disc_pixels(15.0)
+    v = 90.0 - 2.0 * inward + 0.5 * cols + np.random.default_rng(3).normal(0.0, 6.0, rows.size)
+    f = inner_relief(v, rows, cols, inward, ring_level=160.0, core_level=40.0)
+    assert f["bowl"] == pytest.approx(-stats.pearsonr(inward, v).statistic, abs=1e-9)
+    A = np.c_[np.ones_like(v), cols, rows, inward]
+    coef, *_ = linalg.lstsq(A, v)
+    assert f["mottle"] == pytest.approx(math.sqrt(np.mean((v - A @ coef) ** 2)) / 120.0, rel=1e-9)
+    # by construction the noise is 6 grey levels over a 120 span: the mottle is about 0.05
+    assert f["mottle"] == pytest.approx(6.0 / 120.0, rel=0.1)
+
+
+def test_inner_relief_of_an_even_or_tiny_region_is_zero():
+    from surfaces.segment import inner_relief
+
+    rows, cols, inward = _disc_pixels(6.0)
+    # analytic: a constant has no correlation with anything and nothing left to explain
+    assert inner_relief(np.full(rows.size, 40.0), rows, cols, inward, ring_level=150.0, core_level=40.0) == {"bowl": 0.0, "mottle": 0.0}
+    # too few pixels to say anything: zero, not a guess
+    assert inner_relief(np.arange(5.0), np.arange(5.0), np.arange(5.0), np.arange(5.0), ring_level=150.0, core_level=40.0) == {"bowl": 0.0, "mottle": 0.0}
+
+
+def test_shadowed_cavity_and_mottled_filling_are_told_apart():
+    # by construction: two 2.4 mm discs on one grain face, one darkest in the middle and lighter
+    # towards its rim (a cavity's floor in shadow), one as dark on average but mottled at random
+    # (a dull solid filling)
+    shape = (int(10 * PPM), int(20 * PPM))
+    g = grain(shape, seed=21)
+    yy, xx = np.mgrid[0 : shape[0], 0 : shape[1]] / PPM
+    rng = np.random.default_rng(22)
+    rough = cv2.GaussianBlur(rng.normal(0.0, 1.0, shape).astype(np.float32), (0, 0), 1.5)
+    rough *= 18.0 / rough.std()
+    for cx in (5.0, 14.0):
+        rho = np.hypot(xx - cx, yy - 5.0)
+        m = rho <= 1.2
+        g[m] = 25.0 + 40.0 * (rho[m] / 1.2) ** 2 if cx == 5.0 else 45.0 + rough[m]
+    dets = run(to_rgb(g))
+    cavity, filling = (nearest(dets, cx, 5.0)[0].features for cx in (5.0, 14.0))
+    assert cavity["bowl"] > 0.5
+    assert abs(filling["bowl"]) < 0.3
+    assert filling["mottle"] > 2.0 * cavity["mottle"]
+
+
+def test_fit_can_keep_the_detection_model(tmp_path):
+    # a refit of the kind model alone takes the shipped detection model as it is, and refuses one
+    # fitted on other detection features
+    import importlib.util
+    import json
+    from pathlib import Path
+
+    from surfaces.regionmodel import MODEL_PATH
+
+    spec = importlib.util.spec_from_file_location("fit_region_model", Path(__file__).parents[1] / "scripts" / "fit_region_model.py")
+    fitmod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(fitmod)
+    shipped = json.loads(MODEL_PATH.read_text())
+    kept = fitmod.kept_detection(str(MODEL_PATH))
+    assert kept["W"] == shipped["W"] and kept["mean"] == shipped["mean"]
+    other = dict(shipped, detect_features=shipped["detect_features"][:-1])
+    p = tmp_path / "other.json"
+    p.write_text(json.dumps(other))
+    with pytest.raises(SystemExit):
+        fitmod.kept_detection(str(p))
