@@ -263,3 +263,23 @@ def test_fit_can_keep_the_detection_model(tmp_path):
     p.write_text(json.dumps(other))
     with pytest.raises(SystemExit):
         fitmod.kept_detection(str(p))
+
+
+@pytest.mark.parametrize("p, expected", [
+    # P(none) the largest single class but under the detection threshold: reported, as its likeliest kind
+    ([0.35, 0.30, 0.25, 0.05, 0.05], "pore"),
+    ([0.39, 0.10, 0.11, 0.40 - 0.01, 0.01], "unfused"),
+    # the detection model says "none" at or above the threshold, whatever the kinds
+    ([0.45, 0.50, 0.03, 0.01, 0.01], "none"),
+])
+def test_whether_to_report_is_the_detection_models_call(monkeypatch, p, expected):
+    # the decision rule on given probabilities (analytic): report when P(none) < DETECT_P_NONE
+    from surfaces import regionmodel as rm
+
+    assert rm.CLASSES == ("none", "pore", "inclusion", "unfused", "crack")
+    monkeypatch.setattr(rm, "probabilities", lambda X, model=None: np.array([p], float))
+    monkeypatch.setattr(rm, "feature_vector", lambda f: np.zeros(len(FEATURES)))
+    kind, conf, probs = rm.classify({})
+    assert kind == expected
+    assert conf == pytest.approx(p[rm.CLASSES.index(kind)])
+    assert (p[0] < rm.DETECT_P_NONE) == (kind != "none")
