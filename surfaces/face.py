@@ -16,7 +16,11 @@ The face is located in two passes:
    long edges are where the texture profile rises to half-way between the
    outside and inside levels, walking in from outside, snapped to the
    brightness step, then moved out over a calmer end of the face's own
-   brightness that is still textured; each long edge is a line whose slope comes from
+   brightness that is still textured (the profile along the face follows an upper share of
+   the rows across it, so a defect across most of the face does not end it, and each end
+   sits at the half-way level of the face's own texture just inside it); a frame whose margin
+   the face's texture runs into (the coarse region was a stretch of the face) is lengthened
+   that way and the pass repeated; each long edge is a line whose slope comes from
    stretches along the face (a tapered face keeps its taper) and which a
    smooth band along the root does not pull inwards.  The frame turns to the
    edges' direction when they lean.
@@ -478,6 +482,14 @@ END_TEXTURE_SHARE = 0.25
 #: above which the end is not trusted
 OPEN_END_SHARE = 0.12
 OPEN_END_NOTE = "the face's texture goes on beyond an end: check the ends on the overlay"
+#: upper percentile of the texture across the face's band that the profile along the face follows
+ALONG_PROFILE_PCT = 75
+#: an end margin at least this share of the face middle's texture level ...
+RUN_ON_SHARE = 0.3
+#: ... and this many times the level beside the long edges is more face (the face runs on)
+RUN_ON_CONTRAST = 4.0
+#: how many times the frame is lengthened when the face's texture runs on past its margin
+MAX_GROW = 3
 #: length of the stretches along the weld whose long edges are located separately
 EDGE_BIN_MM = 2.0
 
@@ -551,20 +563,41 @@ def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: f
         y_lo = _same_brightness_reach(prof_i, y_lo, inner_i, _outer(prof_i[:mrow], y_lo, -1), -1, reach_b)
         y_hi = _same_brightness_reach(prof_i, y_hi, inner_i, _outer(prof_i[h - mrow :], y_hi, +1), +1, reach_b)
     band = slice(int(math.ceil(y_lo + 0.15 * (y_hi - y_lo))), int(y_hi - 0.15 * (y_hi - y_lo)) + 1)
+    if y_hi - y_lo <= 0.5 * q or band.stop <= band.start:
+        raise FaceError("the face found is too small to assess: give --roi around the face")
     # along the face: a profile smoothed over half a millimetre, walked in from both margins
-    prof_x = cv2.blur(np.median(e[band, :], axis=0).reshape(1, -1), (max(1, int(0.5 * q)) | 1, 1)).ravel()
+    # (an upper share of the band's rows: a defect across most of the band's middle, a large pore
+    # or a long inclusion, leaves the rows beside it textured and does not end the face there)
+    prof_x = _blur_along(np.percentile(e[band, :], ALONG_PROFILE_PCT, axis=0), q)
     inside_x = slice(int(w / 2 - L * q * 0.25), int(w / 2 + L * q * 0.25) + 1)
     mcol = max(1, int(margin_x * q * 0.6))
     lv_in = float(np.percentile(prof_x[inside_x], 75))
     lv_l, lv_r = float(np.median(prof_x[:mcol])), float(np.median(prof_x[w - mcol :]))
     c_x = min(lv_in - lv_l, lv_in - lv_r) / max(lv_in, 1e-6)
+    # the ends' contrast (a part of the outline's confidence) on the band's median texture, as
+    # low as a defect or a calm stretch makes it: the upper share above makes every end clearer
+    med_x = _blur_along(np.median(e[band, :], axis=0), q)
+    lv_m = float(np.percentile(med_x[inside_x], 75))
+    c_x = min(c_x, (lv_m - max(float(np.median(med_x[:mcol])), float(np.median(med_x[w - mcol :])))) / max(lv_m, 1e-6))
     pers_x = max(2, int(2.0 * q))
     x_lo = _rise_from_outside(prof_x, 0.5 * (lv_in + lv_l), 0, w / 2, persist=pers_x)
     x_hi = _rise_from_outside(prof_x, 0.5 * (lv_in + lv_r), w - 1, w / 2, persist=pers_x)
+    # the face runs on past a margin when an end is found at the image's own border, or when the
+    # margin is textured much like the face and far more than the surroundings beside its long
+    # edges (a calmer stretch of the face): the coarse region was then a stretch of the face
+    at_border = (x_lo is not None and x_lo <= 1.0, x_hi is not None and x_hi >= w - 2.0)
+    lv_side = max(lv_lo, lv_hi, 1e-6)
+    runs_on = tuple(
+        b or (lv >= RUN_ON_SHARE * lv_in and lv >= RUN_ON_CONTRAST * lv_side) for b, lv in zip(at_border, (lv_l, lv_r))
+    )
     if x_lo is None or x_hi is None or x_hi - x_lo < pers_x:
         x_lo, x_hi = margin_x * q, (margin_x + L) * q
         warnings.append("face ends are unclear: length taken from the coarse outline")
     else:
+        # the half-way level of the texture right inside each end (a face calmer towards its ends
+        # than in its middle ends where its own texture does)
+        x_lo = _local_half_level(prof_x, x_lo, lv_l, -1, q=q)
+        x_hi = _local_half_level(prof_x, x_hi, lv_r, +1, q=q)
         prof_i = np.median(gi[band, :], axis=0)
         x_lo = _snap_to_step(prof_i, x_lo, win=snap)
         x_hi = _snap_to_step(prof_i, x_hi, win=snap)
@@ -610,7 +643,7 @@ def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: f
     lo_mm, hi_mm = to_y(ylo_b), to_y(yhi_b)
     outline = np.r_[np.c_[xs_mm, lo_mm], np.c_[xs_mm[::-1], hi_mm[::-1]]]
     slope = 0.5 * ((ylo_b[-1] - ylo_b[0]) + (yhi_b[-1] - yhi_b[0])) / max(xb[-1] - xb[0], 1e-6)
-    return outline, c_x, c_y, warnings, math.degrees(math.atan(slope))
+    return outline, c_x, c_y, warnings, math.degrees(math.atan(slope)), runs_on
 
 
 def find_face(
@@ -659,8 +692,9 @@ def find_face(
     centre, axis, L, Wd, fill, where = _coarse_face(gray, rgb, calib, roi_poly, test)
     method = "auto" if roi is None else ("roi-box" if len(roi) == 4 else "roi-corners")
     L0, W0 = L, Wd
-    for attempt in range(3):
-        outline, c_x, c_y, fine_notes, slope = _fine_outline(gray, calib, centre, axis, L, Wd)
+    attempt, grown = 0, 0
+    while True:
+        outline, c_x, c_y, fine_notes, slope, runs_on = _fine_outline(gray, calib, centre, axis, L, Wd)
         lo_o, hi_o = outline.min(axis=0), outline.max(axis=0)
         size = hi_o - lo_o
         mid = 0.5 * (lo_o + hi_o)
@@ -668,12 +702,23 @@ def find_face(
         new_centre = np.asarray(centre, float) + mid[0] * np.array([math.cos(a), math.sin(a)]) + mid[1] * np.array(
             [-math.sin(a), math.cos(a)]
         )
+        if grown < MAX_GROW and any(runs_on) and size[0] >= size[1]:
+            # the coarse region was a stretch of the face (a long smooth defect or a calmer
+            # stretch split it): look further along the open end(s)
+            grown += 1
+            more = max(float(size[0]), 20.0)
+            shift = 0.5 * more * (float(runs_on[1]) - float(runs_on[0]))
+            centre = new_centre + shift * np.array([math.cos(a), math.sin(a)])
+            L, Wd = float(size[0]) + more * (int(runs_on[0]) + int(runs_on[1])), float(size[1])
+            continue
         if attempt < 2 and size[1] > 1.15 * size[0]:
             # the coarse region's long side was across the weld: turn the frame
+            attempt += 1
             centre, axis, L, Wd = new_centre, axis + 90.0, float(size[1]), float(size[0])
             continue
         if attempt < 2 and abs(slope) > 0.5:
             # both long edges lean: the coarse axis was off by that much
+            attempt += 1
             centre, axis, L, Wd = new_centre, axis + slope, float(size[0]), float(size[1])
             continue
         break
@@ -750,6 +795,11 @@ def find_face(
         confidence=conf,
         warnings=tuple(warnings),
     )
+
+
+def _blur_along(p: np.ndarray, q: float) -> np.ndarray:
+    """A profile along the face smoothed over half a millimetre (``q`` samples per mm)."""
+    return cv2.blur(np.asarray(p, np.float32).reshape(1, -1), (max(1, int(0.5 * q)) | 1, 1)).ravel()
 
 
 def _shoelace(poly: np.ndarray) -> float:
@@ -874,6 +924,39 @@ def _texture_goes_on(tex, bright, beside, pos: float, outward: int, *, inner_i: 
     t = float(np.mean(tex[a : b + 1]))
     same = abs(float(np.median(bright[a : b + 1])) - inner_i) <= 0.15 * abs(inner_i - outer_i)
     return bool(same and t >= level and float(np.mean(beside[a : b + 1])) < 0.5 * t)
+
+
+def _local_half_level(p: np.ndarray, pos: float, outer: float, outward: int, *, q: float) -> float:
+    """Move an edge found at the half-way level of the face's middle out to its local half-way level.
+
+    The face's level right inside the edge is the median of ``p`` 0.5-2.5 mm
+    inwards of ``pos``; when that is lower than the level the edge was found
+    at (``p[pos]``, about half-way to the middle's), and at least twice the
+    outside level ``outer``, the edge is where ``p``, walking outwards from
+    ``pos`` (at most 3 mm), first falls below half-way between the local
+    level and ``outer``.  It never moves inwards.
+    """
+    p = np.asarray(p, dtype=np.float64)
+    n = len(p)
+    k = int(round(pos))
+    a, b = sorted((k - outward * int(0.5 * q), k - outward * int(2.5 * q)))
+    a, b = max(a, 0), min(b, n - 1)
+    if b <= a:
+        return pos
+    local = float(np.median(p[a : b + 1]))
+    lvl = 0.5 * (local + outer)
+    if local < 2.0 * outer or not 0 <= k < n or lvl >= p[k]:
+        return pos
+    prev = k
+    for step in range(1, int(3.0 * q) + 1):
+        i = k + outward * step
+        if not 0 <= i < n:
+            return pos
+        if p[i] < lvl:
+            frac = (p[prev] - lvl) / max(p[prev] - p[i], 1e-12)
+            return float(prev + outward * frac)
+        prev = i
+    return pos
 
 
 def _calm_end(p, pos: float, inner: float, outer: float, outward: int, *, keep, min_len: int, persist: int):

@@ -57,7 +57,7 @@ def _texture(rng, shape, *, grain_px: float, mean: float, std: float) -> np.ndar
 
 
 def analytic_photo(face_mm=None, *, seed=0, band=None, grain_std=28.0, rough=None, band_value=140.0, table=95.0,
-                   shadow=None):
+                   shadow=None, disc=None):
     """Photo (rgb, gray) and calibration of a textured polygon on a plain, shaded background.
 
     ``band``: (x0, x1, y_edge, width, inward) mm - an untextured strip of the
@@ -69,6 +69,7 @@ def analytic_photo(face_mm=None, *, seed=0, band=None, grain_std=28.0, rough=Non
     ``band_value``: the band's grey level; ``table``: the background's level.
     ``shadow``: (x0, x1, y_edge, width, outward, value) mm - a plain strip of grey ``value``
     just outside the straight edge ``y = y_edge`` (the gap or shadow beside a coupon's edge).
+    ``disc``: (x, y, r, value) mm - an untextured disc of grey ``value`` in the face (a large pore).
     """
     rng = np.random.default_rng(seed)
     w, h = int(CANVAS_MM[0] * CANVAS_PX_PER_MM), int(CANVAS_MM[1] * CANVAS_PX_PER_MM)
@@ -95,6 +96,10 @@ def analytic_photo(face_mm=None, *, seed=0, band=None, grain_std=28.0, rough=Non
             strip = [(x0, y_edge), (x1, y_edge), (x1, y_edge + inward * bw), (x0, y_edge + inward * bw)]
             cv2.fillPoly(bm, [np.round(_to_canvas(strip) * 16).astype(np.int32)], 1, shift=4)
             tex[bm > 0] = band_value  # smooth, no grain
+        if disc is not None:
+            dx, dy, dr, dval = disc
+            (cx, cy), = _to_canvas([(dx, dy)])
+            tex[(xx - cx) ** 2 + (yy - cy) ** 2 <= (dr * CANVAS_PX_PER_MM) ** 2] = dval
         canvas = np.where(m > 0, tex, canvas)
     canvas = cv2.GaussianBlur(canvas.astype(np.float32), (0, 0), 0.8)  # optics, and no aliasing on the way down
     M = H_PLANE_TO_PHOTO @ _canvas_to_plane()
@@ -213,6 +218,61 @@ def test_smooth_rim_brighter_than_the_face_beside_a_shadow_stays_in_the_face():
     face = find_face(rgb, gray, calib)
     assert face.area_mm2 == pytest.approx(shoelace(RECT), rel=0.04)  # analytic geometry
     assert face.width_mm == pytest.approx(RECT[2][1] - RECT[1][1], rel=0.06)  # the polygon's Y extent
+
+
+def test_large_pore_at_an_end_does_not_end_the_face():
+    """A 4.6 mm smooth dark disc (a large pore) reaching to 0.1 mm from the face's end, across two
+    thirds of its width: the texture stays on the rows beside it, so the end is the polygon's, not
+    the pore's far side (the pore and the strip beyond it would be cut off, never looked at)."""
+    disc = (137.6, 45.0, 2.3, 110.0)  # RECT ends at X = 140; the disc spans X 135.3..139.9, Y 42.7..47.3
+    rgb, gray, calib = analytic_photo(RECT, seed=14, disc=disc)
+    face = find_face(rgb, gray, calib)
+    assert face.length_mm == pytest.approx(RECT[1][0] - RECT[0][0], rel=0.03)  # the polygon's X extent
+    assert face.area_mm2 == pytest.approx(shoelace(RECT), rel=0.04)  # analytic geometry
+    # the whole disc lies inside the outline (analytic: its centre and its far rim)
+    outline = plane_outline(face, calib).astype(np.float32).reshape(-1, 1, 2)
+    for pt in [(137.6, 45.0), (139.5, 45.0)]:
+        assert cv2.pointPolygonTest(outline, pt, False) > 0
+
+
+def test_face_found_from_a_stretch_of_it_is_followed_to_its_ends(monkeypatch):
+    """When the rough search returns only a stretch of the face (a long smooth defect or a calmer
+    stretch split its texture), the outline follows the texture past the stretch to the real ends."""
+    from surfaces import face as face_mod
+
+    rgb, gray, calib = analytic_photo(RECT, seed=15)
+    # the rough frame: X 110..140 of RECT (X 30..140, Y 40..50): centre, axis, length, width, fill, where
+    monkeypatch.setattr(face_mod, "_coarse_face", lambda *a, **k: (np.array([125.0, 45.0]), 0.0, 30.0, 10.0, 1.0, "photo"))
+    face = find_face(rgb, gray, calib)
+    assert face.length_mm == pytest.approx(RECT[1][0] - RECT[0][0], rel=0.03)  # the polygon's X extent
+    assert face.area_mm2 == pytest.approx(shoelace(RECT), rel=0.04)  # analytic geometry
+    assert iou_plane(plane_outline(face, calib), np.asarray(RECT)) > 0.93
+
+
+def test_end_at_the_local_half_level_of_a_calmer_rim():
+    """An end whose texture is lower just inside it than in the middle is placed at the half-way
+    level of its own rim: a blurred step (Gaussian CDF, symmetric about the step, so its half-way
+    level sits at the step: analytic) from 0 outside to 10 inside, rising to 30 over the middle."""
+    from scipy.special import ndtr
+
+    from surfaces.face import _local_half_level
+
+    q = 10.0  # samples per mm
+    x = np.arange(400) / q  # mm
+    edge, sigma = 8.0, 0.4
+    prof = 10.0 * ndtr((x - edge) / sigma) + 20.0 * ndtr((x - 14.0) / 1.0)  # (scipy reference CDF)
+    # the middle's half-way level (15) is crossed about 5 mm inside the end
+    start = float(np.interp(15.0, prof[:250], np.arange(250)))
+    assert start / q > edge + 3.0
+    pos = _local_half_level(prof, start, 0.0, -1, q=q)
+    assert start / q - pos / q > 0  # moved outwards only
+    # walking out from a crossing 5 mm inside, the local level is still the middle's rise: the
+    # end moves towards the step; from a crossing 1.5 mm inside it reaches it
+    pos2 = _local_half_level(prof, (edge + 1.5) * q, 0.0, -1, q=q)
+    assert pos2 / q == pytest.approx(edge, abs=0.1)
+    # never inwards, and not over an outside as textured as half the rim
+    assert _local_half_level(prof, edge * q, 0.0, -1, q=q) <= edge * q + 1e-9
+    assert _local_half_level(prof, (edge + 1.5) * q, 6.0, -1, q=q) == (edge + 1.5) * q
 
 
 def test_no_face_raises_with_advice():
