@@ -883,8 +883,9 @@ def _edge_line(x: np.ndarray, y: np.ndarray, inward: float, *, q: float) -> np.n
     median of the stretches that lie on the edge: stretches well inside the
     main group (more than ``max(3 sigma, 0.3 mm)``) are a smooth band, not
     the edge, and are left out; when at least a fifth of the stretches lie
-    that far *outside* the main group, the main group is a band along most
-    of the edge and the outer group is the edge.  With fewer than four
+    that far *outside* the main group, each within ``tol`` of another one
+    of them, the main group is a band along most of the edge and the outer
+    group is the edge.  With fewer than four
     stretches the median position is used.
     """
     x, y = np.asarray(x, float), np.asarray(y, float)
@@ -899,6 +900,10 @@ def _edge_line(x: np.ndarray, y: np.ndarray, inward: float, *, q: float) -> np.n
     sig = 1.4826 * float(np.median(np.abs(r - med))) + 1e-6
     tol = max(3.0 * sig, 0.3 * q)
     outer = r < med - tol
+    # the outer group is an edge only where its stretches agree with each other (a lone stretch
+    # far outside, where plate or table texture rose, is no edge and must not pull one out)
+    ro = r[outer]
+    outer[outer] = (np.abs(ro[:, None] - ro[None, :]) <= tol).sum(axis=1) >= 2
     if outer.sum() >= max(2, 0.2 * len(r)):
         off = float(np.median(r[outer]))
     else:

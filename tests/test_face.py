@@ -275,6 +275,26 @@ def test_end_at_the_local_half_level_of_a_calmer_rim():
     assert _local_half_level(prof, (edge + 1.5) * q, 6.0, -1, q=q) == (edge + 1.5) * q
 
 
+def test_edge_line_is_not_pulled_out_by_a_lone_stretch():
+    """Stretch positions of a long edge (analytic: points on y = 353 - 0.005 x, with the noise of
+    a break): a lone stretch 6 mm outside (plate or table texture rose there) plus one just past the
+    tolerance do not make an "outer group" and do not move the edge half-way out to the stray one;
+    stretches outside that agree with each other (the real edge beyond a smooth root band over most
+    of its length) still do."""
+    from surfaces.face import _edge_line
+
+    q = 10.0
+    x = np.arange(10) * 20.0 + 132.5
+    y = 353.0 - 0.005 * x + np.array([6.0, -0.5, 1.9, 2.3, -2.7, 0.6, 0.6, 0.6, 0.8, 0.0])
+    y[-1] = 412.0  # 6 mm outside a lower (y_hi) edge: inward is -y
+    a, b = _edge_line(x, y, -1.0, q=q)
+    assert np.median(y[:-1] - a * x[:-1]) == pytest.approx(b, abs=1.0)  # the main group's offset (0.1 mm)
+    # a band along the middle 6 stretches of an upper (y_lo) edge: its inner side at y = 100, the edge at y = 80
+    y2 = np.r_[np.full(2, 80.0), np.full(6, 100.0), np.full(2, 80.0)] + np.array([0.4, -0.3, 0.2, 0.0, -0.2, 0.3, 0.5, -0.4, 0.1, 0.0])
+    a2, b2 = _edge_line(x, y2, +1.0, q=q)
+    assert a2 * x.mean() + b2 == pytest.approx(80.0, abs=1.0)
+
+
 def test_no_face_raises_with_advice():
     rgb, gray, calib = analytic_photo(None, seed=7)
     with pytest.raises(FaceError, match="--roi"):
