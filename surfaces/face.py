@@ -488,6 +488,10 @@ ALONG_PROFILE_PCT = 75
 RUN_ON_SHARE = 0.3
 #: ... and this many times the level beside the long edges is more face (the face runs on)
 RUN_ON_CONTRAST = 4.0
+#: a rim of the face's brightness beyond a long edge must end in a step within this distance (mm)
+BRIGHT_RIM_STEP_MM = 2.0
+#: farthest an end moves out to the half-way level of the face's texture just inside it (mm)
+LOCAL_END_REACH_MM = 3.0
 #: how many times the frame is lengthened when the face's texture runs on past its margin
 MAX_GROW = 3
 #: length of the stretches along the weld whose long edges are located separately
@@ -560,8 +564,11 @@ def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: f
             near = prof_i[max(a, 0) : max(min(b, h - 1), 0) + 1]
             lv = [float(np.median(far))] + ([float(np.median(near))] if near.size else [])
             return max(lv, key=lambda v: abs(v - inner_i))
-        y_lo = _same_brightness_reach(prof_i, y_lo, inner_i, _outer(prof_i[:mrow], y_lo, -1), -1, reach_b)
-        y_hi = _same_brightness_reach(prof_i, y_hi, inner_i, _outer(prof_i[h - mrow :], y_hi, +1), +1, reach_b)
+        rim_step = int(BRIGHT_RIM_STEP_MM * q)
+        y_lo = _same_brightness_reach(prof_i, y_lo, inner_i, _outer(prof_i[:mrow], y_lo, -1), -1, reach_b,
+                                      step_len=rim_step)
+        y_hi = _same_brightness_reach(prof_i, y_hi, inner_i, _outer(prof_i[h - mrow :], y_hi, +1), +1, reach_b,
+                                      step_len=rim_step)
     band = slice(int(math.ceil(y_lo + 0.15 * (y_hi - y_lo))), int(y_hi - 0.15 * (y_hi - y_lo)) + 1)
     if y_hi - y_lo <= 0.5 * q or band.stop <= band.start:
         raise FaceError("the face found is too small to assess: give --roi around the face")
@@ -938,8 +945,8 @@ def _local_half_level(p: np.ndarray, pos: float, outer: float, outward: int, *, 
     inwards of ``pos``; when that is lower than the level the edge was found
     at (``p[pos]``, about half-way to the middle's), and at least twice the
     outside level ``outer``, the edge is where ``p``, walking outwards from
-    ``pos`` (at most 3 mm), first falls below half-way between the local
-    level and ``outer``.  It never moves inwards.
+    ``pos`` (at most :data:`LOCAL_END_REACH_MM`), first falls below half-way
+    between the local level and ``outer``.  It never moves inwards.
     """
     p = np.asarray(p, dtype=np.float64)
     n = len(p)
@@ -953,7 +960,7 @@ def _local_half_level(p: np.ndarray, pos: float, outer: float, outward: int, *, 
     if local < 2.0 * outer or not 0 <= k < n or lvl >= p[k]:
         return pos
     prev = k
-    for step in range(1, int(3.0 * q) + 1):
+    for step in range(1, int(LOCAL_END_REACH_MM * q) + 1):
         i = k + outward * step
         if not 0 <= i < n:
             return pos
@@ -1004,7 +1011,8 @@ def _calm_end(p, pos: float, inner: float, outer: float, outward: int, *, keep, 
     return float(last + 0.5 * outward)
 
 
-def _same_brightness_reach(p: np.ndarray, pos: float, inner: float, outer: float, outward: int, reach: float):
+def _same_brightness_reach(p: np.ndarray, pos: float, inner: float, outer: float, outward: int, reach: float,
+                           *, step_len: int = 10):
     """Move an edge outwards over samples of the face's own brightness.
 
     Walking outwards from ``pos`` (at most ``reach`` samples), the edge
@@ -1012,6 +1020,10 @@ def _same_brightness_reach(p: np.ndarray, pos: float, inner: float, outer: float
     the face-to-surroundings difference of the face's level ``inner``; it
     never moves inwards, and not at all when the face and its surroundings
     differ by less than 12 grey levels or six times the profile's noise.
+    The rim walked must end at a step: within ``step_len`` samples beyond
+    it the brightness covers at least half of what is left to ``outer``
+    (a plate or bead shading gradually away from the face's brightness has
+    no such step, and is not face).
     """
     p = np.asarray(p, dtype=np.float64)
     d = np.diff(p)
@@ -1028,6 +1040,9 @@ def _same_brightness_reach(p: np.ndarray, pos: float, inner: float, outer: float
             break
         last = i
     if last is None:
+        return pos
+    beyond = p[min(max(last + outward * step_len, 0), n - 1)]
+    if abs(p[last] - beyond) < 0.5 * abs(p[last] - outer):
         return pos
     edge = last + 0.5 * outward  # the face's last sample ends half a sample further out
     return float(edge) if (edge - pos) * outward > 0 else pos

@@ -295,6 +295,22 @@ def test_edge_line_is_not_pulled_out_by_a_lone_stretch():
     assert a2 * x.mean() + b2 == pytest.approx(80.0, abs=1.0)
 
 
+def test_rim_of_the_face_brightness_must_end_in_a_step():
+    """Brightness across a long edge (analytic profiles): the face at 150 up to sample 100, then
+    either a flat rim of the face's brightness 15 samples wide ending in a sharp step to the
+    surroundings' 95 (a smooth rim of the face: the edge moves out to the rim's end), or a plain
+    strip shading linearly from 150 to 95 over 60 samples (a plate or bead in shade: its first
+    samples are as close to the face's brightness, but it ends in no step, and the edge stays)."""
+    from surfaces.face import _same_brightness_reach
+
+    i = np.arange(300, dtype=float)
+    rim = np.where(i < 115, 150.0, 95.0)
+    rim = cv2.GaussianBlur(rim.reshape(1, -1), (0, 0), 1.0).ravel()  # a sharp step (1 sample blur)
+    ramp = np.where(i < 100, 150.0, np.maximum(150.0 - (i - 100) * 55.0 / 60.0, 95.0))
+    assert _same_brightness_reach(rim, 100.0, 150.0, 95.0, +1, 30) == pytest.approx(114.5, abs=1.5)
+    assert _same_brightness_reach(ramp, 100.0, 150.0, 95.0, +1, 30) == 100.0
+
+
 def test_no_face_raises_with_advice():
     rgb, gray, calib = analytic_photo(None, seed=7)
     with pytest.raises(FaceError, match="--roi"):
