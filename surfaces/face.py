@@ -25,6 +25,11 @@ The face is located in two passes:
    smooth band along the root does not pull inwards.  The frame turns to the
    edges' direction when they lean.
 
+A region too wide for the test's face (the specimen: plate, bead and face)
+is searched for a band along it at most that wide whose fine texture stands
+well above the region's (:func:`_textured_band`); the fine pass then fits
+the face on that band.
+
 The result is the outline (``Face.mask``, ``Face.area_mm2``), not its
 bounding rectangle.  An automatic search that is unsure (faint outline, an
 end beyond which the face's texture and brightness go on, an outline much
@@ -482,6 +487,9 @@ END_TEXTURE_SHARE = 0.25
 #: above which the end is not trusted
 OPEN_END_SHARE = 0.12
 OPEN_END_NOTE = "the face's texture goes on beyond an end: check the ends on the overlay"
+#: a band along a region too wide for a face is the face when its texture (square root of the
+#: energy) is at least this many times the region's median row
+BAND_CONTRAST = 1.5
 #: upper percentile of the texture across the face's band that the profile along the face follows
 ALONG_PROFILE_PCT = 75
 #: an end margin at least this share of the face middle's texture level ...
@@ -699,37 +707,20 @@ def find_face(
     centre, axis, L, Wd, fill, where = _coarse_face(gray, rgb, calib, roi_poly, test)
     method = "auto" if roi is None else ("roi-box" if len(roi) == 4 else "roi-corners")
     L0, W0 = L, Wd
-    attempt, grown = 0, 0
-    while True:
-        outline, c_x, c_y, fine_notes, slope, runs_on = _fine_outline(gray, calib, centre, axis, L, Wd)
-        lo_o, hi_o = outline.min(axis=0), outline.max(axis=0)
-        size = hi_o - lo_o
-        mid = 0.5 * (lo_o + hi_o)
-        a = math.radians(axis)
-        new_centre = np.asarray(centre, float) + mid[0] * np.array([math.cos(a), math.sin(a)]) + mid[1] * np.array(
-            [-math.sin(a), math.cos(a)]
-        )
-        if grown < MAX_GROW and any(runs_on) and size[0] >= size[1]:
-            # the coarse region was a stretch of the face (a long smooth defect or a calmer
-            # stretch split it): look further along the open end(s)
-            grown += 1
-            more = max(float(size[0]), 20.0)
-            shift = 0.5 * more * (float(runs_on[1]) - float(runs_on[0]))
-            centre = new_centre + shift * np.array([math.cos(a), math.sin(a)])
-            L, Wd = float(size[0]) + more * (int(runs_on[0]) + int(runs_on[1])), float(size[1])
-            continue
-        if attempt < 2 and size[1] > 1.15 * size[0]:
-            # the coarse region's long side was across the weld: turn the frame
-            attempt += 1
-            centre, axis, L, Wd = new_centre, axis + 90.0, float(size[1]), float(size[0])
-            continue
-        if attempt < 2 and abs(slope) > 0.5:
-            # both long edges lean: the coarse axis was off by that much
-            attempt += 1
-            centre, axis, L, Wd = new_centre, axis + slope, float(size[0]), float(size[1])
-            continue
-        break
+    outline, c_x, c_y, fine_notes, centre, axis = _fine_fit(gray, calib, centre, axis, L, Wd)
+    wide = MAX_FACE_WIDTH_MM.get(test)
+    if roi is None and wide is not None and _shoelace(outline) / max(np.ptp(outline[:, 0]), 1e-6) > wide:
+        # the region found is the specimen (plate, bead and face): the face is the much
+        # more finely textured band along it, when one stands out
+        band = _textured_band(gray, calib, centre, axis, outline, wide)
+        if band is not None:
+            centre_b, L_b, W_b = band
+            fit_b = _fine_fit(gray, calib, centre_b, axis, L_b, W_b)
+            if _shoelace(fit_b[0]) / max(np.ptp(fit_b[0][:, 0]), 1e-6) <= wide:
+                outline, c_x, c_y, fine_notes, centre, axis = fit_b
+                L0, W0 = L_b, W_b
     warnings.extend(fine_notes)
+    lo_o, hi_o = outline.min(axis=0), outline.max(axis=0)
     fx0, fx1 = float(lo_o[0]), float(hi_o[0])
     fy0, fy1 = float(lo_o[1]), float(hi_o[1])
     length, width = fx1 - fx0, fy1 - fy0
@@ -739,7 +730,6 @@ def find_face(
     if width > length:
         warnings.append("the face is wider than long: check the weld axis on the overlay")
     conf = float(np.clip(min(c_x, c_y) * 1.5, 0.05, 1.0)) * (0.5 + 0.5 * fill)
-    wide = MAX_FACE_WIDTH_MM.get(test)
     if wide is not None and area / length > wide:
         msg = (f"the face found is {area / length:.0f} mm across, more than a {test} face spans "
                f"(about {wide:.0f} mm at most): it is likely the plate or the table")
@@ -802,6 +792,84 @@ def find_face(
         confidence=conf,
         warnings=tuple(warnings),
     )
+
+
+def _fine_fit(gray, calib: Calibration, centre, axis: float, L: float, Wd: float):
+    """:func:`_fine_outline` repeated until its frame fits the face (lengthened where the face
+    runs on, turned when it was across the weld or its edges lean).  Returns the last outline's
+    results and the frame it is in: ``outline, c_x, c_y, notes, centre, axis``."""
+    attempt, grown = 0, 0
+    while True:
+        outline, c_x, c_y, fine_notes, slope, runs_on = _fine_outline(gray, calib, centre, axis, L, Wd)
+        lo_o, hi_o = outline.min(axis=0), outline.max(axis=0)
+        size = hi_o - lo_o
+        mid = 0.5 * (lo_o + hi_o)
+        a = math.radians(axis)
+        new_centre = np.asarray(centre, float) + mid[0] * np.array([math.cos(a), math.sin(a)]) + mid[1] * np.array(
+            [-math.sin(a), math.cos(a)]
+        )
+        if grown < MAX_GROW and any(runs_on) and size[0] >= size[1]:
+            # the coarse region was a stretch of the face (a long smooth defect or a calmer
+            # stretch split it): look further along the open end(s)
+            grown += 1
+            more = max(float(size[0]), 20.0)
+            shift = 0.5 * more * (float(runs_on[1]) - float(runs_on[0]))
+            centre = new_centre + shift * np.array([math.cos(a), math.sin(a)])
+            L, Wd = float(size[0]) + more * (int(runs_on[0]) + int(runs_on[1])), float(size[1])
+            continue
+        if attempt < 2 and size[1] > 1.15 * size[0]:
+            # the coarse region's long side was across the weld: turn the frame
+            attempt += 1
+            centre, axis, L, Wd = new_centre, axis + 90.0, float(size[1]), float(size[0])
+            continue
+        if attempt < 2 and abs(slope) > 0.5:
+            # both long edges lean: the coarse axis was off by that much
+            attempt += 1
+            centre, axis, L, Wd = new_centre, axis + slope, float(size[0]), float(size[1])
+            continue
+        break
+    return outline, c_x, c_y, fine_notes, centre, axis
+
+
+def _textured_band(gray, calib: Calibration, centre, axis: float, outline: np.ndarray, wide: float):
+    """A band along the frame, at most ``wide`` mm across, much more finely textured than the rest.
+
+    Within the outline's extent, the texture (at the scale the fine pass uses) of each row is
+    the upper quartile along the row; the band is the rows above 30 % of the way from the
+    median row to the top row, around the top row, when the top row is at least
+    :data:`BAND_CONTRAST` times the median one and the band is 2 mm to ``wide`` across.
+    Returns ``(centre, length, width)`` of a frame on that band, or None.
+    """
+    q = FINE_PX_PER_MM
+    c_px = apply_h(np.linalg.inv(calib.H), [centre])[0]
+    ppm = calib.px_per_mm_at(float(c_px[0]), float(c_px[1])) if np.all(np.isfinite(c_px)) else q
+    fine_mm, win_mm = max(0.12, 1.5 / max(ppm, 1e-3)), max(0.35, 3.0 / max(ppm, 1e-3))
+    (x0, y0), (x1, y1) = outline.min(axis=0), outline.max(axis=0)
+    w, h = int(math.ceil((x1 - x0) * q)), int(math.ceil((y1 - y0) * q))
+    if w < 2 or h < 2 or w * h > 4e7:
+        return None
+    g = warp_to_face(gray, calib.H, face_frame(centre, axis, (x0, y0), px_per_mm=q), (h, w))
+    e = _texture_energy(g, px_per_mm=q, fine_mm=fine_mm, window_mm=win_mm)
+    e *= 1.0 - _coherence(g, sigma_px=max(0.5, 0.5 * win_mm / 0.35) * q)
+    prof = cv2.blur(np.percentile(e, 75, axis=1).astype(np.float32).reshape(-1, 1), (1, max(1, int(0.5 * q)) | 1)).ravel()
+    base, k = float(np.median(prof)), int(np.argmax(prof))
+    if prof[k] < BAND_CONTRAST * base:
+        return None
+    on = prof >= base + 0.3 * (prof[k] - base)
+    a = b = k
+    while a > 0 and on[a - 1]:
+        a -= 1
+    while b < h - 1 and on[b + 1]:
+        b += 1
+    width = (b - a + 1) / q
+    if not 2.0 <= width <= wide:
+        return None
+    ang = math.radians(axis)
+    mid = (x0 + x1) / 2, y0 + (a + b + 1) / 2 / q
+    c = np.asarray(centre, float) + mid[0] * np.array([math.cos(ang), math.sin(ang)]) + mid[1] * np.array(
+        [-math.sin(ang), math.cos(ang)]
+    )
+    return c, float(x1 - x0), float(width)
 
 
 def _blur_along(p: np.ndarray, q: float) -> np.ndarray:

@@ -57,7 +57,7 @@ def _texture(rng, shape, *, grain_px: float, mean: float, std: float) -> np.ndar
 
 
 def analytic_photo(face_mm=None, *, seed=0, band=None, grain_std=28.0, rough=None, band_value=140.0, table=95.0,
-                   shadow=None, disc=None):
+                   shadow=None, disc=None, plate=None):
     """Photo (rgb, gray) and calibration of a textured polygon on a plain, shaded background.
 
     ``band``: (x0, x1, y_edge, width, inward) mm - an untextured strip of the
@@ -70,6 +70,8 @@ def analytic_photo(face_mm=None, *, seed=0, band=None, grain_std=28.0, rough=Non
     ``shadow``: (x0, x1, y_edge, width, outward, value) mm - a plain strip of grey ``value``
     just outside the straight edge ``y = y_edge`` (the gap or shadow beside a coupon's edge).
     ``disc``: (x, y, r, value) mm - an untextured disc of grey ``value`` in the face (a large pore).
+    ``plate``: (polygon, std) - a polygon around the face with a weaker grain of ``std`` grey
+    levels (the plate and bead of the specimen carrying the face).
     """
     rng = np.random.default_rng(seed)
     w, h = int(CANVAS_MM[0] * CANVAS_PX_PER_MM), int(CANVAS_MM[1] * CANVAS_PX_PER_MM)
@@ -81,6 +83,11 @@ def analytic_photo(face_mm=None, *, seed=0, band=None, grain_std=28.0, rough=Non
         sm = np.zeros((h, w), np.uint8)
         cv2.fillPoly(sm, [np.round(_to_canvas(strip) * 16).astype(np.int32)], 1, shift=4)
         canvas[sm > 0] = sval
+    if plate is not None:
+        pm = np.zeros((h, w), np.uint8)
+        cv2.fillPoly(pm, [np.round(_to_canvas(plate[0]) * 16).astype(np.int32)], 1, shift=4)
+        ptex = _texture(rng, (h, w), grain_px=0.15 * CANVAS_PX_PER_MM, mean=125.0, std=plate[1])
+        canvas = np.where(pm > 0, ptex, canvas)
     if face_mm is not None:
         m = np.zeros((h, w), np.uint8)
         cv2.fillPoly(m, [np.round(_to_canvas(face_mm) * 16).astype(np.int32)], 1, shift=4)
@@ -293,6 +300,22 @@ def test_edge_line_is_not_pulled_out_by_a_lone_stretch():
     y2 = np.r_[np.full(2, 80.0), np.full(6, 100.0), np.full(2, 80.0)] + np.array([0.4, -0.3, 0.2, 0.0, -0.2, 0.3, 0.5, -0.4, 0.1, 0.0])
     a2, b2 = _edge_line(x, y2, +1.0, q=q)
     assert a2 * x.mean() + b2 == pytest.approx(80.0, abs=1.0)
+
+
+def test_face_band_inside_a_region_too_wide_for_a_face(monkeypatch):
+    """When the region found is the specimen (a 40 mm wide plate with a weaker grain around the
+    face, too wide for a fillet-break face), the face is the finely textured band along it: the
+    outline is the polygon's (analytic geometry), not a refusal and not the plate."""
+    from surfaces import face as face_mod
+
+    plate = ([(20.0, 25.0), (150.0, 25.0), (150.0, 65.0), (20.0, 65.0)], 9.0)
+    rgb, gray, calib = analytic_photo(RECT, seed=17, plate=plate)
+    # the rough frame: the whole plate (X 20..150, Y 25..65): centre, axis, length, width, fill, where
+    monkeypatch.setattr(face_mod, "_coarse_face", lambda *a, **k: (np.array([85.0, 45.0]), 0.0, 130.0, 40.0, 1.0, "photo"))
+    face = find_face(rgb, gray, calib, test="fillet-break")
+    assert face.width_mm == pytest.approx(RECT[2][1] - RECT[1][1], rel=0.06)  # the polygon's Y extent
+    assert face.area_mm2 == pytest.approx(shoelace(RECT), rel=0.04)  # analytic geometry
+    assert iou_plane(plane_outline(face, calib), np.asarray(RECT)) > 0.9
 
 
 def test_rim_of_the_face_brightness_must_end_in_a_step():
