@@ -1391,14 +1391,15 @@ def _robust_sigma(x: np.ndarray) -> float:
     return float(1.4826 * np.median(np.abs(x - np.median(x)))) or 1e-3
 
 
-def _extend_tips(region, patch, b, contrast, level, inner):
+def _extend_tips(region, depth, core, level, inner):
     """Follow a thin opening out to its tapering tips.
 
     A crack narrows to nothing at its ends; once narrower than the photo's
     blur it is no longer half as dark as its core, so the half-depth outline
     stops short.  For an elongated region the outline is taken at
-    :data:`TIP_DEPTH` of the depth instead, as long as that only lengthens it
-    (its area may at most double).
+    :data:`TIP_DEPTH` of the core's relative depth ``core`` instead, as long
+    as that only lengthens it (its area may at most double).  ``depth`` is
+    the relative darkness against the local background, pixel by pixel.
     """
     ys, xs = np.nonzero(region)
     if len(xs) < 6:
@@ -1407,8 +1408,8 @@ def _extend_tips(region, patch, b, contrast, level, inner):
     ev = np.sort(np.linalg.eigvalsh(cov))
     if ev[0] <= 0 or math.sqrt(ev[1] / ev[0]) < 3.0:
         return region, level
-    lvl2 = b - TIP_DEPTH * contrast
-    rl, _ = ndi.label((patch < lvl2) & inner, structure=np.ones((3, 3)))
+    lvl2 = TIP_DEPTH * core
+    rl, _ = ndi.label((depth > lvl2) & inner, structure=np.ones((3, 3)))
     keep = np.unique(rl[region])
     keep = keep[keep > 0]
     if not keep.size:
@@ -1432,14 +1433,22 @@ def _trace_opening(i, sl, lab, gs, bg, ridge_mask, labc, inner_mask, *, mm: floa
     R0, R1, C0, C1 = max(0, r0 - pad), min(h, r1 + pad), max(0, c0 - pad), min(w, c1 + pad)
     seed = lab[R0:R1, C0:C1] == i
     patch = gs[R0:R1, C0:C1]
-    b = float(np.median(bg[R0:R1, C0:C1][seed]))
+    bgp = np.maximum(bg[R0:R1, C0:C1], 1.0)
+    b = float(np.median(bgp[seed]))
     core = float(np.percentile(patch[seed], 5))
     contrast = b - core
     if contrast <= 0:
         return None
-    level = b - 0.5 * contrast
-    # the outline is the half-depth level itself, not the (looser) detection threshold
-    region = patch < level
+    # the outline is at half the core's depth, each pixel's depth taken against its own
+    # background (relative darkness): where the surface's shading changes across the
+    # opening (the border of a highlight), one grey level would run on into the darker
+    # surface beside it
+    depth = 1.0 - patch / bgp
+    core_d = float(np.percentile(depth[seed], 95))
+    if core_d <= 0:
+        return None
+    level = 0.5 * core_d
+    region = depth > level
     rl, _ = ndi.label(region, structure=np.ones((3, 3)))
     keep = np.unique(rl[seed & region])
     keep = keep[keep > 0]
@@ -1465,10 +1474,11 @@ def _trace_opening(i, sl, lab, gs, bg, ridge_mask, labc, inner_mask, *, mm: floa
         return None
     if region.sum() < 2:
         return None
-    region, level = _extend_tips(region, patch, b, contrast, level, inner)
-    val = np.where(region, np.minimum(patch, level - 1), np.maximum(patch, level + 1))
-    val = np.where(ndi.binary_dilation(region, iterations=2), val, level + 1)
-    cs = skm.find_contours(np.pad(val, 1, constant_values=level + 1), level)
+    region, level = _extend_tips(region, depth, core_d, level, inner)
+    eps = 0.01 * core_d
+    val = np.where(region, np.maximum(depth, level + eps), np.minimum(depth, level - eps))
+    val = np.where(ndi.binary_dilation(region, iterations=2), val, level - eps)
+    cs = skm.find_contours(np.pad(val, 1, constant_values=level - eps), level)
     if not cs:
         return None
     cont = max(cs, key=len)[:, ::-1] - 1 + np.array([C0, R0])

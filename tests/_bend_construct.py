@@ -166,3 +166,40 @@ def build(
                         tilt_deg=tilt_deg, marker_mm=mk, markers=(MarkerHit(0, cpx, side, side / 6, 0.1),))
     return Built(rgb, calib, Hpp, openings or [], truth, {"R": R, "width": width, "u_max": u_max, "axis_deg": axis_deg,
                                                           "ux": ux, "uy": uy})
+
+
+def shaded_face(seed: int, *, step: bool = True, length: float = 2.6, width: float = 0.25, angle_deg: float = 30.0,
+                depth: float = 0.45, ppm: float = 16.0):
+    """A rectified coupon face (30 x 14 mm at ``ppm``) with one thin crack across the border of a highlight.
+
+    The surface brightness rises from 135 to 240 grey across ``x = 15 mm``
+    (a logistic step 0.7 mm wide: the border of a highlight on the curved
+    surface) when ``step``; a streaky grain along x (5 %) and the crack
+    darken it multiplicatively.  The crack is a capsule (a line with round
+    caps) of centre-line ``length`` and ``width`` mm centred just past the
+    border: its greatest dimension is ``length + width`` (analytic geometry).
+
+    Returns ``(rgb, greatest_mm, centre_mm)``.
+    """
+    rng = np.random.default_rng(seed)
+    W, H = 30.0, 14.0
+    h, w = int(H * ppm), int(W * ppm)
+    yy, xx = np.mgrid[0:h, 0:w].astype(np.float32)
+    X = (xx + 0.5) / ppm
+    xb = 15.0
+    B = 135.0 + (105.0 / (1 + np.exp(-(X - xb) / 0.7)) if step else 0.0)
+    g = rng.standard_normal((int(H / 0.25) + 3, int(W / 1.5) + 3)).astype(np.float32)
+    grain = cv2.resize(g, (int((W / 1.5 + 3) * 1.5 * ppm), int((H / 0.25 + 3) * 0.25 * ppm)), interpolation=cv2.INTER_CUBIC)
+    img = B * (1 + 0.05 * grain[:h, :w])
+    a = math.radians(angle_deg)
+    d = np.array([math.cos(a), math.sin(a)])
+    c0 = np.array([xb + 0.3, 7.0]) - length / 2 * d
+    c1 = c0 + length * d
+    f = 4  # drawn 4x finer, then averaged down (anti-aliased)
+    m = np.zeros((h * f, w * f), np.uint8)
+    cv2.line(m, tuple(int(v) for v in np.round(c0 * ppm * f)), tuple(int(v) for v in np.round(c1 * ppm * f)), 255,
+             int(round(width * ppm * f)), lineType=cv2.LINE_AA)
+    dark = cv2.resize(m.astype(np.float32) / 255, (w, h), interpolation=cv2.INTER_AREA)
+    img = cv2.GaussianBlur(img * (1 - depth * dark), (0, 0), 0.8) + rng.normal(0, 1.5, (h, w))
+    rgb = np.repeat(np.clip(img, 0, 255).astype(np.uint8)[..., None], 3, axis=2)
+    return rgb, length + width, 0.5 * (c0 + c1)

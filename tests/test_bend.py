@@ -29,7 +29,7 @@ from surfaces.measure import measure
 from surfaces.model import Calibration, Face, FaceError, Settings, SurfacesError
 from surfaces.segment import Detection
 
-from _bend_construct import Opening, build
+from _bend_construct import Opening, build, shaded_face
 
 
 # --------------------------------------------------------------------------
@@ -558,3 +558,23 @@ def test_bend_openings_carry_kind_shares_with_the_chosen_kind_first():
     # an opening on the crack/pore threshold is not called either with certainty
     sh = bend_kind_shares(cases["in between"], _bend_kind(cases["in between"])[0])
     assert sorted(sh.values())[-2] >= 0.2
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_a_crack_across_the_border_of_a_highlight_is_outlined_at_its_own_depth(seed):
+    # truth by construction (tests/_bend_construct.shaded_face): a capsule of centre-line
+    # 2.6 mm and width 0.25 mm, greatest dimension 2.85 mm (analytic geometry), lying across
+    # a step of the surface's brightness.  One grey level for the whole outline ran on into
+    # the darker grain beside the highlight (4.1 mm measured before each pixel's depth was
+    # taken against its own background); flat and shaded must now measure the same.
+    sizes = {}
+    for step in (False, True):
+        rgb, want, centre = shaded_face(seed, step=step)
+        dets = bend.find_openings(rgb, px_per_mm=16.0, photo_px_per_mm=8.0)
+        near = [d for d in dets if math.hypot(d.features["cx_mm"] - centre[0], d.features["cy_mm"] - centre[1]) < 1.0]
+        assert len(near) == 1, [(d.features["cx_mm"], d.features["cy_mm"]) for d in dets]
+        d = near[0]
+        assert d.kind == "crack"
+        assert d.features["greatest_mm"] == pytest.approx(want, abs=max(0.15, 0.05 * want)), step
+        sizes[step] = d.features["greatest_mm"]
+    assert abs(sizes[True] - sizes[False]) < 0.1
