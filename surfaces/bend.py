@@ -136,6 +136,9 @@ MERGE_GAP_MM = 0.4  # pieces of one opening closer than this are one opening
 LINE_MM = 1.0  # length of the oriented line filter
 LINE_SIGMAS = 7.0  # its detection threshold, in its own robust spreads
 TIP_DEPTH = 0.33  # fraction of an elongated opening's depth at which its outline is taken
+#: Grey level (8-bit) at and above which the photo shows the surface clipped at white.
+CLIP_GREY = 250.0
+CLIP_REACH_MM = 0.25  # ... within this distance of a clipped pixel
 
 
 # --------------------------------------------------------------------------
@@ -1392,6 +1395,15 @@ def _robust_sigma(x: np.ndarray) -> float:
     return float(1.4826 * np.median(np.abs(x - np.median(x)))) or 1e-3
 
 
+def _elongated(region: np.ndarray) -> bool:
+    """True for a region at least 3 times as long as wide (moment ellipse): a thin opening with tips."""
+    ys, xs = np.nonzero(region)
+    if len(xs) < 6:
+        return False
+    ev = np.sort(np.linalg.eigvalsh(np.cov(np.c_[xs, ys].T.astype(float))))
+    return bool(ev[0] > 0 and math.sqrt(ev[1] / ev[0]) >= 3.0)
+
+
 def _extend_tips(region, depth, core, level, inner):
     """Follow a thin opening out to its tapering tips.
 
@@ -1402,12 +1414,7 @@ def _extend_tips(region, depth, core, level, inner):
     as that only lengthens it (its area may at most double).  ``depth`` is
     the relative darkness against the local background, pixel by pixel.
     """
-    ys, xs = np.nonzero(region)
-    if len(xs) < 6:
-        return region, level
-    cov = np.cov(np.c_[xs, ys].T.astype(float))
-    ev = np.sort(np.linalg.eigvalsh(cov))
-    if ev[0] <= 0 or math.sqrt(ev[1] / ev[0]) < 3.0:
+    if not _elongated(region):
         return region, level
     lvl2 = TIP_DEPTH * core
     rl, _ = ndi.label((depth > lvl2) & inner, structure=np.ones((3, 3)))
@@ -1419,6 +1426,31 @@ def _extend_tips(region, depth, core, level, inner):
     if reg2.sum() > 2.0 * region.sum():
         return region, level
     return ndi.binary_fill_holes(reg2), lvl2
+
+
+def _into_clipped_light(region, patch, bgp, inner, *, mm: float):
+    """Follow an opening into surface the photo shows clipped at white (a highlight).
+
+    Where the surface is brighter than the sensor records, its true
+    brightness is unknown and an opening's depth against it is understated:
+    the shallow parts of a thin opening (a crack's tapering tips) read as
+    white as the surface.  For an elongated opening (:func:`_elongated`;
+    a rounded one's outline would take in its blur instead), within clipped surface (the background at :data:`CLIP_GREY` or more and a
+    clipped pixel within :data:`CLIP_REACH_MM`), every pixel darker than
+    :data:`CLIP_GREY` joined to the opening is part of it.
+    """
+    clipped = bgp >= CLIP_GREY
+    if not clipped.any() or not _elongated(region):
+        return region
+    ring = ndi.binary_dilation(region, iterations=2) & ~region
+    if not ring.any() or float(np.mean(clipped[ring])) < 0.3:
+        return region  # the surface around the opening is not clipped
+    k = max(3, int(round(2 * CLIP_REACH_MM * mm)) | 1)
+    clipped &= ndi.maximum_filter(patch, size=k) >= CLIP_GREY
+    rl, _ = ndi.label(((patch < CLIP_GREY) & clipped & inner) | region, structure=np.ones((3, 3)))
+    keep = np.unique(rl[region])
+    keep = keep[keep > 0]
+    return ndi.binary_fill_holes(np.isin(rl, keep) | region)
 
 
 def _disk(radius_px: float) -> np.ndarray:
@@ -1475,6 +1507,7 @@ def _trace_opening(i, sl, lab, gs, bg, ridge_mask, labc, inner_mask, *, mm: floa
         return None
     if region.sum() < 2:
         return None
+    region = _into_clipped_light(region, patch, bgp, inner, mm=mm)
     region, level = _extend_tips(region, depth, core_d, level, inner)
     eps = 0.01 * core_d
     val = np.where(region, np.maximum(depth, level + eps), np.minimum(depth, level - eps))

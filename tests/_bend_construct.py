@@ -169,15 +169,21 @@ def build(
 
 
 def shaded_face(seed: int, *, step: bool = True, length: float = 2.6, width: float = 0.25, angle_deg: float = 30.0,
-                depth: float = 0.45, ppm: float = 16.0):
-    """A rectified coupon face (30 x 14 mm at ``ppm``) with one thin crack across the border of a highlight.
+                depth: float = 0.45, ppm: float = 16.0, surface: float = 135.0, centre_x: float = 15.3,
+                taper: bool = False):
+    """A rectified coupon face (30 x 14 mm at ``ppm``) with one thin crack, by default across the border of a highlight.
 
-    The surface brightness rises from 135 to 240 grey across ``x = 15 mm``
-    (a logistic step 0.7 mm wide: the border of a highlight on the curved
-    surface) when ``step``; a streaky grain along x (5 %) and the crack
-    darken it multiplicatively.  The crack is a capsule (a line with round
-    caps) of centre-line ``length`` and ``width`` mm centred just past the
-    border: its greatest dimension is ``length + width`` (analytic geometry).
+    The surface brightness rises from ``surface`` to ``surface + 105`` grey
+    across ``x = 15 mm`` (a logistic step 0.7 mm wide: the border of a
+    highlight on the curved surface) when ``step``, else stays at
+    ``surface``; above 255 the 8-bit photo clips it at white.  A streaky
+    grain along x (5 %) and the crack darken it multiplicatively.  The crack
+    is a capsule (a line with round caps) of centre-line ``length`` and
+    ``width`` mm centred at ``(centre_x, 7)`` mm: its greatest dimension is
+    ``length + width`` (analytic geometry).  With ``taper`` it narrows to
+    nothing at both tips instead (width ~ sqrt(sin(pi t)), as in
+    :func:`build`) and its greatest dimension is the largest distance
+    between its outline's vertices.
 
     Returns ``(rgb, greatest_mm, centre_mm)``.
     """
@@ -187,19 +193,30 @@ def shaded_face(seed: int, *, step: bool = True, length: float = 2.6, width: flo
     yy, xx = np.mgrid[0:h, 0:w].astype(np.float32)
     X = (xx + 0.5) / ppm
     xb = 15.0
-    B = 135.0 + (105.0 / (1 + np.exp(-(X - xb) / 0.7)) if step else 0.0)
+    B = surface + (105.0 / (1 + np.exp(-(X - xb) / 0.7)) if step else 0.0)
     g = rng.standard_normal((int(H / 0.25) + 3, int(W / 1.5) + 3)).astype(np.float32)
     grain = cv2.resize(g, (int((W / 1.5 + 3) * 1.5 * ppm), int((H / 0.25 + 3) * 0.25 * ppm)), interpolation=cv2.INTER_CUBIC)
     img = B * (1 + 0.05 * grain[:h, :w])
     a = math.radians(angle_deg)
     d = np.array([math.cos(a), math.sin(a)])
-    c0 = np.array([xb + 0.3, 7.0]) - length / 2 * d
+    c0 = np.array([centre_x, 7.0]) - length / 2 * d
     c1 = c0 + length * d
     f = 4  # drawn 4x finer, then averaged down (anti-aliased)
     m = np.zeros((h * f, w * f), np.uint8)
-    cv2.line(m, tuple(int(v) for v in np.round(c0 * ppm * f)), tuple(int(v) for v in np.round(c1 * ppm * f)), 255,
-             int(round(width * ppm * f)), lineType=cv2.LINE_AA)
+    greatest = length + width
+    if taper:
+        # a crack narrowing to nothing at both tips (width ~ sqrt(sin(pi t)), as in build())
+        t = np.linspace(0.0, 1.0, 81)
+        half = 0.5 * width * np.sqrt(np.clip(np.sin(np.pi * t) * 1.6, 0, 1))
+        n = np.array([-d[1], d[0]])
+        centre = c0[None] + t[:, None] * length * d[None]
+        poly = np.r_[centre + half[:, None] * n, (centre - half[:, None] * n)[::-1]]
+        cv2.fillPoly(m, [np.round(poly * ppm * f).astype(np.int32)], 255, lineType=cv2.LINE_AA)
+        greatest = float(np.sqrt(((poly[:, None] - poly[None]) ** 2).sum(-1)).max())
+    else:
+        cv2.line(m, tuple(int(v) for v in np.round(c0 * ppm * f)), tuple(int(v) for v in np.round(c1 * ppm * f)), 255,
+                 int(round(width * ppm * f)), lineType=cv2.LINE_AA)
     dark = cv2.resize(m.astype(np.float32) / 255, (w, h), interpolation=cv2.INTER_AREA)
     img = cv2.GaussianBlur(img * (1 - depth * dark), (0, 0), 0.8) + rng.normal(0, 1.5, (h, w))
     rgb = np.repeat(np.clip(img, 0, 255).astype(np.uint8)[..., None], 3, axis=2)
-    return rgb, length + width, 0.5 * (c0 + c1)
+    return rgb, greatest, 0.5 * (c0 + c1)

@@ -611,3 +611,23 @@ def test_rounded_openings_are_told_pore_or_slag_and_unresolved_ones_may_be_crack
     blurred = bend_kind_shares(dict(small, photo_px_per_mm=0.6 * UNRESOLVED_PX / 0.5), "pore")
     assert resolved["crack"] < 0.1
     assert blurred["crack"] >= KIND_DOUBT_P and sorted(blurred, key=blurred.get)[-2] == "crack"
+
+
+@pytest.mark.parametrize("seed", [0, 1])
+def test_a_crack_in_light_clipped_at_white_keeps_its_tips(seed):
+    # truth by construction (tests/_bend_construct.shaded_face, taper=True): a crack 3.2 mm
+    # long narrowing to nothing at both tips, on surface the 8-bit photo clips at white
+    # (240 + 105 grey).  Its shallow tips read as white as the surface at half depth
+    # against 255 (3.0 mm measured before following it into the clipped light); on unclipped
+    # surface (135 + 105 grey) the same crack measures within 0.1 mm.
+    got = {}
+    for surface in (135.0, 240.0):
+        rgb, want, centre = shaded_face(seed, surface=surface, depth=0.6, width=0.3, length=3.2, angle_deg=80.0,
+                                        centre_x=21.0, taper=True)
+        assert surface < 200 or float(np.mean(rgb[:, 320:, 0] >= 250)) > 0.9  # the crack's side is clipped
+        dets = bend.find_openings(rgb, px_per_mm=16.0, photo_px_per_mm=8.0)
+        near = [d for d in dets if math.hypot(d.features["cx_mm"] - centre[0], d.features["cy_mm"] - centre[1]) < 1.0]
+        assert len(near) == 1 and near[0].kind == "crack"
+        got[surface] = near[0].features["greatest_mm"]
+        assert got[surface] == pytest.approx(want, abs=0.1), surface
+    assert abs(got[240.0] - got[135.0]) < 0.12
