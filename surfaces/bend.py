@@ -139,6 +139,9 @@ TIP_DEPTH = 0.33  # fraction of an elongated opening's depth at which its outlin
 #: Grey level (8-bit) at and above which the photo shows the surface clipped at white.
 CLIP_GREY = 250.0
 CLIP_REACH_MM = 0.25  # ... within this distance of a clipped pixel
+#: The texture's line family (grinding marks) is read only when at least this share of the
+#: surface is not clipped at white.
+TEXTURE_SEEN_SHARE = 0.2
 
 
 # --------------------------------------------------------------------------
@@ -1259,7 +1262,12 @@ def find_openings(
     ridge_mask = apply_hysteresis_threshold(np.where(seed_mask, ridge - rmed, 0), sensitivity * 7 * rsig, sensitivity * 14 * rsig)
     ridge_mask &= rel > 0.6 * lo  # dark, not the bright side of a highlight
     # faint thin openings in strong texture: darkness averaged along short oriented lines
-    line_mask, theta_lines, coherence = _line_evidence(rel, seed_mask, px_per_mm=mm, resolve_mm=resolve, sensitivity=sensitivity)
+    # the texture's own line family is read where the photo shows texture: not on surface
+    # clipped at white, where the only lines left are the openings themselves
+    seen = seed_mask & (bg < CLIP_GREY)
+    textured = seen if seen.sum() >= TEXTURE_SEEN_SHARE * seed_mask.sum() else None
+    line_mask, theta_lines, coherence = _line_evidence(rel, seed_mask, px_per_mm=mm, resolve_mm=resolve,
+                                                       sensitivity=sensitivity, texture=textured)
     line_mask &= rel > 0.5 * lo
 
     # one opening seen as several pieces (a jagged crack, the two lips of a wide one) is one
@@ -1312,7 +1320,8 @@ def find_openings(
     return dets
 
 
-def _line_evidence(rel: np.ndarray, valid: np.ndarray, *, px_per_mm: float, resolve_mm: float, sensitivity: float = 1.0) -> np.ndarray:
+def _line_evidence(rel: np.ndarray, valid: np.ndarray, *, px_per_mm: float, resolve_mm: float, sensitivity: float = 1.0,
+                   texture: np.ndarray | None = None) -> np.ndarray:
     """Pixels on a short dark line, of any orientation, standing out of the texture.
 
     ``rel`` (darkness relative to the background) is filtered with a
@@ -1323,6 +1332,10 @@ def _line_evidence(rel: np.ndarray, valid: np.ndarray, *, px_per_mm: float, reso
     direction's bar.  Averaging along the line lifts a thin opening out of
     texture whose grain is shorter than the line.  Hysteresis at
     :data:`LINE_SIGMAS` (high) and half of it (low).
+
+    ``texture`` (default ``valid``) is where the spreads are read; None
+    when too little texture is seen (surface clipped at white) also gives an
+    anisotropy of 0: no line family can be told.
 
     Returns
     -------
@@ -1350,7 +1363,7 @@ def _line_evidence(rel: np.ndarray, valid: np.ndarray, *, px_per_mm: float, reso
         surround = np.exp(-0.5 * (v / (3 * sw)) ** 2) * along
         ker = line / line.sum() - surround / surround.sum()
         resp = cv2.filter2D(src, cv2.CV_32F, ker, borderType=cv2.BORDER_REFLECT)
-        vals = resp[valid]
+        vals = resp[valid if texture is None else texture]
         med = float(np.median(vals))
         sig = float(1.4826 * np.median(np.abs(vals - med))) or 1e-6
         spreads.append(sig)
@@ -1359,6 +1372,8 @@ def _line_evidence(rel: np.ndarray, valid: np.ndarray, *, px_per_mm: float, reso
     mask = apply_hysteresis_threshold(best, 0.5 * LINE_SIGMAS * sensitivity, LINE_SIGMAS * sensitivity)
     sp = np.asarray(spreads)
     k = int(np.argmax(sp))
+    if texture is None:
+        return mask, math.pi * k / 12, 0.0
     return mask, math.pi * k / 12, float((sp[k] - np.median(sp)) / sp[k])
 
 

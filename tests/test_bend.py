@@ -631,3 +631,16 @@ def test_a_crack_in_light_clipped_at_white_keeps_its_tips(seed):
         got[surface] = near[0].features["greatest_mm"]
         assert got[surface] == pytest.approx(want, abs=0.1), surface
     assert abs(got[240.0] - got[135.0]) < 0.12
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_a_crack_on_a_coupon_wholly_clipped_at_white_is_not_taken_for_a_grinding_mark(seed):
+    # by construction (tests/_bend_construct.shaded_face, surface 300 + 105 grey): the whole
+    # face reads 255 but for one 3.35 mm crack.  The texture's line family was read from
+    # that crack itself, which then fell under the grinding-mark rule and nothing was found.
+    rgb, want, centre = shaded_face(seed, surface=300.0, depth=0.5, width=0.15, length=3.2, angle_deg=80.0, centre_x=21.0)
+    assert float(np.mean(rgb[..., 0] >= 254)) > 0.95
+    dets = bend.find_openings(rgb, px_per_mm=16.0, photo_px_per_mm=8.0)
+    near = [d for d in dets if math.hypot(d.features["cx_mm"] - centre[0], d.features["cy_mm"] - centre[1]) < 1.5]
+    assert near and all(d.kind == "crack" for d in near)
+    assert len(dets) <= 2
