@@ -64,6 +64,9 @@ END_BOTH_RATIO = 1.2
 END_BOTH_SHARE = 0.05
 #: An end whose contrast fades over more than this (mm) is placed at the fade's foot.
 END_RAMP_MM = 1.0
+#: ... its foot, when the table beyond the end stands above the low level, is this share of
+#: the way from the table's level up to the fade's half-way level.
+END_FOOT_SHARE = 0.25
 #: When the coupon runs on to the end of the strip looked at, look this much further
 #: (or half the coarse length), at most this many times.
 EXTEND_MM = 20.0
@@ -1019,8 +1022,10 @@ def _end_step(c: np.ndarray, at: int, *, span: int, arm: int, outward: int, low:
     ``low`` (the level below which there is no coupon) and ``ramp``: a drop
     that fades gradually (a dark flank turning away ever darker) is followed
     out to its foot, the first crossing, outwards, of ``low`` (when the
-    table beyond ``at`` lies below it), if that is more than ``ramp``
-    samples beyond the half-way point (a sharp step keeps its half-way point).
+    table beyond ``at`` lies below it; else of :data:`END_FOOT_SHARE` of the
+    way from the table's level up to the half-way level), if that is more
+    than ``ramp`` samples beyond the half-way point (a sharp step keeps its
+    half-way point).
     """
     n = len(c)
     cs = np.r_[0.0, np.cumsum(np.asarray(c, np.float64))]
@@ -1045,9 +1050,12 @@ def _end_step(c: np.ndarray, at: int, *, span: int, arm: int, outward: int, low:
         return x_half
     beyond = c[at + 1 : at + 1 + arm] if outward > 0 else c[max(0, at - arm) : at]
     floor = float(np.median(beyond)) if len(beyond) else float(out)
-    if not floor < low < lv:
+    # the foot: where the contrast has come down to the table's own level beyond the end:
+    # ``low``, or when the table beyond stands above that (a mat's lines along the edges),
+    # a share of the way from the table's level up to the drop's half-way level
+    foot = low if floor < low else floor + END_FOOT_SHARE * (lv - floor)
+    if not foot < lv:
         return x_half
-    foot = low
     q = int(math.floor(x_half)) if outward > 0 else int(math.ceil(x_half))
     stop = min(n - 2, q + span) if outward > 0 else max(1, q - span)
     while q != stop:

@@ -644,3 +644,23 @@ def test_a_crack_on_a_coupon_wholly_clipped_at_white_is_not_taken_for_a_grinding
     near = [d for d in dets if math.hypot(d.features["cx_mm"] - centre[0], d.features["cy_mm"] - centre[1]) < 1.5]
     assert near and all(d.kind == "crack" for d in near)
     assert len(dets) <= 2
+
+
+def test_a_fading_end_over_a_table_above_the_low_level_is_placed_at_its_foot():
+    # analytic profile: coupon at 50 to column 250, a dark flank fading steeply to 25 at 262
+    # and slowly to 16 at 290, where it ends on a table standing at 13 (above the low level
+    # 3.6: a mat's lines along the edges).  The largest drop is on the steep part, but the
+    # coupon goes on to 290: the end is the foot, where the fade has come down to within
+    # END_FOOT_SHARE of the way from the table's level to the drop's half-way level.
+    x = np.arange(400, dtype=float)
+    c = np.where(x < 250, 50.0, np.where(x < 262, 50.0 - 25.0 * (x - 250) / 12, 25.0 - 9.0 * (x - 262) / 28))
+    c[290:] = 13.0
+    at, arm, span = 292, 12, 32
+    drops = [np.mean(c[k - arm : k]) - np.mean(c[k : k + arm]) for k in range(at - span, at + span + 1)]
+    k = at - span + int(np.argmax(drops))
+    lv = 0.5 * (np.mean(c[k - arm : k]) + np.mean(c[k : k + arm]))
+    level = 13.0 + bend.END_FOOT_SHARE * (lv - 13.0)
+    want = 262 + 28 * (25.0 - level) / 9.0  # where the slow fade crosses that level
+    got = bend._end_step(c, at, span=span, arm=arm, outward=+1, low=3.6, ramp=8)
+    assert k < 270 and 280 < want < 290  # the largest drop is on the steep part; the foot near the table
+    assert got == pytest.approx(want, abs=0.5)
