@@ -133,6 +133,11 @@ SCRATCH_ALIGN_DEG = 12.0
 SOFT_EDGE_PER_MM = 2.0  # an opening's walls go from dark to bright within about 0.5 mm
 LOCAL_GRAIN_MM = 3.0  # the neighbourhood (beyond the opening's box) whose texture grain it must stand out of
 LOCAL_MIN_CNR = 6.5  # ... by this many of that grain's spreads
+#: ... or, for an opening at least this many times as long as wide and deeper than a grinding
+#: mark (SCRATCH_MAX_CONTRAST), by as many spreads of the grain averaged along lines of its own
+#: direction and length (at most this long, mm)
+LINE_GRAIN_ASPECT = 4.0
+LINE_GRAIN_MAX_MM = 4.0
 MIN_CNR = 4.5  # an opening's depth must stand this many texture spreads out of the surface
 SCRATCH_MAX_CONTRAST = 0.3  # grinding marks are shallow: less than 30 % darker than the surface
 MERGE_GAP_MM = 0.4  # pieces of one opening closer than this are one opening
@@ -1311,7 +1316,15 @@ def find_openings(
         # grain's depth there is no opening, however smooth the rest of the coupon is
         f["local_cnr"] = f["contrast"] / max(_local_grain(rel, cand, seed_mask, f, mm=mm), 1e-4)
         if f["local_cnr"] < LOCAL_MIN_CNR:
-            continue
+            # ... unless it is a deep line the grain does not make: averaged along the opening's
+            # own direction and length, grain blobs average out and a crack does not (shallow
+            # lines are left out: grain foreshortened on a steep flank streaks along the coupon,
+            # and grinding marks are shallow too)
+            if f["aspect"] < LINE_GRAIN_ASPECT or f["contrast"] < SCRATCH_MAX_CONTRAST:
+                continue
+            f["line_local_cnr"] = _line_local_cnr(rel, cand, seed_mask, f, d.contour, mm=mm, resolve_mm=resolve)
+            if f["line_local_cnr"] < LOCAL_MIN_CNR:
+                continue
         if f["aspect"] < 2.6 and f["edge_sharpness"] < SOFT_EDGE_PER_MM and f["cnr"] < 10:
             continue  # a soft dark patch (shading, a smudge) rather than an opening with walls
         aligned = _angle_diff(f["angle_rad"], theta_lines) < math.radians(SCRATCH_ALIGN_DEG)
@@ -1409,6 +1422,63 @@ def _local_grain(rel: np.ndarray, cand: np.ndarray, valid: np.ndarray, f: dict, 
         if vals.size >= 50:
             spreads.append(_robust_sigma(vals))
     return max(spreads) if spreads else _robust_sigma(rel[valid])
+
+
+def _line_local_cnr(rel: np.ndarray, cand: np.ndarray, valid: np.ndarray, f: dict, contour, *, mm: float,
+                    resolve_mm: float) -> float:
+    """How far a thin opening stands out of its neighbourhood's texture as a line of its own direction and length.
+
+    ``rel`` is averaged along short lines in the opening's direction
+    (``angle_rad``), as long as the opening (at most :data:`LINE_GRAIN_MAX_MM`)
+    and about the photo's blur across; the opening's strongest response is
+    compared with the same response over the neighbourhood (the opening's box
+    widened by :data:`LOCAL_GRAIN_MM` plus the line's length, without any
+    candidate openings), its four halves taken separately and the coarsest
+    counting, as in :func:`_local_grain`.  Grain of blobs shorter than the line
+    averages out along it; a crack does not.  Returns the response in units of
+    the neighbourhood's robust spread (0 when there is too little
+    neighbourhood).
+    """
+    h, w = rel.shape
+    Lk = min(float(f["greatest_mm"]), LINE_GRAIN_MAX_MM)
+    half = 0.5 * Lk * mm
+    sw = max(0.06, 0.7 * resolve_mm) * mm
+    rk = int(math.ceil(half + 3 * sw)) + 1
+    yy, xx = np.mgrid[-rk : rk + 1, -rk : rk + 1].astype(np.float32)
+    th = float(f["angle_rad"])
+    u = xx * math.cos(th) + yy * math.sin(th)
+    v = -xx * math.sin(th) + yy * math.cos(th)
+    ker = np.exp(-0.5 * (v / sw) ** 2) * np.clip(half + 0.5 - np.abs(u), 0, 1)
+    ker /= ker.sum()
+    r = int(round((LOCAL_GRAIN_MM + Lk) * mm))
+    c0, c1 = max(0, int(f["x0_mm"] * mm) - r), min(w, int(math.ceil(f["x1_mm"] * mm)) + r + 1)
+    r0, r1 = max(0, int(f["y0_mm"] * mm) - r), min(h, int(math.ceil(f["y1_mm"] * mm)) + r + 1)
+    ok = valid[r0:r1, c0:c1]
+    resp = cv2.filter2D(np.where(ok, rel[r0:r1, c0:c1], 0).astype(np.float32), cv2.CV_32F, ker,
+                        borderType=cv2.BORDER_REFLECT)
+    region = np.zeros(ok.shape, np.uint8)
+    cv2.fillPoly(region, [np.round(np.asarray(contour) - [c0, r0]).astype(np.int32).reshape(-1, 1, 2)], 1)
+    region = region > 0
+    if not region.any():
+        return 0.0
+    peak = float(resp[region].max())
+    away = cv2.dilate((cand[r0:r1, c0:c1] | region).astype(np.uint8), _disk(half + 2 * sw)) > 0
+    # the kernel reaches rk past a pixel: keep clear of the window's and the valid area's edges
+    inside = cv2.erode(ok.astype(np.uint8), np.ones((2 * rk + 1, 2 * rk + 1), np.uint8), borderType=cv2.BORDER_CONSTANT,
+                       borderValue=0) > 0
+    keep = inside & ~away
+    cc = int(round(0.5 * (f["x0_mm"] + f["x1_mm"]) * mm)) - c0
+    cr = int(round(0.5 * (f["y0_mm"] + f["y1_mm"]) * mm)) - r0
+    spreads, meds = [], []
+    for part in (np.s_[:, :cc], np.s_[:, cc:], np.s_[:cr, :], np.s_[cr:, :]):
+        vals = resp[part][keep[part]]
+        if vals.size >= 50:
+            spreads.append(_robust_sigma(vals))
+            meds.append(float(np.median(vals)))
+    if not spreads:
+        return 0.0
+    k = int(np.argmax(spreads))
+    return (peak - meds[k]) / max(spreads[k], 1e-4)
 
 
 def _robust_sigma(x: np.ndarray) -> float:
