@@ -19,7 +19,11 @@ height of the bend's apex.  Three things differ from a fracture face:
   running into the edge is kept.  Grinding and machining marks are long,
   shallow and parallel: candidates aligned with the face's dominant line
   direction must be much deeper than that family to count.  The orange-peel
-  texture of stretched metal is the noise the thresholds are scaled by.
+  texture of stretched metal is the noise the thresholds are scaled by.  An
+  opening is outlined at half its depth, each pixel's depth taken against
+  its own background (the shading changes across a highlight's border), and
+  followed into surface the photo clips at white; rounded openings are
+  told pore or slag by a small logistic model (:data:`SLAG_WEIGHTS`).
 * **Curvature.**  Seen from above, the convex surface is foreshortened along
   the coupon (across the bend axis): a point at true arc length ``s`` from
   the apex appears at ``x = R sin(s / R)``.  With the outer radius ``R``
@@ -1528,7 +1532,8 @@ def _into_clipped_light(region, patch, bgp, inner, *, mm: float):
     brightness is unknown and an opening's depth against it is understated:
     the shallow parts of a thin opening (a crack's tapering tips) read as
     white as the surface.  For an elongated opening (:func:`_elongated`;
-    a rounded one's outline would take in its blur instead), within clipped surface (the background at :data:`CLIP_GREY` or more and a
+    a rounded one's outline would take in its blur instead), within
+    clipped surface (the background at :data:`CLIP_GREY` or more and a
     clipped pixel within :data:`CLIP_REACH_MM`), every pixel darker than
     :data:`CLIP_GREY` joined to the opening is part of it.
     """
