@@ -49,7 +49,7 @@ from skimage.filters import apply_hysteresis_threshold, sato
 
 from . import face as _face
 from .geometry import apply_h
-from .model import WORK_PX_PER_MM, Calibration, Face, FaceError, Settings, SurfacesError
+from .model import KIND_CAUSE, WORK_PX_PER_MM, Calibration, Face, FaceError, Settings, SurfacesError
 from skimage import measure as skm
 
 from .segment import ISO6520, Detection, background
@@ -1339,7 +1339,7 @@ def find_openings(
         kind, iso, conf = _bend_kind(f)
         d.kind, d.iso6520, d.confidence = kind, iso, conf
         d.probs = bend_kind_shares(f, kind)
-        d.cause = {"pore": "pore", "inclusion": "slag"}.get(kind, "")
+        d.cause = KIND_CAUSE.get(kind, "") if kind in ("pore", "inclusion") else ""
         dets.append(d)
     dets.sort(key=lambda d: (d.features["cx_px"], d.features["cy_px"]))
     return dets

@@ -43,8 +43,10 @@ Every rule returns ``pass``, ``fail`` or ``review`` and the verdict is
   of at least ``KIND_DOUBT_P`` is judged once more as that kind; if the
   coupon would then be rejected (or, for an accept, sent to review), an
   ``accept`` becomes ``review`` with a reason naming the detection and the
-  rule.  A reject stays a reject; a confirmed or edited row is taken as the
-  reviewer says.
+  rule.  A cause read off the kind (a bend opening's ``pore`` or ``slag``)
+  moves with it, so slag called a pore also loses a corner rule's "ignored
+  unless from slag".  A reject stays a reject; a confirmed or edited row is
+  taken as the reviewer says.
 * **Root side not known.**  Rules may judge an unfused region differently
   at the root (``where = { at_root = true }``, incomplete root penetration)
   and away from it (lack of fusion).  The face finder does not yet tell the
@@ -135,7 +137,7 @@ from typing import Any, Iterable
 import pandas as pd
 
 from .atomic import write_text_atomic
-from .model import KINDS, TEST_TYPES, SurfacesError
+from .model import KIND_CAUSE, KINDS, TEST_TYPES, SurfacesError
 
 __all__ = [
     "KIND_DOUBT_P",
@@ -1760,6 +1762,12 @@ def _kind_doubts(table: pd.DataFrame, items: list, *, face, nominal, limit_set: 
             continue
         t2 = table.copy()
         t2.loc[ident == it.id, "kind"] = alt
+        cause = _text(it.row.get("cause"))
+        if "cause" in t2.columns and cause in ("", KIND_CAUSE.get(it.kind, "")):
+            # a cause the detector read off the kind goes with the kind: slag that was called a pore
+            # must lose a corner rule's "ignored unless from slag" as well
+            t2["cause"] = t2["cause"].astype(object)
+            t2.loc[ident == it.id, "cause"] = KIND_CAUSE.get(alt, "")
         v2 = judge(t2, face=face, nominal=nominal, limit_set=limit_set, test=test, check_kinds=False)
         if v2.result in worse:
             first = next((r for r in v2.reasons if not r.startswith("note")), v2.reasons[0])

@@ -27,6 +27,9 @@ import numpy as np
 TestType = Literal["fillet-break", "nick-break", "bend"]
 TEST_TYPES: tuple[str, ...] = ("fillet-break", "nick-break", "bend")
 KINDS: tuple[str, ...] = ("pore", "inclusion", "unfused", "crack")
+#: the ``cause`` a detector reads off an opening's kind (a corner rule of a bend preset
+#: ignores some openings "unless from slag or lack of fusion")
+KIND_CAUSE: dict[str, str] = {"pore": "pore", "inclusion": "slag", "unfused": "unfused"}
 
 #: Resolution of the rectified face image that every later stage works on.
 WORK_PX_PER_MM: float = 16.0

@@ -608,6 +608,21 @@ def test_kind_doubt_below_the_threshold_a_reviewed_kind_and_a_reject_stay():
     assert verdict(ls, imp(1, "pore", 0.5, kind_alt="inclusion", kind_alt_p=0.45)).result == "accept"
 
 
+def test_kind_doubt_moves_the_cause_with_the_kind():
+    # EN 287-1:2011 7.5 (the iso-9606-1-bend preset, REFERENCES.md): imperfections at a coupon corner are
+    # ignored unless they come from slag or incomplete penetration, and none may exceed 3 mm. A 4 mm opening
+    # at the edge called a pore (the bend detector gives it cause "pore") is ignored; if it is slag it fails.
+    ls = L.load_limit_set("iso-9606-1-bend")
+    edge = dict(dist_edge_mm=0.0, at_edge=True, cause="pore")
+    row = imp(1, "pore", 4.0, kind_alt="inclusion", kind_alt_p=0.4, **edge)
+    assert verdict(ls, dict(row, kind_alt="", kind_alt_p=float("nan")), test="bend").result == "accept"
+    assert verdict(ls, dict(row, kind="inclusion", cause="slag"), test="bend").result == "reject"
+    v = verdict(ls, row, test="bend")
+    assert v.result == "review" and v.reasons[0].startswith("kind-doubt: imperfection 1 was called pore")
+    # a cause a person gave, not the one read off the kind, stays as given
+    assert verdict(ls, dict(row, cause="porosity at the corner"), test="bend").result == "accept"
+
+
 # --------------------------------------------------------------------------- root side not known
 
 
