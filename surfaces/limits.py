@@ -1746,6 +1746,17 @@ def _cut_by_end(items: list, limit_set: LimitSet) -> list[tuple[str, int]]:
 KIND_DOUBT_P = 0.2
 
 
+def _rejudged(table: pd.DataFrame, ident: pd.Series, item_id: int, changes: dict, *, face, nominal,
+              limit_set: LimitSet, test: str) -> tuple[str, str]:
+    """The verdict and its first reason (notes skipped) with one row's columns set to ``changes``."""
+    t2 = table.copy()
+    for col, value in changes.items():
+        t2[col] = t2[col].astype(object) if col in t2.columns else None
+        t2.loc[ident == item_id, col] = value
+    v2 = judge(t2, face=face, nominal=nominal, limit_set=limit_set, test=test, check_kinds=False)
+    return v2.result, next((r for r in v2.reasons if not r.startswith("note")), v2.reasons[0])
+
+
 def _kind_doubts(table: pd.DataFrame, items: list, *, face, nominal, limit_set: LimitSet, test: str,
                  accepted: bool) -> tuple[list[str], list[int]]:
     """Reasons to review: unreviewed detections that, judged as their runner-up kind, make the verdict worse."""
@@ -1760,20 +1771,17 @@ def _kind_doubts(table: pd.DataFrame, items: list, *, face, nominal, limit_set: 
         alt, p = _text(it.row.get("kind_alt")).lower(), _num(it.row.get("kind_alt_p"))
         if alt not in KINDS or alt == it.kind or not (math.isfinite(p) and p >= KIND_DOUBT_P):
             continue
-        t2 = table.copy()
-        t2.loc[ident == it.id, "kind"] = alt
-        cause = _text(it.row.get("cause"))
-        if "cause" in t2.columns and cause in ("", KIND_CAUSE.get(it.kind, "")):
+        changes = {"kind": alt}
+        if "cause" in table.columns and _text(it.row.get("cause")) in ("", KIND_CAUSE.get(it.kind, "")):
             # a cause the detector read off the kind goes with the kind: slag that was called a pore
             # must lose a corner rule's "ignored unless from slag" as well
-            t2["cause"] = t2["cause"].astype(object)
-            t2.loc[ident == it.id, "cause"] = KIND_CAUSE.get(alt, "")
-        v2 = judge(t2, face=face, nominal=nominal, limit_set=limit_set, test=test, check_kinds=False)
-        if v2.result in worse:
-            first = next((r for r in v2.reasons if not r.startswith("note")), v2.reasons[0])
+            changes["cause"] = KIND_CAUSE.get(alt, "")
+        result, first = _rejudged(table, ident, it.id, changes, face=face, nominal=nominal, limit_set=limit_set,
+                                  test=test)
+        if result in worse:
             conf = f", p {it.conf:.2f}" if math.isfinite(it.conf) else ""
             out.append(f"kind-doubt: imperfection {it.id} was called {it.kind}{conf} but may be {alt} "
-                       f"(p {p:.2f}); judged as {alt} the coupon would be {v2.result} ({first}): "
+                       f"(p {p:.2f}); judged as {alt} the coupon would be {result} ({first}): "
                        "confirm or correct its kind")
             ids.append(it.id)
     return out, ids
@@ -1801,27 +1809,23 @@ def _root_doubts(table: pd.DataFrame, items: list, *, face, nominal, limit_set: 
     detection is judged again with ``at_root`` the other way; a verdict that
     would then be worse sends the coupon to review, like :func:`_kind_doubts`.
     """
-    if "id" not in table.columns or not any(k == "at_root" for r in limit_set.rules for k, _ in r.where):
+    root_rules = [r for r in limit_set.rules if any(k == "at_root" for k, _ in r.where)]
+    if "id" not in table.columns or not root_rules:
         return [], []
     worse = ("reject", "review") if accepted else ("reject",)
     out, ids = [], []
     ident = pd.to_numeric(table["id"], errors="coerce")
     for it in items:
-        if it.reviewed or not _root_unknown(it.row):
-            continue
-        if not any(_takes_kind(r, it.kind) and any(k == "at_root" for k, _ in r.where) for r in limit_set.rules):
+        if it.reviewed or not _root_unknown(it.row) or not any(_takes_kind(r, it.kind) for r in root_rules):
             continue
         was = bool(_flag(it.row.get("at_root")))
-        t2 = table.copy()
-        t2["at_root"] = t2["at_root"].astype(object) if "at_root" in t2.columns else None
-        t2.loc[ident == it.id, "at_root"] = not was
-        v2 = judge(t2, face=face, nominal=nominal, limit_set=limit_set, test=test, check_kinds=False)
-        if v2.result in worse:
-            first = next((r for r in v2.reasons if not r.startswith("note")), v2.reasons[0])
+        result, first = _rejudged(table, ident, it.id, {"at_root": not was}, face=face, nominal=nominal,
+                                  limit_set=limit_set, test=test)
+        if result in worse:
             place = "away from the root" if not was else "at the root"
             other = "at the root" if not was else "away from it"
             out.append(f"root-doubt: {it.label()} was judged {place}, but the root side of the face is not known; "
-                       f"judged {other} the coupon would be {v2.result} ({first}): check where the root is on "
+                       f"judged {other} the coupon would be {result} ({first}): check where the root is on "
                        "the overlay, then confirm or correct it")
             ids.append(it.id)
     return out, ids

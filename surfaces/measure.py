@@ -138,9 +138,7 @@ def level_spread(gray: np.ndarray, contour: np.ndarray, *, px_per_mm: float, pho
         if piece is None:
             return None
         m = ndi.binary_fill_holes(piece).astype(np.uint8)
-        cs, _ = cv2.findContours(m, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_NONE)
-        pts = np.vstack([x.reshape(-1, 2) for x in cs]).astype(np.float64)
-        out["greatest_mm"].append(polygon_features(pts, px_per_mm=mm)["greatest_mm"] + 1.0 / mm)  # pixel centres -> edges
+        out["greatest_mm"].append(_raster_greatest_mm(m, mm) + 1.0 / mm)  # pixel centres -> edges
         out["area_mm2"].append(float(m.sum()) / mm**2)
     return out
 
@@ -190,13 +188,14 @@ def spur_spread_mm(contour: np.ndarray, *, px_per_mm: float, photo_px_per_mm: fl
     op = cv2.morphologyEx(reg, cv2.MORPH_OPEN, k)
     if int(op.sum()) < 0.5 * n:
         return 0.0
+    return max(0.0, _raster_greatest_mm(reg, mm) - _raster_greatest_mm(op, mm))
 
-    def greatest(m: np.ndarray) -> float:
-        cs, _ = cv2.findContours(m, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_NONE)
-        pts = np.vstack([x.reshape(-1, 2) for x in cs]).astype(np.float64)
-        return polygon_features(pts, px_per_mm=mm)["greatest_mm"]
 
-    return max(0.0, greatest(reg) - greatest(op))
+def _raster_greatest_mm(m: np.ndarray, mm: float) -> float:
+    """Greatest dimension (max Feret) through the centres of the boundary pixels of the uint8 mask ``m``."""
+    cs, _ = cv2.findContours(m, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_NONE)
+    pts = np.vstack([x.reshape(-1, 2) for x in cs]).astype(np.float64)
+    return polygon_features(pts, px_per_mm=mm)["greatest_mm"]
 
 
 def _runner_up(d: Detection) -> dict:
