@@ -52,7 +52,7 @@ from .geometry import apply_h
 from .model import KIND_CAUSE, WORK_PX_PER_MM, Calibration, Face, FaceError, Settings, SurfacesError
 from skimage import measure as skm
 
-from .segment import ISO6520, Detection, background
+from .segment import ISO6520, Detection, background, pieces_holding
 from .shapes import polygon_features
 
 __all__ = ["find_coupon", "detect", "outer_radius", "arc_length_map", "STEEP_SLOPE_DEG"]
@@ -1412,20 +1412,35 @@ def _local_grain(rel: np.ndarray, cand: np.ndarray, valid: np.ndarray, f: dict, 
     by the coarse side it sits in rather than by the smooth surface beyond.
     Spreads are normal-scaled median absolute deviations.
     """
-    h, w = rel.shape
-    r = int(round(LOCAL_GRAIN_MM * mm))
+    (r0, r1, c0, c1), (cr, cc) = _neighbourhood(f, rel.shape, reach_mm=LOCAL_GRAIN_MM, mm=mm)
+    keep = valid[r0:r1, c0:c1] & ~cand[r0:r1, c0:c1]
+    coarsest = _coarsest_half(rel[r0:r1, c0:c1], keep, cr, cc)
+    return coarsest[0] if coarsest else _robust_sigma(rel[valid])
+
+
+def _neighbourhood(f: dict, shape, *, reach_mm: float, mm: float):
+    """An opening's box widened by ``reach_mm`` (rows ``r0:r1``, columns ``c0:c1``, clipped to
+    ``shape``) and the opening's centre within it ``(row, col)``."""
+    h, w = shape
+    r = int(round(reach_mm * mm))
     c0, c1 = max(0, int(f["x0_mm"] * mm) - r), min(w, int(math.ceil(f["x1_mm"] * mm)) + r + 1)
     r0, r1 = max(0, int(f["y0_mm"] * mm) - r), min(h, int(math.ceil(f["y1_mm"] * mm)) + r + 1)
-    keep = valid[r0:r1, c0:c1] & ~cand[r0:r1, c0:c1]
-    win = rel[r0:r1, c0:c1]
     cc = int(round(0.5 * (f["x0_mm"] + f["x1_mm"]) * mm)) - c0
     cr = int(round(0.5 * (f["y0_mm"] + f["y1_mm"]) * mm)) - r0
-    spreads = []
+    return (r0, r1, c0, c1), (cr, cc)
+
+
+def _coarsest_half(win: np.ndarray, keep: np.ndarray, cr: int, cc: int) -> tuple[float, float] | None:
+    """Robust spread and median of ``win[keep]`` in the coarsest of its four halves about ``(cr, cc)``
+    (before, after, above, below; a half needs 50 values), or None when none has enough."""
+    best = None
     for part in (np.s_[:, :cc], np.s_[:, cc:], np.s_[:cr, :], np.s_[cr:, :]):
         vals = win[part][keep[part]]
         if vals.size >= 50:
-            spreads.append(_robust_sigma(vals))
-    return max(spreads) if spreads else _robust_sigma(rel[valid])
+            sig = _robust_sigma(vals)
+            if best is None or sig > best[0]:
+                best = (sig, float(np.median(vals)))
+    return best
 
 
 def _line_local_cnr(rel: np.ndarray, cand: np.ndarray, valid: np.ndarray, f: dict, contour, *, mm: float,
@@ -1454,9 +1469,7 @@ def _line_local_cnr(rel: np.ndarray, cand: np.ndarray, valid: np.ndarray, f: dic
     v = -xx * math.sin(th) + yy * math.cos(th)
     ker = np.exp(-0.5 * (v / sw) ** 2) * np.clip(half + 0.5 - np.abs(u), 0, 1)
     ker /= ker.sum()
-    r = int(round((LOCAL_GRAIN_MM + Lk) * mm))
-    c0, c1 = max(0, int(f["x0_mm"] * mm) - r), min(w, int(math.ceil(f["x1_mm"] * mm)) + r + 1)
-    r0, r1 = max(0, int(f["y0_mm"] * mm) - r), min(h, int(math.ceil(f["y1_mm"] * mm)) + r + 1)
+    (r0, r1, c0, c1), (cr, cc) = _neighbourhood(f, (h, w), reach_mm=LOCAL_GRAIN_MM + Lk, mm=mm)
     ok = valid[r0:r1, c0:c1]
     resp = cv2.filter2D(np.where(ok, rel[r0:r1, c0:c1], 0).astype(np.float32), cv2.CV_32F, ker,
                         borderType=cv2.BORDER_REFLECT)
@@ -1470,19 +1483,11 @@ def _line_local_cnr(rel: np.ndarray, cand: np.ndarray, valid: np.ndarray, f: dic
     # the kernel reaches rk past a pixel: keep clear of the window's and the valid area's edges
     inside = cv2.erode(ok.astype(np.uint8), np.ones((2 * rk + 1, 2 * rk + 1), np.uint8), borderType=cv2.BORDER_CONSTANT,
                        borderValue=0) > 0
-    keep = inside & ~away
-    cc = int(round(0.5 * (f["x0_mm"] + f["x1_mm"]) * mm)) - c0
-    cr = int(round(0.5 * (f["y0_mm"] + f["y1_mm"]) * mm)) - r0
-    spreads, meds = [], []
-    for part in (np.s_[:, :cc], np.s_[:, cc:], np.s_[:cr, :], np.s_[cr:, :]):
-        vals = resp[part][keep[part]]
-        if vals.size >= 50:
-            spreads.append(_robust_sigma(vals))
-            meds.append(float(np.median(vals)))
-    if not spreads:
+    coarsest = _coarsest_half(resp, inside & ~away, cr, cc)
+    if coarsest is None:
         return 0.0
-    k = int(np.argmax(spreads))
-    return (peak - meds[k]) / max(spreads[k], 1e-4)
+    sig, med = coarsest
+    return (peak - med) / max(sig, 1e-4)
 
 
 def _robust_sigma(x: np.ndarray) -> float:
@@ -1514,12 +1519,10 @@ def _extend_tips(region, depth, core, level, inner):
     if not _elongated(region):
         return region, level
     lvl2 = TIP_DEPTH * core
-    rl, _ = ndi.label((depth > lvl2) & inner, structure=np.ones((3, 3)))
-    keep = np.unique(rl[region])
-    keep = keep[keep > 0]
-    if not keep.size:
+    deeper = pieces_holding((depth > lvl2) & inner, region)
+    if deeper is None:
         return region, level
-    reg2 = np.isin(rl, keep) | region
+    reg2 = deeper | region
     if reg2.sum() > 2.0 * region.sum():
         return region, level
     return ndi.binary_fill_holes(reg2), lvl2
@@ -1545,10 +1548,8 @@ def _into_clipped_light(region, patch, bgp, inner, *, mm: float):
         return region  # the surface around the opening is not clipped
     k = max(3, int(round(2 * CLIP_REACH_MM * mm)) | 1)
     clipped &= ndi.maximum_filter(patch, size=k) >= CLIP_GREY
-    rl, _ = ndi.label(((patch < CLIP_GREY) & clipped & inner) | region, structure=np.ones((3, 3)))
-    keep = np.unique(rl[region])
-    keep = keep[keep > 0]
-    return ndi.binary_fill_holes(np.isin(rl, keep) | region)
+    joined = pieces_holding(((patch < CLIP_GREY) & clipped & inner) | region, region)
+    return ndi.binary_fill_holes(region if joined is None else joined | region)
 
 
 def _disk(radius_px: float) -> np.ndarray:
@@ -1580,10 +1581,8 @@ def _trace_opening(i, sl, lab, gs, bg, ridge_mask, labc, inner_mask, *, mm: floa
         return None
     level = 0.5 * core_d
     region = depth > level
-    rl, _ = ndi.label(region, structure=np.ones((3, 3)))
-    keep = np.unique(rl[seed & region])
-    keep = keep[keep > 0]
-    region = np.isin(rl, keep) if keep.size else seed
+    held = pieces_holding(region, seed & region)
+    region = seed if held is None else held
     region = ndi.binary_fill_holes(cv2.morphologyEx(region.astype(np.uint8), cv2.MORPH_CLOSE, close_k) > 0)
     # the outermost strip of the face is edge blur: an opening that reaches it runs on to
     # the edge (straight across the strip), but never spreads along it

@@ -805,9 +805,7 @@ def _fine_fit(gray, calib: Calibration, centre, axis: float, L: float, Wd: float
         size = hi_o - lo_o
         mid = 0.5 * (lo_o + hi_o)
         a = math.radians(axis)
-        new_centre = np.asarray(centre, float) + mid[0] * np.array([math.cos(a), math.sin(a)]) + mid[1] * np.array(
-            [-math.sin(a), math.cos(a)]
-        )
+        new_centre = _frame_point(centre, axis, mid)
         if grown < MAX_GROW and any(runs_on) and size[0] >= size[1]:
             # the coarse region was a stretch of the face (a long smooth defect or a calmer
             # stretch split it): look further along the open end(s)
@@ -851,7 +849,7 @@ def _textured_band(gray, calib: Calibration, centre, axis: float, outline: np.nd
     g = warp_to_face(gray, calib.H, face_frame(centre, axis, (x0, y0), px_per_mm=q), (h, w))
     e = _texture_energy(g, px_per_mm=q, fine_mm=fine_mm, window_mm=win_mm)
     e *= 1.0 - _coherence(g, sigma_px=max(0.5, 0.5 * win_mm / 0.35) * q)
-    prof = cv2.blur(np.percentile(e, 75, axis=1).astype(np.float32).reshape(-1, 1), (1, max(1, int(0.5 * q)) | 1)).ravel()
+    prof = _blur_along(np.percentile(e, 75, axis=1), q)  # across the frame: one profile all the same
     base, k = float(np.median(prof)), int(np.argmax(prof))
     if prof[k] < BAND_CONTRAST * base:
         return None
@@ -864,12 +862,16 @@ def _textured_band(gray, calib: Calibration, centre, axis: float, outline: np.nd
     width = (b - a + 1) / q
     if not 2.0 <= width <= wide:
         return None
-    ang = math.radians(axis)
-    mid = (x0 + x1) / 2, y0 + (a + b + 1) / 2 / q
-    c = np.asarray(centre, float) + mid[0] * np.array([math.cos(ang), math.sin(ang)]) + mid[1] * np.array(
-        [-math.sin(ang), math.cos(ang)]
-    )
+    c = _frame_point(centre, axis, ((x0 + x1) / 2, y0 + (a + b + 1) / 2 / q))
     return c, float(x1 - x0), float(width)
+
+
+def _frame_point(centre, axis_deg: float, xy) -> np.ndarray:
+    """Plane mm of the point ``xy`` = (along, across) in the face axes through ``centre`` at ``axis_deg``."""
+    a = math.radians(axis_deg)
+    return np.asarray(centre, float) + xy[0] * np.array([math.cos(a), math.sin(a)]) + xy[1] * np.array(
+        [-math.sin(a), math.cos(a)]
+    )
 
 
 def _blur_along(p: np.ndarray, q: float) -> np.ndarray:

@@ -519,12 +519,17 @@ def grow_by_reach(seed_u8: np.ndarray, *, mm: float, photo_mm: float) -> np.ndar
     return cv2.dilate(seed_u8, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * reach + 1, 2 * reach + 1))) > 0
 
 
-def dark_piece(patch: np.ndarray, level: float, near: np.ndarray, darkest: np.ndarray) -> np.ndarray | None:
-    """The connected parts of ``patch < level`` within ``near`` that hold any ``darkest`` pixel, or ``None``."""
-    rl, _ = ndi.label((patch < level) & near, structure=np.ones((3, 3)))
-    keep = np.unique(rl[darkest])
+def pieces_holding(mask: np.ndarray, seed: np.ndarray) -> np.ndarray | None:
+    """The 8-connected pieces of ``mask`` that hold any ``seed`` pixel, or ``None`` when none does."""
+    rl, _ = ndi.label(mask, structure=np.ones((3, 3)))
+    keep = np.unique(rl[seed])
     keep = keep[keep > 0]
     return np.isin(rl, keep) if keep.size else None
+
+
+def dark_piece(patch: np.ndarray, level: float, near: np.ndarray, darkest: np.ndarray) -> np.ndarray | None:
+    """The connected parts of ``patch < level`` within ``near`` that hold any ``darkest`` pixel, or ``None``."""
+    return pieces_holding((patch < level) & near, darkest)
 
 
 def _trace_dark(i, sl, lab, M: _Maps, *, speck_px: float, max_parts: int = 6) -> list[Detection]:
