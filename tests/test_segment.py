@@ -259,6 +259,40 @@ def test_smooth_rim_along_the_edge_is_not_unfused_but_root_bands_are(seed, rim_m
         assert abs(d.features["width_mm"] - width) <= 0.25, (name, d.features["width_mm"], width)
 
 
+def edge_band_face(*, seed, contrast, H=8.0, W=40.0, band=(10.0, 30.0), band_mm=1.25, inset=0.25):
+    """A grain face with an untinted band along its bottom (root) edge whose grain keeps ``contrast`` of the face's.
+
+    The band is ``band_mm`` deep from the specimen's edge, the mask leaves the
+    pipeline's 0.25 mm edge band out, so under 1 mm of it is seen: a strip
+    along the edge.  Returns the RGB face and its mask.
+    """
+    h, w = int(H * PPM), int(W * PPM)
+    g = grain((h, w), seed=seed)
+    m = np.zeros((h, w), bool)
+    m[int(round((H - band_mm) * PPM)) :, int(band[0] * PPM) : int(band[1] * PPM)] = True
+    g = np.where(m, 150 + (g - 150) * contrast, g)
+    k = int(round(inset * PPM))
+    mask = np.zeros((h, w), bool)
+    mask[k:-k, k:-k] = True
+    return to_rgb(g), mask
+
+
+@pytest.mark.parametrize("seed", [2, 4, 6])
+def test_smooth_wall_strip_along_the_edge_is_unfused_but_a_worn_edge_is_not(seed):
+    # truth by construction (edge_band_face): a 20 mm band at the root edge, under 1 mm of it inside the mask.
+    # With no grain left (5 % contrast: a smooth wall) it is lack of fusion at the root, tinted or not; with
+    # half the grain (a worn or blurred edge) it is the edge itself and is not reported.  The wall's greatest
+    # dimension is checked against the drawn 20 mm within the evaluation's tolerance (max(0.15 mm, 5 %)).
+    rgb, mask = edge_band_face(seed=seed, contrast=0.05)
+    unfused = [d for d in segment(rgb, mask, px_per_mm=PPM, photo_px_per_mm=PPM) if d.kind == "unfused"]
+    d, dist = nearest(unfused, 20.0, 7.3)
+    assert d is not None and dist < 1.0, [(round(u.features["cx_mm"], 1), round(u.features["cy_mm"], 1)) for u in unfused]
+    assert abs(d.features["greatest_mm"] - 20.0) <= greatest_tolerance_mm(20.0), d.features["greatest_mm"]
+    rgb, mask = edge_band_face(seed=seed, contrast=0.5)
+    worn = [d for d in segment(rgb, mask, px_per_mm=PPM, photo_px_per_mm=PPM) if d.kind == "unfused"]
+    assert not worn, [(round(u.features["greatest_mm"], 1), round(u.features["cy_mm"], 1)) for u in worn]
+
+
 def test_label_medians_equal_scipys():
     # reference library: scipy.ndimage.median on the same labels and values
     from scipy import ndimage as ndi
