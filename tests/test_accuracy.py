@@ -149,10 +149,16 @@ def test_face_area_within_five_percent(scored):
                                f"{np.median(errs):.2f} %, {np.mean(errs <= 5):.0%} of {len(errs)} photos within 5 %")
 
 
-@NOT_MET
-def test_no_false_accepts_and_borderline_goes_to_review(scored):
+def test_no_false_accepts(scored):
+    # a truth "reject" judged "accept" under any preset would pass a bad weld (common practice: the one error
+    # an inspection aid must not make); photos the tool refuses count as no verdict, not as accepts
     s, _ = scored
     assert s["n_false_accepts"] == 0, f"{s['n_false_accepts']} false accept(s): {s['false_accepts'][:3]}"
+
+
+@NOT_MET
+def test_borderline_goes_to_review(scored):
+    s, _ = scored
     b = s["borderline"]
     assert b["n"] >= AT_LIMIT, f"only {b['n']} borderline coupon/limit pairs in the set"
     wrong = [i for i in b["items"] if i["tool"] != "review"]
