@@ -246,7 +246,68 @@ def calibrate(
             else ""
         )
         raise CalibrationError(f"no reference marker found in photo '{name}'{seen}: {_RETAKE}")
-    return _calibrate_from_hits(hits, side_mm, eval_pt, hint, (w, h))
+    hits, notes = _faint_hits(gray, hits)
+    return _calibrate_from_hits(hits, side_mm, eval_pt, hint, (w, h), notes=notes)
+
+
+#: a detection whose black and white modules differ by less than this share of the
+#: clearest detection's difference is not printed ink on paper (see :func:`_faint_hits`)
+FAINT_INK_SHARE: float = 0.35
+
+
+def ink_contrast(gray: np.ndarray, hit: MarkerHit) -> float:
+    """Grey-level difference between a detection's white and black modules (median over module centres).
+
+    The 6 x 6 modules of the decoded id's own pattern (OpenCV's) are sampled
+    at their centres, 3 x 3 points over the middle half of each module, through
+    the square's homography.  Printed ink on white paper gives a large
+    difference; a square that faint texture decoded as a marker gives a small
+    one.  NaN when no point falls in the photo.
+    """
+    black = _marker_black(hit.marker_id)
+    S = float(MODULES)
+    offs = (np.arange(3) - 1.0) * 0.25
+    jj, ii, dy, dx = np.meshgrid(np.arange(MODULES), np.arange(MODULES), offs, offs, indexing="ij")
+    plane = np.c_[(ii + 0.5 + dx).ravel(), (jj + 0.5 + dy).ravel()]  # (x, y) in module units
+    is_black = black[jj.ravel(), ii.ravel()]
+    to_photo = np.linalg.inv(_square_homography(hit.corners_px, S))
+    px = np.round(apply_h(to_photo, plane)).astype(int)
+    h, w = gray.shape
+    inside = (px[:, 0] >= 0) & (px[:, 0] < w) & (px[:, 1] >= 0) & (px[:, 1] < h)
+    if not inside.any() or not (is_black & inside).any() or not (~is_black & inside).any():
+        return float("nan")
+    v = gray[px[inside, 1], px[inside, 0]].astype(np.float64)
+    b = is_black[inside]
+    return float(np.median(v[~b]) - np.median(v[b]))
+
+
+def _faint_hits(gray: np.ndarray, hits: list[MarkerHit]) -> tuple[list[MarkerHit], list[str]]:
+    """Drop detections far fainter than the clearest one (texture decoded as a marker); a note for each.
+
+    Markers printed on one card share ink, paper and, roughly, light: their
+    black/white difference stays within a factor of two under shade or a
+    colour cast.  A fracture face, rust or a painted table can hold a faint
+    square that decodes as some id; joined to the real marker it would bend
+    the homography (one generated photo read a 58 degree tilt from such a
+    36 px square).  With a single detection nothing is dropped.
+    """
+    if len(hits) < 2:
+        return list(hits), []
+    c = np.array([ink_contrast(gray, hit) for hit in hits])
+    if not np.isfinite(c).any():
+        return list(hits), []
+    best = float(np.nanmax(c))
+    kept, notes = [], []
+    for hit, ci in zip(hits, c):
+        if np.isfinite(ci) and ci < FAINT_INK_SHARE * best:
+            x, y = hit.corners_px.mean(axis=0)
+            notes.append(
+                f"ignored a square at ({x:.0f}, {y:.0f}) px that decoded as marker id {hit.marker_id}: its black and "
+                f"white differ by {ci:.0f} grey levels against {best:.0f} on the clearest marker (not printed ink)"
+            )
+        else:
+            kept.append(hit)
+    return kept, notes
 
 
 def detect_markers(gray: np.ndarray) -> tuple[list[MarkerHit], int]:
@@ -507,9 +568,10 @@ def _printed_hits(hits: list[MarkerHit]) -> tuple[list[MarkerHit], list[str]]:  
     return [hits[i] for i in sorted(kept)], notes
 
 
-def _calibrate_from_hits(hits, side_mm, eval_pt, hint, size) -> Calibration:
+def _calibrate_from_hits(hits, side_mm, eval_pt, hint, size, *, notes=()) -> Calibration:
     w, h = size
     hits, warnings = _printed_hits(list(hits))
+    warnings = list(notes) + warnings
     centres = np.array([hit.corners_px.mean(axis=0) for hit in hits])
     if hint is not None:
         ref = int(np.argmin(np.hypot(*(centres - np.asarray(hint)).T)))

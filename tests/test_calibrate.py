@@ -26,6 +26,7 @@ from surfaces.calibrate import (
     _grid_segments,
     _square_homography,
     detect_markers,
+    ink_contrast,
     plane_centroid_px,
     assumed_camera_matrix,
     calibrate,
@@ -569,6 +570,41 @@ def test_detection_without_printed_pattern_is_dropped_and_a_twin_merged():
     # without the drop the two would be refused as printed at different sizes
     with pytest.raises(CalibrationError):
         _calibrate_from_hits([real, MeasuredMarker(**{**vars(fake), "grid_points": 400})], 20.0, centre, None, (W, H))
+
+
+def _with_faint(G, share, faint):
+    """The 20 mm marker id 5 at G plus the markers ``faint`` at ``share`` of the print's contrast (texture-like)."""
+    bg = render((W, H), []).astype(np.float32)
+    other = render((W, H), faint).astype(np.float32)
+    img = render((W, H), [(5, 20.0, G)]).astype(np.float32) + share * (other - bg)
+    img = img + np.random.default_rng(1).normal(0, 1.5, img.shape)
+    return np.clip(np.rint(img), 0, 255).astype(np.uint8)
+
+
+@pytest.mark.parametrize("share,side", [(0.08, 8.0), (0.12, 8.0), (0.1, 6.0)])
+def test_faint_square_decoded_in_texture_is_ignored(share, side):
+    # A square of 16-24 grey levels' contrast that decodes as an id (as fracture grain or rust can give) beside
+    # the printed marker: without the drop the two are refused as printed at different sizes, or a joint fit
+    # bends the perspective. Truth by construction: the scale of G (analytic), the print's contrast 200 levels.
+    G = camera_homography(K, rotation(15, 30, 5), (600, 500), 5.0)
+    img = _with_faint(G, share, [(7, side, placed(G, 120, 40, 20))])
+    hits, _ = detect_markers(img)
+    assert sorted(h.marker_id for h in hits) == [5, 7]  # the detector does decode the faint one
+    assert ink_contrast(img, [h for h in hits if h.marker_id == 5][0]) == pytest.approx(WHITE - BLACK, abs=8)
+    cal = calibrate(img)
+    assert cal.method == "marker" and [m.marker_id for m in cal.markers] == [5]
+    assert sum("ignored a square" in w and "id 7" in w and "not printed ink" in w for w in cal.warnings) == 1
+    assert abs(scale_error_pct(cal, G)[0]) < 0.1
+
+
+def test_second_marker_in_shade_is_still_used():
+    # a printed marker at 55 % of the other's contrast (shade across the card) is ink, not texture: both are used
+    G = camera_homography(K, rotation(15, 30, 5), (600, 500), 5.0)
+    img = _with_faint(G, 0.55, [(7, 20.0, placed(G, 60, 0, 0))])
+    cal = calibrate(img, face_hint_px=tuple(apply(G, [[40, 10]])[0]))
+    assert cal.method == "markers" and sorted(m.marker_id for m in cal.markers) == [5, 7]
+    assert not any("not printed ink" in w for w in cal.warnings)
+    assert abs(scale_error_pct(cal, G, 40, 10)[0]) < 0.3
 
 
 def test_marker_with_a_covered_corner_is_refused_not_guessed():
