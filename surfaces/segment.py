@@ -244,7 +244,7 @@ def segment(
     -------
     list of Detection, outlines in face pixels (col, row), sorted along x.
     """
-    from .regionmodel import classify, model_fits
+    from .regionmodel import model_fits
 
     rgb, mask = _check_input(rgb, mask, px_per_mm=px_per_mm, photo_px_per_mm=photo_px_per_mm)
     photo_mm = float(photo_px_per_mm or px_per_mm)
@@ -259,26 +259,35 @@ def segment(
         if fitting:  # bootstrapping the region model: features only
             out.append(c)
             continue
-        kind, conf, probs = classify(f)
-        if ruled_out(f):
-            kind, conf = "none", 1.0
-        c.kind, c.confidence, c.probs = kind, conf, probs
-        if kind == "pore":
-            c.iso6520 = ISO6520["pore"] if f["aspect"] < 1.5 else ISO6520["pore-elongated"]
-        elif kind == "unfused":
-            c.iso6520 = ISO6520["unfused-root"] if f["edge_contact"] > 0.3 else ISO6520["unfused"]
-        elif kind in ISO6520:
-            c.iso6520 = ISO6520[kind]
+        _name(c)
         if keep_all:
             out.append(c)
             continue
-        if kind == "none" or f["greatest_mm"] < max(min_size_mm, SPECK_MM, min_resolvable):
+        if c.kind == "none" or f["greatest_mm"] < max(min_size_mm, SPECK_MM, min_resolvable):
             continue
         out.append(c)
     if not keep_all:
-        out = _dedupe(out)
+        out = _dedupe(_join_around_patches(out, M))
     out.sort(key=lambda d: (d.features["cx_px"], d.features["cy_px"]))
     return out
+
+
+def _name(c: Detection) -> Detection:
+    """Kind, confidence, probabilities and ISO 6520-1 reference of a candidate, from the region model."""
+    from .regionmodel import classify
+
+    f = c.features
+    kind, conf, probs = classify(f)
+    if ruled_out(f):
+        kind, conf = "none", 1.0
+    c.kind, c.confidence, c.probs = kind, conf, probs
+    if kind == "pore":
+        c.iso6520 = ISO6520["pore"] if f["aspect"] < 1.5 else ISO6520["pore-elongated"]
+    elif kind == "unfused":
+        c.iso6520 = ISO6520["unfused-root"] if f["edge_contact"] > 0.3 else ISO6520["unfused"]
+    elif kind in ISO6520:
+        c.iso6520 = ISO6520[kind]
+    return c
 
 
 class SegmentError(SurfacesError):
@@ -871,12 +880,90 @@ def _dedupe(dets: list[Detection]) -> list[Detection]:
 DUPLICATE_OVERLAP = 0.3
 
 
+def _join_around_patches(dets: list[Detection], M: _Maps) -> list[Detection]:
+    """A small smooth or tinted region inside a dark imperfection is part of it: joined, not called unfused.
+
+    A slag inclusion or a cavity often holds a bright, smooth or coloured
+    floor or glint, and its dark rim may then be traced in pieces; the
+    smooth-surface search finds the inside as a region of its own, which
+    would be called unfused.  Such a region (greatest dimension under
+    :data:`INNER_PATCH_MM`, not larger than the dark pieces together) that
+    lies mostly (:data:`INNER_PATCH_SHARE` of its area) within the convex
+    hull of the dark and line detections within 0.3 mm of it is the inside
+    of one imperfection: the hull of the pieces and the region is outlined,
+    described and named again as one candidate.  When the region model does
+    not call the whole a pore, inclusion or crack, the pieces stay as they
+    were and only the inside is dropped.
+    """
+    dark = [d for d in dets if d.features.get("source") in ("dark", "ridge") and d.kind != "none"]
+    if not dark:
+        return dets
+    gap = 0.3 * M.mm
+    h, w = M.g.shape
+    gone: set[int] = set()
+    joined: list[Detection] = []
+    for d in dets:
+        f = d.features
+        if f.get("source") != "smooth" or d.kind == "none" or f["greatest_mm"] >= INNER_PATCH_MM:
+            continue
+        c = d.contour
+        x0, y0 = c.min(axis=0) - gap
+        x1, y1 = c.max(axis=0) + gap
+        near = [k for k in dark if id(k) not in gone
+                and _boxes_touch((x0, y0, x1, y1), (*k.contour.min(axis=0), *k.contour.max(axis=0)))]
+        if not near or sum(k.features["area_mm2"] for k in near) < f["area_mm2"]:
+            continue
+        pts = np.concatenate([k.contour for k in near]).astype(np.float32)
+        hull = cv2.convexHull(pts).reshape(-1, 2).astype(np.float64)
+        bh = (*hull.min(axis=0), *hull.max(axis=0))
+        if _covered_share(d, Detection(d.kind, 0.0, hull, "", {}), (*c.min(axis=0), *c.max(axis=0)), bh) < INNER_PATCH_SHARE:
+            continue
+        gone.add(id(d))
+        whole = cv2.convexHull(np.concatenate([pts, c.astype(np.float32)])).reshape(-1, 2).astype(np.float64)
+        one = _described(whole, M, source="dark")
+        if one is not None and _name(one).kind in ("pore", "inclusion", "crack"):
+            gone.update(id(k) for k in near)
+            joined.append(one)
+    return [d for d in dets if id(d) not in gone] + joined
+
+
+def _described(contour: np.ndarray, M: _Maps, *, source: str) -> Detection | None:
+    """A candidate for an outline drawn here (face pixels): its features from the face's maps."""
+    f = polygon_features(contour, px_per_mm=M.mm)
+    if f["area_mm2"] <= 0:
+        return None
+    h, w = M.g.shape
+    pad = max(2, int(round(0.3 * M.mm))) + 2
+    x0, y0 = np.floor(contour.min(axis=0)).astype(int) - pad
+    x1, y1 = np.ceil(contour.max(axis=0)).astype(int) + pad + 1
+    win = (slice(max(0, y0), min(h, y1)), slice(max(0, x0), min(w, x1)))
+    reg = np.zeros((win[0].stop - win[0].start, win[1].stop - win[1].start), np.uint8)
+    cv2.fillPoly(reg, [np.round(contour - [win[1].start, win[0].start]).astype(np.int32)], 1)
+    reg = (reg > 0) & M.mask[win]
+    if not reg.any():
+        return None
+    return Detection("candidate", 0.0, contour, "", _appearance(f, reg, win, M, source=source, contour=contour))
+
+
+INNER_PATCH_MM = 4.0
+INNER_PATCH_SHARE = 0.5
+
+
 def _boxes_touch(a, b) -> bool:
     return a[0] <= b[2] and b[0] <= a[2] and a[1] <= b[3] and b[1] <= a[3]
 
 
 def _overlap(d: Detection, k: Detection, bd, bk) -> float:
     """Shared area of two outlines over the smaller one's area (rasterised on their common box)."""
+    return _shared(d, k, bd, bk, of_first=False)
+
+
+def _covered_share(d: Detection, k: Detection, bd, bk) -> float:
+    """Share of ``d``'s outline area that ``k``'s outline covers."""
+    return _shared(d, k, bd, bk, of_first=True)
+
+
+def _shared(d: Detection, k: Detection, bd, bk, *, of_first: bool) -> float:
     x0, y0 = int(math.floor(min(bd[0], bk[0]))), int(math.floor(min(bd[1], bk[1])))
     x1, y1 = int(math.ceil(max(bd[2], bk[2]))), int(math.ceil(max(bd[3], bk[3])))
     shape = (y1 - y0 + 2, x1 - x0 + 2)
@@ -885,6 +972,7 @@ def _overlap(d: Detection, k: Detection, bd, bk) -> float:
     cv2.fillPoly(m1, [np.round(d.contour - [x0, y0]).astype(np.int32)], 1)
     cv2.fillPoly(m2, [np.round(k.contour - [x0, y0]).astype(np.int32)], 1)
     a1, a2 = int(m1.sum()), int(m2.sum())
-    if min(a1, a2) == 0:
+    base = a1 if of_first else min(a1, a2)
+    if base == 0:
         return 0.0
-    return float((m1 & m2).sum()) / min(a1, a2)
+    return float((m1 & m2).sum()) / base

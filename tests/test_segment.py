@@ -293,6 +293,38 @@ def test_smooth_wall_strip_along_the_edge_is_unfused_but_a_worn_edge_is_not(seed
     assert not worn, [(round(u.features["greatest_mm"], 1), round(u.features["cy_mm"], 1)) for u in worn]
 
 
+def glinting_inclusion_face(*, seed, ring=True):
+    """Grain with a 3.2 x 2.0 mm elliptical imperfection: a dark rim split top and bottom by 0.7 mm of grain
+    around a bright, tinted 2.0 x 1.1 mm floor (a slag inclusion's glint). ``ring=False`` leaves only the floor."""
+    shape = (int(10 * PPM), int(30 * PPM))
+    g = grain(shape, seed=seed)
+    outer, inner = np.zeros(shape, bool), np.zeros(shape, bool)
+    rr, cc = draw.ellipse(5 * PPM, 15 * PPM, 1.0 * PPM, 1.6 * PPM, shape=shape)
+    outer[rr, cc] = True
+    rr, cc = draw.ellipse(5 * PPM, 15 * PPM, 0.55 * PPM, 1.0 * PPM, shape=shape)
+    inner[rr, cc] = True
+    if ring:
+        split = np.abs(np.arange(shape[1])[None, :] / PPM - 15.0) > 0.35
+        g = paint(g, outer & ~inner & split, 80.0)
+    g = paint(g, inner, 175.0)
+    rgb = to_rgb(g).astype(np.float32)
+    rgb[inner] += np.array([22.0, 4.0, -18.0])  # Lab chroma well above the face's
+    return np.clip(rgb, 0, 255).astype(np.uint8)
+
+
+@pytest.mark.parametrize("seed", [1, 2, 3])
+def test_bright_floor_between_dark_rim_pieces_is_one_imperfection(seed):
+    # truth by construction (glinting_inclusion_face): one imperfection of greatest dimension 3.2 mm (the drawn
+    # ellipse's major axis, analytic geometry), not two rim pieces and an 'unfused' floor
+    dets = run(glinting_inclusion_face(seed=seed))
+    assert [d.kind for d in dets if d.kind == "unfused"] == []
+    assert len(dets) == 1, [(d.kind, round(d.features["greatest_mm"], 2)) for d in dets]
+    assert abs(dets[0].features["greatest_mm"] - 3.2) <= greatest_tolerance_mm(3.2)
+    # the same tinted smooth patch with no dark rim around it stays a smooth region of its own
+    alone = run(glinting_inclusion_face(seed=seed, ring=False))
+    assert [d.kind for d in alone] == ["unfused"]
+
+
 def test_label_medians_equal_scipys():
     # reference library: scipy.ndimage.median on the same labels and values
     from scipy import ndimage as ndi
