@@ -280,6 +280,8 @@ def _name(c: Detection) -> Detection:
     kind, conf, probs = classify(f)
     if ruled_out(f):
         kind, conf = "none", 1.0
+    elif kind == "crack" and along_the_edge(f):
+        conf = min(conf, EDGE_LINE_CONFIDENCE)
     c.kind, c.confidence, c.probs = kind, conf, probs
     if kind == "pore":
         c.iso6520 = ISO6520["pore"] if f["aspect"] < 1.5 else ISO6520["pore-elongated"]
@@ -346,6 +348,24 @@ def ruled_out(f: dict) -> str:
         return "an untinted strip along the face's edge"
     return ""
 
+
+def along_the_edge(f: dict) -> bool:
+    """Whether a region hugs the face's border: much of its outline on it (:data:`EDGE_LINE_TOUCH`) and
+    nowhere further in than :data:`EDGE_LINE_REACH_MM` (90 % of its pixels).
+
+    A dark line there is as likely the face's own edge (its shadow, or the
+    gap to the plate when the outline was placed a little outside the edge)
+    as a crack: it is reported with a confidence of at most
+    :data:`EDGE_LINE_CONFIDENCE`, under the judge's default 0.5, so it sends
+    the coupon to review for a person to confirm or dismiss, never to a
+    reject or an accept on its own.
+    """
+    return f.get("border_touch", 0.0) >= EDGE_LINE_TOUCH and f.get("border_reach_mm", np.inf) < EDGE_LINE_REACH_MM
+
+
+EDGE_LINE_TOUCH = 0.4
+EDGE_LINE_REACH_MM = 0.35
+EDGE_LINE_CONFIDENCE = 0.45
 
 SMOOTH_RATIO = 0.5
 UNTINTED = 5.0  # Lab chroma distance to the face's colour under which a region has no tint of its own
