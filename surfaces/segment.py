@@ -500,9 +500,7 @@ def _smooth_outline(smooth: np.ndarray, tex: np.ndarray, chroma: np.ndarray, M: 
 def _region_candidates(lab, M: _Maps, *, min_px: float, min_greatest_mm: float, kind: str, source: str) -> list[Detection]:
     """One candidate per labelled region at least ``min_px`` pixels and ``min_greatest_mm`` long."""
     out = []
-    h, w = lab.shape
     sizes = np.bincount(lab.ravel())
-    pad = max(2, int(round(0.3 * M.mm))) + 2
     for i, sl in enumerate(ndi.find_objects(lab), start=1):
         if sl is None or sizes[i] < min_px:
             continue
@@ -515,8 +513,7 @@ def _region_candidates(lab, M: _Maps, *, min_px: float, min_greatest_mm: float, 
         f = polygon_features(cont, px_per_mm=M.mm)
         if f["greatest_mm"] < min_greatest_mm:
             continue
-        win = (slice(max(0, sl[0].start - pad), min(h, sl[0].stop + pad)),
-               slice(max(0, sl[1].start - pad), min(w, sl[1].stop + pad)))  # fmt: skip
+        win = _ring_window(sl, M)
         out.append(Detection(kind, 0.0, cont, ISO6520[kind], _appearance(f, lab[win] == i, win, M, source=source, contour=cont)))
     return out
 
@@ -872,10 +869,7 @@ def _dedupe(dets: list[Detection]) -> list[Detection]:
         traced = d.features.get("source") == "dark" and d.kind in ("pore", "inclusion")
         return (traced, d.confidence)
 
-    boxes = {}
-    for d in dets:
-        c = d.contour
-        boxes[id(d)] = (c[:, 0].min(), c[:, 1].min(), c[:, 0].max(), c[:, 1].max())
+    boxes = {id(d): _box(d.contour) for d in dets}
     keep: list[Detection] = []
     for d in sorted(dets, key=lambda d: -d.features["area_mm2"]):
         c = (float(d.features["cx_px"]), float(d.features["cy_px"]))
@@ -884,7 +878,7 @@ def _dedupe(dets: list[Detection]) -> list[Detection]:
             if not _boxes_touch(boxes[id(d)], boxes[id(k)]):
                 continue
             inside = cv2.pointPolygonTest(k.contour.astype(np.float32).reshape(-1, 1, 2), c, False) >= 0
-            if inside or _overlap(d, k, boxes[id(d)], boxes[id(k)]) > DUPLICATE_OVERLAP:
+            if inside or _overlap(d.contour, k.contour, boxes[id(d)], boxes[id(k)]) > DUPLICATE_OVERLAP:
                 # of two views of one imperfection (sizes alike) keep the better; a small one
                 # inside a much larger one (a pore in an unfused band) goes with the larger
                 alike = d.features["area_mm2"] > 0.3 * k.features["area_mm2"]
@@ -919,7 +913,6 @@ def _join_around_patches(dets: list[Detection], M: _Maps) -> list[Detection]:
     if not dark:
         return dets
     gap = 0.3 * M.mm
-    h, w = M.g.shape
     gone: set[int] = set()
     joined: list[Detection] = []
     for d in dets:
@@ -927,16 +920,14 @@ def _join_around_patches(dets: list[Detection], M: _Maps) -> list[Detection]:
         if f.get("source") != "smooth" or d.kind == "none" or f["greatest_mm"] >= INNER_PATCH_MM:
             continue
         c = d.contour
-        x0, y0 = c.min(axis=0) - gap
-        x1, y1 = c.max(axis=0) + gap
-        near = [k for k in dark if id(k) not in gone
-                and _boxes_touch((x0, y0, x1, y1), (*k.contour.min(axis=0), *k.contour.max(axis=0)))]
+        bd = _box(c)
+        reach = (bd[0] - gap, bd[1] - gap, bd[2] + gap, bd[3] + gap)
+        near = [k for k in dark if id(k) not in gone and _boxes_touch(reach, _box(k.contour))]
         if not near or sum(k.features["area_mm2"] for k in near) < f["area_mm2"]:
             continue
         pts = np.concatenate([k.contour for k in near]).astype(np.float32)
         hull = cv2.convexHull(pts).reshape(-1, 2).astype(np.float64)
-        bh = (*hull.min(axis=0), *hull.max(axis=0))
-        if _covered_share(d, Detection(d.kind, 0.0, hull, "", {}), (*c.min(axis=0), *c.max(axis=0)), bh) < INNER_PATCH_SHARE:
+        if _covered_share(c, hull, bd, _box(hull)) < INNER_PATCH_SHARE:
             continue
         gone.add(id(d))
         whole = cv2.convexHull(np.concatenate([pts, c.astype(np.float32)])).reshape(-1, 2).astype(np.float64)
@@ -952,11 +943,9 @@ def _described(contour: np.ndarray, M: _Maps, *, source: str) -> Detection | Non
     f = polygon_features(contour, px_per_mm=M.mm)
     if f["area_mm2"] <= 0:
         return None
-    h, w = M.g.shape
-    pad = max(2, int(round(0.3 * M.mm))) + 2
-    x0, y0 = np.floor(contour.min(axis=0)).astype(int) - pad
-    x1, y1 = np.ceil(contour.max(axis=0)).astype(int) + pad + 1
-    win = (slice(max(0, y0), min(h, y1)), slice(max(0, x0), min(w, x1)))
+    x0, y0 = np.floor(contour.min(axis=0)).astype(int)
+    x1, y1 = np.ceil(contour.max(axis=0)).astype(int) + 1
+    win = _ring_window((slice(int(y0), int(y1)), slice(int(x0), int(x1))), M)
     reg = np.zeros((win[0].stop - win[0].start, win[1].stop - win[1].start), np.uint8)
     cv2.fillPoly(reg, [np.round(contour - [win[1].start, win[0].start]).astype(np.int32)], 1)
     reg = (reg > 0) & M.mask[win]
@@ -969,28 +958,42 @@ INNER_PATCH_MM = 4.0
 INNER_PATCH_SHARE = 0.5
 
 
+def _ring_window(sl, M: _Maps) -> tuple[slice, slice]:
+    """The (rows, cols) slices ``sl`` widened by room for a region's surrounding ring, clipped to the face."""
+    h, w = M.g.shape
+    pad = max(2, int(round(0.3 * M.mm))) + 2
+    return (slice(max(0, sl[0].start - pad), min(h, sl[0].stop + pad)),
+            slice(max(0, sl[1].start - pad), min(w, sl[1].stop + pad)))  # fmt: skip
+
+
+def _box(contour: np.ndarray) -> tuple[float, float, float, float]:
+    """(x0, y0, x1, y1) of an outline in face pixels."""
+    return (contour[:, 0].min(), contour[:, 1].min(), contour[:, 0].max(), contour[:, 1].max())
+
+
 def _boxes_touch(a, b) -> bool:
     return a[0] <= b[2] and b[0] <= a[2] and a[1] <= b[3] and b[1] <= a[3]
 
 
-def _overlap(d: Detection, k: Detection, bd, bk) -> float:
-    """Shared area of two outlines over the smaller one's area (rasterised on their common box)."""
-    return _shared(d, k, bd, bk, of_first=False)
+def _overlap(a: np.ndarray, b: np.ndarray, ba, bb) -> float:
+    """Shared area of two outlines (face pixels, boxes ``ba``, ``bb``) over the smaller one's area."""
+    return _shared(a, b, ba, bb, of_first=False)
 
 
-def _covered_share(d: Detection, k: Detection, bd, bk) -> float:
-    """Share of ``d``'s outline area that ``k``'s outline covers."""
-    return _shared(d, k, bd, bk, of_first=True)
+def _covered_share(a: np.ndarray, b: np.ndarray, ba, bb) -> float:
+    """Share of outline ``a``'s area that outline ``b`` covers."""
+    return _shared(a, b, ba, bb, of_first=True)
 
 
-def _shared(d: Detection, k: Detection, bd, bk, *, of_first: bool) -> float:
+def _shared(a: np.ndarray, b: np.ndarray, bd, bk, *, of_first: bool) -> float:
+    """Shared area of outlines ``a`` and ``b``, rasterised on their common box, over ``a``'s area or the smaller's."""
     x0, y0 = int(math.floor(min(bd[0], bk[0]))), int(math.floor(min(bd[1], bk[1])))
     x1, y1 = int(math.ceil(max(bd[2], bk[2]))), int(math.ceil(max(bd[3], bk[3])))
     shape = (y1 - y0 + 2, x1 - x0 + 2)
     m1 = np.zeros(shape, np.uint8)
     m2 = np.zeros(shape, np.uint8)
-    cv2.fillPoly(m1, [np.round(d.contour - [x0, y0]).astype(np.int32)], 1)
-    cv2.fillPoly(m2, [np.round(k.contour - [x0, y0]).astype(np.int32)], 1)
+    cv2.fillPoly(m1, [np.round(a - [x0, y0]).astype(np.int32)], 1)
+    cv2.fillPoly(m2, [np.round(b - [x0, y0]).astype(np.int32)], 1)
     a1, a2 = int(m1.sum()), int(m2.sum())
     base = a1 if of_first else min(a1, a2)
     if base == 0:
