@@ -629,14 +629,24 @@ def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: f
             far = float(np.median(prof_i[:mcol] if outward < 0 else prof_i[w - mcol :]))
             new = _calm_end(prof_s, pos, inner_i, far, outward, keep=textured, min_len=pers_x, persist=pers_x)
             x_lo, x_hi = (new, x_hi) if side == 0 else (x_lo, new)
-        # an end beyond which the face's brightness goes on, still clearly textured, is not
-        # an end that can be trusted (a face much calmer there than in its middle, or the
-        # plate of the face's own look): the outline is then as likely a part of the face
-        # (texture just beside the long edges there too is the plate or table around the face)
+        # texture just beside the long edges (the plate or table around the face: what is
+        # textured there too is not the face's own texture)
         r0, r1 = max(0, int(y_lo - 3 * q)), max(1, int(y_lo - 1 * q))
         r2, r3 = min(h - 1, int(y_hi + 1 * q)), min(h, int(y_hi + 3 * q))
         beside = np.maximum(np.median(e[r0:r1], axis=0) if r1 > r0 else 0.0,
                             np.median(e[r2:r3], axis=0) if r3 > r2 else 0.0)
+        # a face calming and darkening towards an end (light falling off along a long face, a
+        # finer break there) ends where its texture falls to the surroundings', not to half
+        # the middle's
+        for side, outward in ((0, -1), (1, +1)):
+            pos = (x_lo, x_hi)[side]
+            far = float(np.median(prof_i[:mcol] if outward < 0 else prof_i[w - mcol :]))
+            new = _faint_end(prof_x, prof_s, beside, pos, outward, out_level=(lv_l, lv_r)[side], inner_i=inner_i,
+                             outer_i=far, q=q, persist=pers_x)
+            x_lo, x_hi = (new, x_hi) if side == 0 else (x_lo, new)
+        # an end beyond which the face's brightness goes on, still clearly textured, is not
+        # an end that can be trusted (a face much calmer there than in its middle, or the
+        # plate of the face's own look): the outline is then as likely a part of the face
         for pos, outward, far in ((x_lo, -1, prof_i[:mcol]), (x_hi, +1, prof_i[w - mcol :])):
             if _texture_goes_on(prof_x, prof_s, beside, pos, outward, inner_i=inner_i, outer_i=float(np.median(far)),
                                 level=OPEN_END_SHARE * lv_in, q=q):
@@ -1079,6 +1089,68 @@ def _calm_end(p, pos: float, inner: float, outer: float, outward: int, *, keep, 
     if abs(float(np.median(p[a : b + 1])) - inner) > 0.15 * abs(inner - outer):
         return pos
     return float(last + 0.5 * outward)
+
+
+def _faint_end(tex, bright, beside, pos: float, outward: int, *, out_level: float, inner_i: float, outer_i: float,
+               q: float, persist: int) -> float:
+    """Move a face end outwards over a stretch of the face calmer than the texture just inside the end.
+
+    The texture ``tex`` just inside the end (median 0.5-2.5 mm in) and the
+    surroundings' ``out_level`` set a faint level, their geometric mean: far
+    below the face and far above plain surroundings, whatever the lighting
+    does to both.  Walking outwards from ``pos``, a sample is face while its
+    texture is above that level, above twice the texture ``beside`` the long
+    edges there (a textured plate or table carries its texture across) and
+    its brightness ``bright`` is within half the face-to-surroundings
+    difference of ``inner_i``; the walk stops where most of the next
+    ``persist`` samples are not.  A stretch of at least ``persist`` samples
+    moves the end to the half-way level between the texture just inside the
+    last face sample and the surroundings'.  It never moves inwards, and not
+    at all when the face's texture or brightness stands less than eight times
+    (texture) or 12 grey levels (brightness) clear of the surroundings.
+    """
+    tex = np.asarray(tex, dtype=np.float64)
+    n = len(tex)
+    k = int(round(pos))
+    if not 0 <= k < n or abs(inner_i - outer_i) < 12.0:
+        return pos
+
+    def inside_level(j: int) -> float:
+        a, b = sorted((j - outward * int(0.5 * q), j - outward * int(2.5 * q)))
+        a, b = max(a, 0), min(b, n - 1)
+        return float(np.median(tex[a : b + 1])) if b > a else float(tex[j])
+
+    local = inside_level(k)
+    out = max(float(out_level), 1e-9)
+    if local < 8.0 * out:
+        return pos
+    faint = math.sqrt(local * out)
+    ok = (tex >= faint) & (tex >= 2.0 * np.asarray(beside, dtype=np.float64))
+    ok &= np.abs(np.asarray(bright, dtype=np.float64) - inner_i) <= 0.5 * abs(inner_i - outer_i)
+    last = None
+    for step in range(1, n):
+        i = k + outward * step
+        if not 0 <= i < n:
+            break
+        ahead = ok[i : i + persist] if outward > 0 else ok[max(0, i - persist + 1) : i + 1]
+        if not ok[i] and np.mean(ahead) < 0.3:
+            break
+        if ok[i]:
+            last = i
+    if last is None or abs(last - k) < persist:
+        return pos
+    # the end: where the texture, walking in from the last face sample, reaches half-way
+    # between its level just inside and the surroundings'
+    lvl = 0.5 * (inside_level(last) + out)
+    i = last
+    while (i - k) * outward > 0 and tex[i] < lvl:
+        i -= outward
+    j = i + outward  # tex[i] >= lvl > tex[j], or j is the last sample
+    if 0 <= j < n and tex[i] > tex[j] and tex[j] < lvl:
+        edge = i + outward * (tex[i] - lvl) / (tex[i] - tex[j])
+    else:
+        edge = last + 0.5 * outward
+    return float(edge) if (edge - pos) * outward > 0 else pos
 
 
 def _same_brightness_reach(p: np.ndarray, pos: float, inner: float, outer: float, outward: int, reach: float,

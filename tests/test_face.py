@@ -201,18 +201,67 @@ def test_face_rougher_in_its_middle_keeps_its_calm_ends(rough):
     assert iou_plane(plane_outline(face, calib), np.asarray(RECT)) > 0.93
 
 
-def test_face_much_calmer_at_its_ends_is_refused_not_cut():
-    """Ends four times calmer (in texture energy) than the middle, of the face's brightness and bounded
-    by its long edges: the outline cannot tell where the face ends, so it asks for a box rather than
-    return the rough middle alone (55 % short)."""
-    rgb, gray, calib = analytic_photo(RECT, seed=12, rough=(60.0, 110.0, 2.0))
-    with pytest.raises(FaceError, match="goes on beyond it.*--roi"):
-        find_face(rgb, gray, calib)
-    # with a box the same face is measured, and the doubt stays on it as a warning
-    box = apply_h(H_PLANE_TO_PHOTO, np.array([[20.0, 30.0], [150.0, 60.0]]))
-    (x0, y0), (x1, y1) = box.min(0), box.max(0)
-    face = find_face(rgb, gray, calib, roi=(x0, y0, x1, y1))
-    assert any("beyond an end" in w for w in face.warnings)
+@pytest.mark.parametrize("factor", [2.0, 3.0], ids=["ends-4x-calmer", "ends-9x-calmer"])
+def test_face_much_calmer_at_its_ends_is_followed_to_them(factor):
+    """Ends 4 and 9 times calmer (in texture energy) than the middle, of the face's brightness and
+    bounded by its long edges (light falling off along a long face, a finer break there): the ends
+    are where the texture falls to the plain table's, not where it falls to half the middle's
+    (the rough middle alone is 55 % short, and what lies beyond it is never looked at)."""
+    rgb, gray, calib = analytic_photo(RECT, seed=12, rough=(60.0, 110.0, factor))
+    face = find_face(rgb, gray, calib)
+    assert face.length_mm == pytest.approx(RECT[1][0] - RECT[0][0], rel=0.03)  # the polygon's X extent
+    assert face.area_mm2 == pytest.approx(shoelace(RECT), rel=0.04)  # analytic geometry
+    assert iou_plane(plane_outline(face, calib), np.asarray(RECT)) > 0.93
+
+
+def _calm_end_profiles(q=10.0):
+    """Constructed profiles along a face (q samples per mm): a middle textured at 100 up to X = 30 mm,
+    a calm end at 8 up to X = 50 mm, plain surroundings at 0.05 beyond (blurred steps, Gaussian
+    CDF: the half-way level between two plateaus sits at their step, analytic); brightness 150 on the
+    face, 60 beyond it."""
+    from scipy.special import ndtr
+
+    x = np.arange(800) / q
+    tex = 0.05 + 92.0 * (1 - ndtr((x - 30.0) / 0.3)) + 7.95 * (1 - ndtr((x - 50.0) / 0.3))  # (scipy CDF)
+    bright = 60.0 + 90.0 * (1 - ndtr((x - 50.0) / 0.2))
+    return x, tex, bright
+
+
+def test_faint_end_follows_a_calm_end_to_the_surroundings():
+    """From an end found where the middle's texture halves (X = 30 mm), the end moves out over the
+    calm stretch to X = 50 mm, the half-way level between the calm end and the surroundings."""
+    from surfaces.face import _faint_end
+
+    q = 10.0
+    x, tex, bright = _calm_end_profiles(q)
+    start = float(np.interp(-50.0, -tex[:400], np.arange(400)))  # the middle's half level, at its step
+    assert start / q == pytest.approx(30.0, abs=0.1)
+    pos = _faint_end(tex, bright, np.zeros_like(tex), start, +1, out_level=0.05, inner_i=150.0, outer_i=60.0,
+                     q=q, persist=20)
+    assert pos / q == pytest.approx(50.0, abs=0.15)
+    # mirrored: the same walk outwards to lower X
+    pos_l = _faint_end(tex[::-1], bright[::-1], np.zeros_like(tex), len(tex) - 1 - start, -1, out_level=0.05,
+                       inner_i=150.0, outer_i=60.0, q=q, persist=20)
+    assert (len(tex) - 1 - pos_l) / q == pytest.approx(50.0, abs=0.15)
+
+
+def test_faint_end_does_not_walk_onto_plate_table_or_shadow():
+    """The same calm stretch is not face when the texture beside the long edges is as strong (a
+    textured plate or table carries it across), when it is of the surroundings' brightness, or when
+    the surroundings are textured too (no room for a faint level between them): the end stays."""
+    from surfaces.face import _faint_end
+
+    q = 10.0
+    x, tex, bright = _calm_end_profiles(q)
+    start = 300.0
+    kw = dict(inner_i=150.0, outer_i=60.0, q=q, persist=20)
+    beside = np.where((x > 30.0) & (x < 50.0), 8.0, 0.0)
+    assert _faint_end(tex, bright, beside, start, +1, out_level=0.05, **kw) == start
+    dark = np.where(x > 30.5, 60.0, bright)  # a shadow (or the table) right after the end
+    assert _faint_end(tex, dark, np.zeros_like(tex), start, +1, out_level=0.05, **kw) == start
+    assert _faint_end(tex, bright, np.zeros_like(tex), start, +1, out_level=20.0, **kw) == start
+    # and it never moves an end inwards
+    assert _faint_end(tex, bright, np.zeros_like(tex), 520.0, -1, out_level=0.05, **kw) == 520.0
 
 
 def test_smooth_rim_brighter_than_the_face_beside_a_shadow_stays_in_the_face():
