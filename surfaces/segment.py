@@ -430,7 +430,7 @@ def _smooth_candidates(M: _Maps, taken_dets) -> list[Detection]:
     h, w = M.g.shape
     # smooth (little fracture grain) or tinted (oxide colour) areas: hysteresis on both,
     # the colour levels scaled by the face's own colour spread
-    tex = cv2.GaussianBlur(M.tex, (0, 0), 0.15 * M.mm) / M.tex_med
+    tex = cv2.GaussianBlur(M.tex, (0, 0), 0.15 * M.mm) / (M.tex_med * _texture_along(M))
     chroma = _chroma_dev(M)
     c_sig = _robust_sigma(chroma[M.mask][:: max(1, int(M.mask.sum() // 200000))])
     c_hi, c_lo = max(8.0, 6.0 * c_sig), max(5.0, 4.0 * c_sig)
@@ -450,6 +450,38 @@ def _smooth_candidates(M: _Maps, taken_dets) -> list[Detection]:
     sm &= M.mask & (cv2.dilate(taken, np.ones((3, 3), np.uint8)) == 0)
     lab, n = ndi.label(sm)
     return _region_candidates(lab, M, min_px=(0.8 * M.mm) ** 2, min_greatest_mm=1.0, kind="unfused", source="smooth")
+
+
+#: window (mm along the weld) of the face's local texture level, and how far that level may
+#: stray from the whole face's (a long smooth band must not set its own level)
+LOCAL_TEXTURE_MM = 20.0
+LOCAL_TEXTURE_RANGE = (0.4, 1.6)
+
+
+def _texture_along(M: _Maps) -> np.ndarray:
+    """The face's texture level along the weld, over the whole face's: (1, w) factors.
+
+    Light falling off along a long face, or a break finer towards its ends,
+    makes whole stretches calmer than the middle; measured against the whole
+    face's level they would read as smooth (lack of fusion).  Per column the
+    upper quartile over the face's rows (a band across part of the width
+    leaves it), then the running median over :data:`LOCAL_TEXTURE_MM`,
+    kept within :data:`LOCAL_TEXTURE_RANGE` of the whole face's level.
+    """
+    t = np.where(M.mask, M.tex, np.nan)
+    cols = M.mask.any(axis=0)
+    if cols.sum() < 2:
+        return np.ones((1, M.tex.shape[1]), np.float32)
+    prof = np.full(M.tex.shape[1], np.nan)
+    prof[cols] = np.nanpercentile(t[:, cols], 75, axis=0)
+    idx = np.arange(len(prof))
+    prof = np.interp(idx, idx[cols], prof[cols])
+    whole = float(np.median(prof[cols]))
+    if not whole > 0:
+        return np.ones((1, M.tex.shape[1]), np.float32)
+    win = max(3, int(round(LOCAL_TEXTURE_MM * M.mm)) | 1)
+    r = np.clip(ndi.median_filter(prof, size=win, mode="nearest") / whole, *LOCAL_TEXTURE_RANGE)
+    return r.astype(np.float32).reshape(1, -1)
 
 
 def label_medians(values: np.ndarray, lab: np.ndarray, n: int) -> np.ndarray:
