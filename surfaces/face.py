@@ -500,6 +500,9 @@ RUN_ON_CONTRAST = 4.0
 BRIGHT_RIM_STEP_MM = 2.0
 #: farthest an end moves out to the half-way level of the face's texture just inside it (mm)
 LOCAL_END_REACH_MM = 3.0
+#: an end moves out over a calmer stretch of the face only when the texture just inside it is at
+#: least this many times the surroundings' (room for a faint level between the two)
+FAINT_END_CLEAR = 4.0
 #: how many times the frame is lengthened when the face's texture runs on past its margin
 MAX_GROW = 3
 #: length of the stretches along the weld whose long edges are located separately
@@ -1102,17 +1105,19 @@ def _faint_end(tex, bright, beside, pos: float, outward: int, *, out_level: floa
     texture is above that level, above twice the texture ``beside`` the long
     edges there (a textured plate or table carries its texture across) and
     its brightness ``bright`` is within half the face-to-surroundings
-    difference of ``inner_i``; the walk stops where most of the next
-    ``persist`` samples are not.  A stretch of at least ``persist`` samples
+    difference of ``inner_i``; the walk stops where over 70 % of the next
+    ``2 * persist`` samples are not (a pore at the very end is passed over).  A stretch of at least ``persist`` samples
     moves the end to the half-way level between the texture just inside the
     last face sample and the surroundings'.  It never moves inwards, and not
-    at all when the face's texture or brightness stands less than eight times
-    (texture) or 12 grey levels (brightness) clear of the surroundings.
+    at all when the face's texture stands less than :data:`FAINT_END_CLEAR`
+    times clear of the surroundings'; brightness counts only where face and
+    surroundings differ by 12 grey levels or more, and plain surroundings
+    count as 1/400 of the face's texture (energy: the faint level is then 1/20).
     """
     tex = np.asarray(tex, dtype=np.float64)
     n = len(tex)
     k = int(round(pos))
-    if not 0 <= k < n or abs(inner_i - outer_i) < 12.0:
+    if not 0 <= k < n:
         return pos
 
     def inside_level(j: int) -> float:
@@ -1121,18 +1126,20 @@ def _faint_end(tex, bright, beside, pos: float, outward: int, *, out_level: floa
         return float(np.median(tex[a : b + 1])) if b > a else float(tex[j])
 
     local = inside_level(k)
-    out = max(float(out_level), 1e-9)
-    if local < 8.0 * out:
+    if local <= 0 or local < FAINT_END_CLEAR * out_level:
         return pos
+    out = max(float(out_level), 0.0025 * local)  # plain surroundings: the faint level is a twentieth of the face's
     faint = math.sqrt(local * out)
     ok = (tex >= faint) & (tex >= 2.0 * np.asarray(beside, dtype=np.float64))
-    ok &= np.abs(np.asarray(bright, dtype=np.float64) - inner_i) <= 0.5 * abs(inner_i - outer_i)
+    if abs(inner_i - outer_i) >= 12.0:  # brightness tells face from surroundings only where they differ
+        ok &= np.abs(np.asarray(bright, dtype=np.float64) - inner_i) <= 0.5 * abs(inner_i - outer_i)
     last = None
     for step in range(1, n):
         i = k + outward * step
         if not 0 <= i < n:
             break
-        ahead = ok[i : i + persist] if outward > 0 else ok[max(0, i - persist + 1) : i + 1]
+        # a look twice the persistence ahead: a pore or dark speck at the very end is passed over
+        ahead = ok[i : i + 2 * persist] if outward > 0 else ok[max(0, i - 2 * persist + 1) : i + 1]
         if not ok[i] and np.mean(ahead) < 0.3:
             break
         if ok[i]:

@@ -245,6 +245,24 @@ def test_faint_end_follows_a_calm_end_to_the_surroundings():
     assert (len(tex) - 1 - pos_l) / q == pytest.approx(50.0, abs=0.15)
 
 
+def test_faint_end_passes_a_pore_at_the_end_and_works_without_a_brightness_step():
+    """A dark pore 2.5 mm across sitting at the end of the calm stretch (X 46..48.5 mm, at the table's
+    brightness and untextured) is passed over: the end stays at X = 50 mm. With a table as bright as
+    the face (no brightness step to go by) the texture alone places the end there too."""
+    from surfaces.face import _faint_end
+
+    q = 10.0
+    x, tex, bright = _calm_end_profiles(q)
+    pore = (x >= 46.0) & (x < 48.5)
+    kw = dict(out_level=0.05, q=q, persist=20)
+    pos = _faint_end(np.where(pore, 0.05, tex), np.where(pore, 60.0, bright), np.zeros_like(tex), 300.0, +1,
+                     inner_i=150.0, outer_i=60.0, **kw)
+    assert pos / q == pytest.approx(50.0, abs=0.15)
+    even = np.full_like(bright, 150.0)
+    pos = _faint_end(tex, even, np.zeros_like(tex), 300.0, +1, inner_i=150.0, outer_i=145.0, **kw)
+    assert pos / q == pytest.approx(50.0, abs=0.15)
+
+
 def test_faint_end_does_not_walk_onto_plate_table_or_shadow():
     """The same calm stretch is not face when the texture beside the long edges is as strong (a
     textured plate or table carries it across), when it is of the surroundings' brightness, or when
@@ -259,7 +277,7 @@ def test_faint_end_does_not_walk_onto_plate_table_or_shadow():
     assert _faint_end(tex, bright, beside, start, +1, out_level=0.05, **kw) == start
     dark = np.where(x > 30.5, 60.0, bright)  # a shadow (or the table) right after the end
     assert _faint_end(tex, dark, np.zeros_like(tex), start, +1, out_level=0.05, **kw) == start
-    assert _faint_end(tex, bright, np.zeros_like(tex), start, +1, out_level=20.0, **kw) == start
+    assert _faint_end(tex, bright, np.zeros_like(tex), start, +1, out_level=30.0, **kw) == start  # 100 < 4 x 30
     # and it never moves an end inwards
     assert _faint_end(tex, bright, np.zeros_like(tex), 520.0, -1, out_level=0.05, **kw) == 520.0
 
