@@ -47,6 +47,7 @@ import math
 
 import cv2
 import numpy as np
+from scipy import ndimage as ndi
 
 from .geometry import apply_h
 from .model import WORK_PX_PER_MM, Calibration, Face, FaceError
@@ -313,6 +314,26 @@ def _components(binary: np.ndarray):
         return cv2.connectedComponentsWithStats(binary, connectivity=8, ltype=cv2.CV_32S)
 
 
+#: grey ranges (share of the paper's level, below it) within which the card's paper is flooded,
+#: widest first
+CARD_FLOOD_TOLERANCES = (0.25, 0.12, 0.06)
+#: a flooded card (its print filled in) fills at least this share of its smallest enclosing
+#: rectangle; paper joined to a pale plate or table does not
+CARD_RECTANGULAR = 0.8
+
+
+def _rectangular(region: np.ndarray) -> float:
+    """Share of the smallest rotated rectangle around ``region``'s largest piece that the piece fills."""
+    n, lab, stats, _ = cv2.connectedComponentsWithStats(region.astype(np.uint8), connectivity=8)
+    if n < 2:
+        return 0.0
+    k = 1 + int(np.argmax(stats[1:, cv2.CC_STAT_AREA]))
+    piece = ndi.binary_fill_holes(lab == k)  # the print (marker, text, scale) is paper too
+    ys, xs = np.nonzero(piece)
+    (_, _), (rw, rh), _ = cv2.minAreaRect(np.c_[xs, ys].astype(np.float32))
+    return float(len(xs) / max((rw + 1) * (rh + 1), 1.0))
+
+
 def _card_mask(val: np.ndarray, quad_px: np.ndarray, s: float) -> np.ndarray:
     """Coarse-plane pixels of the paper card that carries the marker ``quad_px``."""
     h, w = val.shape
@@ -330,14 +351,22 @@ def _card_mask(val: np.ndarray, quad_px: np.ndarray, s: float) -> np.ndarray:
     if not paper:
         return np.zeros((h, w), bool)
     white = float(np.median([img[y, x] for x, y in paper]))
-    for x, y in paper:
-        if img[y, x] >= 0.7 * white and not mask[y + 1, x + 1]:
-            cv2.floodFill(img.copy(), mask, (x, y), 255, loDiff=int(0.25 * white), upDiff=255,
-                          flags=8 | cv2.FLOODFILL_MASK_ONLY | cv2.FLOODFILL_FIXED_RANGE | (255 << 8))
-    card = mask[1:-1, 1:-1] > 0
     side_px = float(np.mean(np.linalg.norm(np.roll(q, -1, 0) - q, axis=1)))
-    # a flood that leaks into a pale table is no card: an A4 sheet is the largest we print
-    if card.sum() > min(70000.0 * s * s, 0.4 * h * w, 400.0 * side_px**2):
+    largest = min(70000.0 * s * s, 0.4 * h * w, 400.0 * side_px**2)  # an A4 sheet is the largest we print
+    card = None
+    # a flood that leaks into a pale table is no card: the paper is flooded again within a
+    # narrower range of its own grey (a cream card on a beige table differs by a few levels)
+    for tol in CARD_FLOOD_TOLERANCES:
+        mask[:] = 0
+        for x, y in paper:
+            if img[y, x] >= 0.7 * white and not mask[y + 1, x + 1]:
+                cv2.floodFill(img.copy(), mask, (x, y), 255, loDiff=max(1, int(tol * white)), upDiff=255,
+                              flags=8 | cv2.FLOODFILL_MASK_ONLY | cv2.FLOODFILL_FIXED_RANGE | (255 << 8))
+        flooded = mask[1:-1, 1:-1] > 0
+        if flooded.sum() <= largest and _rectangular(flooded) >= CARD_RECTANGULAR:
+            card = flooded
+            break
+    if card is None:
         card = np.zeros((h, w), bool)
         cv2.fillPoly(card.view(np.uint8), [np.round(ctr + (q - ctr) * 2.6).astype(np.int32)], 1)
     marker = np.zeros((h, w), np.uint8)

@@ -470,3 +470,53 @@ def test_region_labelling_matches_opencvs_32_bit_labels_and_survives_overflow():
         assert n == n_ref and np.array_equal(lab, lab_ref)
         assert np.array_equal(stats, stats_ref) and np.allclose(cents, cents_ref)
     assert _components(dots)[0] - 1 == 267 * 267
+
+
+def _card_scene(table: float, *, s: float = 4.0):
+    """A coarse plane view (``s`` px/mm) of a 60 x 90 mm paper card (grey 240) on a table of grey ``table``:
+    a 10 mm marker near one corner, a printed scale of ticks along the far end (truth by construction)."""
+    h, w = int(160 * s), int(200 * s)
+    val = np.full((h, w), table, np.float32)
+    x0, y0 = 50.0, 30.0  # card's top-left corner, mm
+    val[int(y0 * s) : int((y0 + 90) * s), int(x0 * s) : int((x0 + 60) * s)] = 240.0
+    mx, my = x0 + 8.0, y0 + 8.0  # marker's top-left, mm
+    val[int(my * s) : int((my + 10) * s), int(mx * s) : int((mx + 10) * s)] = 20.0
+    for k in range(40):  # ticks 1 mm apart, 3 mm long, 75 mm from the marker
+        xt = x0 + 10.0 + k
+        val[int((y0 + 83) * s) : int((y0 + 86) * s), int(xt * s) : int(xt * s) + 1] = 30.0
+    quad = np.array([[mx, my], [mx + 10, my], [mx + 10, my + 10], [mx, my + 10]]) * s
+    card = np.zeros((h, w), bool)
+    card[int(y0 * s) : int((y0 + 90) * s), int(x0 * s) : int((x0 + 60) * s)] = True
+    return val, quad, card, s
+
+
+@pytest.mark.parametrize("table", [90.0, 205.0, 220.0], ids=["dark-table", "beige-table", "pale-table"])
+def test_card_mask_covers_the_whole_card_also_on_a_pale_table(table):
+    """The card's paper, scale included, is kept out of the face search however pale the table: on a
+    table within a quarter of the paper's grey, the first flood runs into the table and is taken again
+    within a narrower grey range (it used to fall back to a square 2.6 marker sides across, which
+    left the printed scale, a textured strip, to be taken for the face)."""
+    from surfaces.face import _card_mask
+
+    val, quad, card, s = _card_scene(table)
+    mask = _card_mask(val, quad, s)
+    assert mask[card].mean() > 0.99  # the whole card, its far end's print too
+    # and little of the table: the card plus the closing margin (4 mm) all round, analytic
+    assert mask.sum() <= ((60 + 2 * 5) * (90 + 2 * 5)) * s * s
+
+
+def test_card_mask_does_not_take_a_pale_plate_touching_the_card():
+    """A pale plate (grey 215, 80 x 40 mm) touching the card's side on a dark table: a flood within a
+    quarter of the paper's grey takes card and plate together (an L-shape, far from the rectangle a
+    card is); the card is then taken within a narrower range, and the plate stays searchable."""
+    from surfaces.face import _card_mask
+
+    val, quad, card, s = _card_scene(90.0)
+    plate = np.zeros_like(card)
+    plate[int(40 * s) : int(80 * s), int(110 * s) : int(190 * s)] = True  # from the card's right side (X = 110)
+    val[plate] = 215.0
+    mask = _card_mask(val, quad, s)
+    assert mask[card].mean() > 0.99
+    far = plate.copy()
+    far[:, : int(120 * s)] = False  # beyond the closing margin next to the card
+    assert mask[far].mean() < 0.01
