@@ -718,13 +718,19 @@ def _record_info(assessment: dict, reviewer: str | None, reviewed_at: str | None
     cp.update(assessment.get("coupon") or {})
     if coupon:
         cp.update({k: v for k, v in coupon.items() if v not in (None, "")})
+    rev = assessment.get("review") or {}
+    auto = rev.get("automatic_verdict") or rec.get("automatic_verdict") or {}
+    changes = rev.get("changes") or {}
     return {
         "coupon": cp,
-        "reviewer": reviewer or rec.get("reviewer"),
-        "reviewed_at": reviewed_at or rec.get("reviewed_at"),
-        "review_note": rec.get("review_note"),
+        "reviewer": reviewer or rec.get("reviewer") or rev.get("reviewer"),
+        "reviewed_at": reviewed_at or rec.get("reviewed_at") or rev.get("reviewed_at"),
+        "review_note": rec.get("review_note") or rev.get("note"),
         "created_at": rec.get("created_at") or assessment.get("created"),
         "record_id": rec.get("id"),
+        # the tool's own result before a person reviewed it (kept in the record, never overwritten)
+        "automatic_result": auto.get("result"),
+        "changes": ", ".join(f"{n} {k}" for k, n in changes.items() if n) or None,
     }
 
 
@@ -936,6 +942,12 @@ def coupon_pdf(
             pdf.cell(col_w - 22, 5, _pdf_text("-" if v in (None, "") else v)[:60], new_x="LMARGIN", new_y="NEXT")
     pdf.ln(2)
     _verdict_box(pdf, result, reasons)
+    if info["automatic_result"] and info["automatic_result"] != result:
+        pdf.set_font("helvetica", "B", 9)
+        pdf.multi_cell(0, 4.6, _pdf_text(
+            f"Automatic result before review: {info['automatic_result'].upper()}. The verdict above is the "
+            f"reviewed one ({info['changes'] or 'no change recorded'}; reviewer: {info['reviewer'] or 'not named'})."),
+            new_x="LMARGIN", new_y="NEXT")
     pdf.ln(1)
     pdf.set_font("helvetica", "B", 8.5)
     pdf.cell(0, 4.4, "Cautions", new_x="LMARGIN", new_y="NEXT")
@@ -1042,6 +1054,8 @@ def coupon_pdf(
         ("Reviewer", info["reviewer"] or "not reviewed"),
         ("Review time", info["reviewed_at"]),
         ("Review note", info["review_note"]),
+        ("Automatic result", (info["automatic_result"] or "").upper() or None),
+        ("Review changes", info["changes"]),
         ("Record", info["record_id"]),
         ("Tool version", f"{tool.get('name', 'surfaces')} {tool.get('version', '')}"),
         ("Schema", assessment.get("schema")),

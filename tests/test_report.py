@@ -427,3 +427,22 @@ def test_banner_text_shrinks_before_it_is_cut():
     got, fs = report._shrink_to_fit(text, int(full * 0.3), 1.0, 1)
     assert got.endswith("...") and len(got) < len(text)
     assert report._shrink_to_fit(text, full + 5, 1.0, 1) == (text, 1.0)
+
+
+@pytest.mark.skipif(not HAVE_PDFTOTEXT, reason="pdftotext (poppler-utils) not installed")
+def test_reviewed_report_keeps_the_automatic_result_in_view(tmp_path):
+    """A reviewer dismissed the detection that rejected the coupon: the report's verdict is the reviewed
+    accept, and right under it the tool's own reject before review, with what changed and who changed it
+    (the review block as ui.review.reviewed_assessment writes it)."""
+    a = make_assessment(result="accept")
+    a["review"] = {"reviewer": "Inspector Demo", "reviewed_at": "2026-12-02T10:00:00+00:00", "note": "lap, not a crack",
+                   "changes": {"confirmed": 0, "dismissed": 1, "edited": 0, "added": 0},
+                   "automatic_verdict": {"result": "reject", "reasons": ["crack 4: any crack rejects"]},
+                   "automatic_imperfections": 6}
+    flat = " ".join(_pdf_text(report.coupon_pdf(a, synthetic_photo()), tmp_path).split())
+    assert "Verdict: ACCEPT" in flat
+    assert "Automatic result before review: REJECT" in flat and "1 dismissed" in flat
+    assert "Inspector Demo" in flat and "lap, not a crack" in flat
+    # an unreviewed report has no such line
+    plain = " ".join(_pdf_text(report.coupon_pdf(make_assessment(result="accept"), synthetic_photo()), tmp_path).split())
+    assert "before review" not in plain
