@@ -324,7 +324,7 @@ CARD_RECTANGULAR = 0.8
 
 def _rectangular(region: np.ndarray) -> float:
     """Share of the smallest rotated rectangle around ``region``'s largest piece that the piece fills."""
-    n, lab, stats, _ = cv2.connectedComponentsWithStats(region.astype(np.uint8), connectivity=8)
+    n, lab, stats, _ = _components(region.astype(np.uint8))
     if n < 2:
         return 0.0
     k = 1 + int(np.argmax(stats[1:, cv2.CC_STAT_AREA]))
@@ -360,7 +360,7 @@ def _card_mask(val: np.ndarray, quad_px: np.ndarray, s: float) -> np.ndarray:
         mask[:] = 0
         for x, y in paper:
             if img[y, x] >= 0.7 * white and not mask[y + 1, x + 1]:
-                cv2.floodFill(img.copy(), mask, (x, y), 255, loDiff=max(1, int(tol * white)), upDiff=255,
+                cv2.floodFill(img, mask, (x, y), 255, loDiff=max(1, int(tol * white)), upDiff=255,  # mask only: img kept
                               flags=8 | cv2.FLOODFILL_MASK_ONLY | cv2.FLOODFILL_FIXED_RANGE | (255 << 8))
         flooded = mask[1:-1, 1:-1] > 0
         if flooded.sum() <= largest and _rectangular(flooded) >= CARD_RECTANGULAR:
@@ -656,31 +656,28 @@ def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: f
         textured = cv2.blur(prof_x.reshape(1, -1), (pers_x | 1, 1)).ravel() >= END_TEXTURE_SHARE * lv_in
         # brightness over a millimetre: a coarse grain leaves the median across the face noisy
         prof_s = cv2.blur(prof_i.reshape(1, -1).astype(np.float32), (max(1, int(q)) | 1, 1)).ravel()
-        for side, outward in ((0, -1), (1, +1)):
-            pos = (x_lo, x_hi)[side]
-            far = float(np.median(prof_i[:mcol] if outward < 0 else prof_i[w - mcol :]))
-            new = _calm_end(prof_s, pos, inner_i, far, outward, keep=textured, min_len=pers_x, persist=pers_x)
-            x_lo, x_hi = (new, x_hi) if side == 0 else (x_lo, new)
+        # the surroundings' brightness beyond each end (the far margins)
+        far = (float(np.median(prof_i[:mcol])), float(np.median(prof_i[w - mcol :])))
         # texture just beside the long edges (the plate or table around the face: what is
         # textured there too is not the face's own texture)
         r0, r1 = max(0, int(y_lo - 3 * q)), max(1, int(y_lo - 1 * q))
         r2, r3 = min(h - 1, int(y_hi + 1 * q)), min(h, int(y_hi + 3 * q))
         beside = np.maximum(np.median(e[r0:r1], axis=0) if r1 > r0 else 0.0,
                             np.median(e[r2:r3], axis=0) if r3 > r2 else 0.0)
-        # a face calming and darkening towards an end (light falling off along a long face, a
-        # finer break there) ends where its texture falls to the surroundings', not to half
-        # the middle's
         for side, outward in ((0, -1), (1, +1)):
-            pos = (x_lo, x_hi)[side]
-            far = float(np.median(prof_i[:mcol] if outward < 0 else prof_i[w - mcol :]))
-            new = _faint_end(prof_x, prof_s, beside, pos, outward, out_level=(lv_l, lv_r)[side], inner_i=inner_i,
-                             outer_i=far, q=q, persist=pers_x)
-            x_lo, x_hi = (new, x_hi) if side == 0 else (x_lo, new)
+            pos = _calm_end(prof_s, (x_lo, x_hi)[side], inner_i, far[side], outward, keep=textured, min_len=pers_x,
+                            persist=pers_x)
+            # a face calming and darkening towards an end (light falling off along a long face, a
+            # finer break there) ends where its texture falls to the surroundings', not to half
+            # the middle's
+            pos = _faint_end(prof_x, prof_s, beside, pos, outward, out_level=(lv_l, lv_r)[side], inner_i=inner_i,
+                             outer_i=far[side], q=q, persist=pers_x)
+            x_lo, x_hi = (pos, x_hi) if side == 0 else (x_lo, pos)
         # an end beyond which the face's brightness goes on, still clearly textured, is not
         # an end that can be trusted (a face much calmer there than in its middle, or the
         # plate of the face's own look): the outline is then as likely a part of the face
-        for pos, outward, far in ((x_lo, -1, prof_i[:mcol]), (x_hi, +1, prof_i[w - mcol :])):
-            if _texture_goes_on(prof_x, prof_s, beside, pos, outward, inner_i=inner_i, outer_i=float(np.median(far)),
+        for pos, outward, far_i in ((x_lo, -1, far[0]), (x_hi, +1, far[1])):
+            if _texture_goes_on(prof_x, prof_s, beside, pos, outward, inner_i=inner_i, outer_i=far_i,
                                 level=OPEN_END_SHARE * lv_in, q=q):
                 c_x = min(c_x, 0.3)
                 warnings.append(OPEN_END_NOTE)
@@ -1135,9 +1132,10 @@ def _faint_end(tex, bright, beside, pos: float, outward: int, *, out_level: floa
     edges there (a textured plate or table carries its texture across) and
     its brightness ``bright`` is within half the face-to-surroundings
     difference of ``inner_i``; the walk stops where over 70 % of the next
-    ``2 * persist`` samples are not (a pore at the very end is passed over).  A stretch of at least ``persist`` samples
-    moves the end to the half-way level between the texture just inside the
-    last face sample and the surroundings'.  It never moves inwards, and not
+    ``2 * persist`` samples are not (a pore at the very end is passed over).
+    A stretch of at least ``persist`` samples moves the end to the half-way
+    level between the texture just inside the last face sample and the
+    surroundings'.  It never moves inwards, and not
     at all when the face's texture stands less than :data:`FAINT_END_CLEAR`
     times clear of the surroundings'; brightness counts only where face and
     surroundings differ by 12 grey levels or more, and plain surroundings
