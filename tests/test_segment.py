@@ -401,3 +401,27 @@ def test_calm_ends_alone_are_not_unfused():
     for seed in (1, 2, 3):
         dets = run(calm_end_face(seed=seed, band=None))
         assert not [d for d in dets if d.kind == "unfused"], [(d.kind, round(d.features["greatest_mm"], 1)) for d in dets]
+
+
+# the sizes are those bench.generated_set drew for these photos (mp_range 2-4, set seeds 60606 and 90909)
+@pytest.mark.parametrize("seed, mp", [(60634, 2.47840563108765), (90925, 2.2153271460324477)])
+def test_side_wall_band_shaded_darker_in_part_is_found_at_its_length(tmp_path, seed, mp):
+    # truth by construction (surfaces.synth, seeded): a nick-break face with a brown side-wall band of
+    # lack of fusion (16.2 and 11.2 mm along).  Part of each band is shaded darker than the face and is
+    # found as a dark region that the region model, rightly, does not call slag; that region used to
+    # keep the smooth search out, so the band was measured at 4.9 and 2.4 mm.  Now it is found at its
+    # length within issue 2's 10 %.
+    import json
+
+    from surfaces import bench, evaluate
+    from surfaces.pipeline import assess_path
+    from surfaces.synth import render_fracture
+
+    path = render_fracture(seed, test="nick-break", megapixels=mp).save(tmp_path / "face.jpg")
+    truth = json.loads(path.with_suffix(".truth.json").read_text())
+    a = assess_path(str(path), bench._settings_for_truth(truth)).assessment
+    m = evaluate.match(a, truth)
+    band = m[m.truth_kind == "unfused"]
+    assert len(band) == 1 and bool(band.matched.iloc[0]) and band.det_kind.iloc[0] == "unfused", band.to_dict("records")
+    t, d = float(band.truth_along_mm.iloc[0]), float(band.det_along_mm.iloc[0])
+    assert abs(d - t) < 0.1 * t, (t, d)
