@@ -348,7 +348,9 @@ def ruled_out(f: dict) -> str:
       all look like that.  A band of lack of fusion at the root is either
       tinted, reaches further in, or is a smooth wall: nearly no grain
       (inner texture under :data:`STRIP_WALL` of its ring's), which a
-      worn, blurred or shadowed edge of the fracture keeps.
+      worn, blurred or shadowed edge of the fracture keeps;
+    * such a strip, tinted or not, that keeps most of its ring's grain
+      (over :data:`STRIP_GRAINED`): the shadow or colour cast of the edge.
     """
     if f["source"] == "ridge" and f["contrast"] <= 0.0:
         return "a ridge region brighter than its surroundings"
@@ -358,6 +360,9 @@ def ruled_out(f: dict) -> str:
             and f.get("border_reach_mm", np.inf) < STRIP_REACH_MM and f["chroma_face"] < STRIP_TINT
             and f["tex_in"] > STRIP_WALL * f["tex_ring"]):  # fmt: skip
         return "an untinted strip along the face's edge"
+    if (f["source"] == "smooth" and f.get("border_touch", 0.0) >= STRIP_TOUCH
+            and f.get("border_reach_mm", np.inf) < STRIP_REACH_MM and f["tex_in"] > STRIP_GRAINED * f["tex_ring"]):  # fmt: skip
+        return "a strip along the face's edge as grained as the face beside it"
     return ""
 
 
@@ -380,6 +385,12 @@ EDGE_LINE_REACH_MM = 0.35
 EDGE_LINE_CONFIDENCE = 0.45
 
 SMOOTH_RATIO = 0.5
+#: a strip along the edge (as above) whose inner texture is over this share of its ring's is the edge, tint or
+#: not: lack of fusion is a smooth surface (the issue's description of the kind; common practice).  A shadow
+#: strip along an edge reads "tinted" against a coloured face (dev5 limit_036: three such strips, 0.90-1.42 of
+#: their ring's grain, rejected a coupon whose truth is a borderline accept); true edge bands on the tuning sets
+#: kept at most 0.67 of it
+STRIP_GRAINED = 0.8
 #: a dark or line region judged no imperfection still keeps the smooth search out when its inner texture
 #: is over this share of its ring's (grain, a shadow); a smoother one is left to the smooth search.  Set on
 #: dev4 and dev6 (two side-wall bands found at 22 % and 30 % of their length, then at their length; 0.5
