@@ -980,7 +980,7 @@ def _edges_by_stretch(e, gi, x_lo, x_hi, y_lo, y_hi, *, out_lo, out_hi, q, snap)
     for vals, inward, y_all in ((np.asarray(lo_b, float), +1.0, y_lo), (np.asarray(hi_b, float), -1.0, y_hi)):
         # the stretches give the edge's slope (a tapered face, a small axis error); its
         # level is the whole-face edge, a median over many columns and less noisy
-        a, b = _edge_line(xb, vals, inward, q=q)
+        a, b = _edge_line(xb, vals, inward, q=q, is_face=_zone_check(PI, xb, vals, inward, q=q, c0=c0, c1=c1))
         # ... unless a smooth band along more than half the edge pulled that median inwards:
         # the stretches' own line (bands left out) is then the outer one
         y_mid = min(y_all, a * x_mid + b) if inward > 0 else max(y_all, a * x_mid + b)
@@ -991,7 +991,20 @@ def _edges_by_stretch(e, gi, x_lo, x_hi, y_lo, y_hi, *, out_lo, out_hi, q, snap)
     return xe, np.polyval(out[0], xe), np.polyval(out[1], xe)
 
 
-def _edge_line(x: np.ndarray, y: np.ndarray, inward: float, *, q: float) -> np.ndarray:
+#: two stretch positions within this of each other (after the first slope) lie at one level of an
+#: edge; pairs across a band's end (about its width apart) do not give the edge's slope
+SAME_LEVEL_MM = 0.4
+#: an outer group found with the neighbour-based tolerance stands at least this far outside the
+#: main group (a smooth band's width; lack of fusion narrower than this is left to the inset)
+BAND_STEP_MM = 0.6
+#: ... and the rows it adds differ from the surroundings beyond it by this share of the face-to-surroundings
+#: brightness difference (a wandering edge's crests add table or plate)
+BAND_ZONE_SHARE = 0.3
+#: ... which needs face and surroundings at least this many grey levels apart
+BAND_ZONE_MIN_GREY = 12.0
+
+
+def _edge_line(x: np.ndarray, y: np.ndarray, inward: float, *, q: float, is_face=None) -> np.ndarray:
     """Straight edge ``y = a x + b`` through stretch positions, robust to smooth bands inside it.
 
     The slope is Theil-Sen's (median of the pairwise slopes): a band along
@@ -1001,8 +1014,10 @@ def _edge_line(x: np.ndarray, y: np.ndarray, inward: float, *, q: float) -> np.n
     the edge, and are left out; when at least a fifth of the stretches lie
     that far *outside* the main group, each within ``tol`` of another one
     of them, the main group is a band along most of the edge and the outer
-    group is the edge.  With fewer than four
-    stretches the median position is used.
+    group is the edge.  Before that, :func:`_edge_beyond_band` looks for
+    a band along one part of the edge that these spread-based tests miss
+    (its slope and tolerance from stretches at one level).  With fewer than
+    four stretches the median position is used.
     """
     x, y = np.asarray(x, float), np.asarray(y, float)
     if len(x) < 4:
@@ -1011,20 +1026,103 @@ def _edge_line(x: np.ndarray, y: np.ndarray, inward: float, *, q: float) -> np.n
     dx = x[j] - x[i]
     ok = np.abs(dx) > 1e-9
     a = float(np.median((y[j] - y[i])[ok] / dx[ok])) if ok.any() else 0.0
+    band = _edge_beyond_band(x, y, i, j, ok, inward, q=q, is_face=is_face)
+    if band is not None:
+        return band
     r = (y - a * x) * inward  # larger: further inside
     med = float(np.median(r))
     sig = 1.4826 * float(np.median(np.abs(r - med))) + 1e-6
     tol = max(3.0 * sig, 0.3 * q)
-    outer = r < med - tol
-    # the outer group is an edge only where its stretches agree with each other (a lone stretch
-    # far outside, where plate or table texture rose, is no edge and must not pull one out)
-    ro = r[outer]
-    outer[outer] = (np.abs(ro[:, None] - ro[None, :]) <= tol).sum(axis=1) >= 2
+    outer = _agreeing(r < med - tol, r, tol)
     if outer.sum() >= max(2, 0.2 * len(r)):
         off = float(np.median(r[outer]))
     else:
         off = float(np.median(r[r <= med + tol]))
     return np.array([a, off * inward])
+
+
+def _agreeing(outer: np.ndarray, r: np.ndarray, tol: float) -> np.ndarray:
+    """The stretches of an outer group that agree with another one of it within ``tol``: a lone
+    stretch far outside, where plate or table texture rose, is no edge and must not pull one out."""
+    outer = outer.copy()
+    ro = r[outer]
+    outer[outer] = (np.abs(ro[:, None] - ro[None, :]) <= tol).sum(axis=1) >= 2
+    return outer
+
+
+def _edge_beyond_band(x, y, i, j, ok, inward: float, *, q: float, is_face=None) -> np.ndarray | None:
+    """The edge line beyond a smooth band along one part of it, or None when there is no such band.
+
+    A band along one stretch of the edge (an end of it, say) puts every pair of stretches across the
+    band's end at a false slope, and the spread of all stretches then holds the band's width, which
+    hides the edge beyond it from a spread-based tolerance.  Here the slope comes from pairs of
+    stretches at one level (within :data:`SAME_LEVEL_MM` of each other; nearby pairs first, which
+    few such pairs can sway), the noise from neighbouring stretches, and the outer group must
+    stand clear of the main one by :data:`BAND_STEP_MM`.  ``is_face(a, b, main, outer)``, where
+    given, says whether what the line would add beside the ``main`` stretches is face (a band)
+    and not the surroundings (a break edge that wanders, whose crests make an outer group).
+    """
+    if len(x) < 6:
+        return None
+    dx = x[j] - x[i]
+    rank = np.argsort(np.argsort(x))
+    near = ok & (np.abs(rank[j] - rank[i]) <= max(3, len(x) // 3))
+    if not near.any():
+        return None
+    a = float(np.median((y[j] - y[i])[near] / dx[near]))
+    for pairs in (near, ok):
+        r = y - a * x
+        same = pairs & (np.abs(r[j] - r[i]) <= SAME_LEVEL_MM * q)
+        if same.sum() >= max(3, 0.25 * pairs.sum()):
+            a = float(np.median((y[j] - y[i])[same] / dx[same]))
+    r = (y - a * x) * inward
+    med = float(np.median(r))
+    d = np.diff(r[np.argsort(x)])
+    tol = max(3.0 * (1.4826 * float(np.median(np.abs(d - np.median(d)))) / math.sqrt(2.0)), 0.3 * q)
+    outer = _agreeing(r < med - tol, r, tol)
+    off = float(np.median(r[outer])) if outer.any() else med
+    if outer.sum() < max(2, 0.2 * len(r)) or off > med - BAND_STEP_MM * q:
+        return None
+    line = np.array([a, off * inward])
+    main = r > off + BAND_STEP_MM * q
+    if is_face is not None and not is_face(line[0], line[1], main, outer):
+        return None
+    return line
+
+
+def _zone_check(PI: np.ndarray, xb: np.ndarray, vals: np.ndarray, inward: float, *, q: float, c0: int, c1: int):
+    """``is_face`` for :func:`_edge_beyond_band` from the stretches' brightness profiles ``PI``.
+
+    The rows a band's line would add beside the ``main`` stretches (between each one's edge and
+    the line) are face when their brightness differs from the surroundings just beyond the line
+    at the ``outer`` stretches by at least :data:`BAND_ZONE_SHARE` of the face-to-surroundings
+    difference (face: the middle rows ``c0:c1``).  Surroundings of the face's own brightness leave
+    nothing to tell by, and the band is not taken.
+    """
+    h = PI.shape[0]
+
+    def is_face(a: float, b: float, main: np.ndarray, outer: np.ndarray) -> bool:
+        zone, beyond = [], []
+        for k in range(len(xb)):
+            yl = a * xb[k] + b
+            if main[k]:
+                lo, hi = sorted((yl, vals[k]))
+                rows = np.arange(int(math.ceil(lo)), int(math.floor(hi)) + 1)
+                zone.append(PI[rows[(rows >= 0) & (rows < h)], k])
+            elif outer[k]:
+                rows = np.round(yl - inward * np.arange(0.3 * q, 1.0 * q + 1)).astype(int)
+                beyond.append(PI[rows[(rows >= 0) & (rows < h)], k])
+        zone = np.concatenate(zone) if zone else np.zeros(0)
+        beyond = np.concatenate(beyond) if beyond else np.zeros(0)
+        if zone.size == 0 or beyond.size == 0:
+            return False
+        face = float(np.median(PI[c0:max(c1, c0 + 1)]))
+        out = float(np.median(beyond))
+        if abs(face - out) < BAND_ZONE_MIN_GREY:
+            return False
+        return abs(float(np.median(zone)) - out) >= BAND_ZONE_SHARE * abs(face - out)
+
+    return is_face
 
 
 def _texture_goes_on(tex, bright, beside, pos: float, outward: int, *, inner_i: float, outer_i: float,
