@@ -1026,12 +1026,12 @@ def _edge_line(x: np.ndarray, y: np.ndarray, inward: float, *, q: float, is_face
     dx = x[j] - x[i]
     ok = np.abs(dx) > 1e-9
     a = float(np.median((y[j] - y[i])[ok] / dx[ok])) if ok.any() else 0.0
-    band = _edge_beyond_band(x, y, i, j, ok, inward, q=q, is_face=is_face)
+    band = _edge_beyond_band(x, y, i, j, dx, ok, inward, q=q, is_face=is_face)
     if band is not None:
         return band
     r = (y - a * x) * inward  # larger: further inside
     med = float(np.median(r))
-    sig = 1.4826 * float(np.median(np.abs(r - med))) + 1e-6
+    sig = _mad_sigma(r) + 1e-6
     tol = max(3.0 * sig, 0.3 * q)
     outer = _agreeing(r < med - tol, r, tol)
     if outer.sum() >= max(2, 0.2 * len(r)):
@@ -1039,6 +1039,11 @@ def _edge_line(x: np.ndarray, y: np.ndarray, inward: float, *, q: float, is_face
     else:
         off = float(np.median(r[r <= med + tol]))
     return np.array([a, off * inward])
+
+
+def _mad_sigma(v: np.ndarray) -> float:
+    """1.4826 x the median absolute deviation of ``v``: a normal sigma, robust to a few outliers."""
+    return 1.4826 * float(np.median(np.abs(v - np.median(v))))
 
 
 def _agreeing(outer: np.ndarray, r: np.ndarray, tol: float) -> np.ndarray:
@@ -1050,7 +1055,7 @@ def _agreeing(outer: np.ndarray, r: np.ndarray, tol: float) -> np.ndarray:
     return outer
 
 
-def _edge_beyond_band(x, y, i, j, ok, inward: float, *, q: float, is_face=None) -> np.ndarray | None:
+def _edge_beyond_band(x, y, i, j, dx, ok, inward: float, *, q: float, is_face=None) -> np.ndarray | None:
     """The edge line beyond a smooth band along one part of it, or None when there is no such band.
 
     A band along one stretch of the edge (an end of it, say) puts every pair of stretches across the
@@ -1064,7 +1069,6 @@ def _edge_beyond_band(x, y, i, j, ok, inward: float, *, q: float, is_face=None) 
     """
     if len(x) < 6:
         return None
-    dx = x[j] - x[i]
     rank = np.argsort(np.argsort(x))
     near = ok & (np.abs(rank[j] - rank[i]) <= max(3, len(x) // 3))
     if not near.any():
@@ -1078,7 +1082,7 @@ def _edge_beyond_band(x, y, i, j, ok, inward: float, *, q: float, is_face=None) 
     r = (y - a * x) * inward
     med = float(np.median(r))
     d = np.diff(r[np.argsort(x)])
-    tol = max(3.0 * (1.4826 * float(np.median(np.abs(d - np.median(d)))) / math.sqrt(2.0)), 0.3 * q)
+    tol = max(3.0 * _mad_sigma(d) / math.sqrt(2.0), 0.3 * q)
     outer = _agreeing(r < med - tol, r, tol)
     off = float(np.median(r[outer])) if outer.any() else med
     if outer.sum() < max(2, 0.2 * len(r)) or off > med - BAND_STEP_MM * q:
@@ -1301,7 +1305,7 @@ def _same_brightness_reach(p: np.ndarray, pos: float, inner: float, outer: float
     """
     p = np.asarray(p, dtype=np.float64)
     d = np.diff(p)
-    noise = 1.4826 * float(np.median(np.abs(d - np.median(d)))) + 1e-6
+    noise = _mad_sigma(d) + 1e-6
     if abs(inner - outer) < max(12.0, 6.0 * noise):
         return pos
     tol = max(4.0, 0.25 * abs(inner - outer))

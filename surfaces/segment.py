@@ -356,12 +356,11 @@ def ruled_out(f: dict) -> str:
         return "a ridge region brighter than its surroundings"
     if f["source"] == "smooth" and f["chroma_face"] < UNTINTED and f["tex_in"] > SMOOTH_RATIO * f["tex_ring"]:
         return "an untinted region not clearly smoother than its surroundings"
-    if (f["source"] == "smooth" and f.get("border_touch", 0.0) >= STRIP_TOUCH
-            and f.get("border_reach_mm", np.inf) < STRIP_REACH_MM and f["chroma_face"] < STRIP_TINT
-            and f["tex_in"] > STRIP_WALL * f["tex_ring"]):  # fmt: skip
+    strip = (f["source"] == "smooth" and f.get("border_touch", 0.0) >= STRIP_TOUCH
+             and f.get("border_reach_mm", np.inf) < STRIP_REACH_MM)  # fmt: skip
+    if strip and f["chroma_face"] < STRIP_TINT and f["tex_in"] > STRIP_WALL * f["tex_ring"]:
         return "an untinted strip along the face's edge"
-    if (f["source"] == "smooth" and f.get("border_touch", 0.0) >= STRIP_TOUCH
-            and f.get("border_reach_mm", np.inf) < STRIP_REACH_MM and f["tex_in"] > STRIP_GRAINED * f["tex_ring"]):  # fmt: skip
+    if strip and f["tex_in"] > STRIP_GRAINED * f["tex_ring"]:
         return "a strip along the face's edge as grained as the face beside it"
     return ""
 
