@@ -515,6 +515,8 @@ END_TEXTURE_SHARE = 0.25
 #: texture (share of the face middle's level) 1-4 mm beyond an end, at the face's brightness,
 #: above which the end is not trusted
 OPEN_END_SHARE = 0.12
+#: the fine pass found no texture step across the weld and kept the coarse region's width
+UNCLEAR_WIDTH_NOTE = "face edges across the weld are unclear: width taken from the coarse outline"
 OPEN_END_NOTE = "the face's texture goes on beyond an end: check the ends on the overlay"
 #: a band along a region too wide for a face is the face when its texture (square root of the
 #: energy) is at least this many times the region's median row
@@ -588,7 +590,7 @@ def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: f
     y_hi = _rise_from_outside(prof_y, 0.5 * (lv_in + lv_hi), y_c1 + reach_out, mid, persist=pers_y)
     if y_lo is None or y_hi is None or y_hi - y_lo < 0.3 * Wd * q:
         y_lo, y_hi = y_c0, y_c1
-        warnings.append("face edges across the weld are unclear: width taken from the coarse outline")
+        warnings.append(UNCLEAR_WIDTH_NOTE)
     else:
         prof_i = np.median(gi[:, core_c], axis=1)
         y_lo = _snap_to_step(prof_i, y_lo, win=snap)
@@ -756,6 +758,17 @@ def find_face(
             centre_b, L_b, W_b = band
             fit_b = _fine_fit(gray, calib, centre_b, axis, L_b, W_b)
             if _shoelace(fit_b[0]) / max(np.ptp(fit_b[0][:, 0]), 1e-6) <= wide:
+                outline, c_x, c_y, fine_notes, centre, axis = fit_b
+                L0, W0 = L_b, W_b
+    if UNCLEAR_WIDTH_NOTE in fine_notes:
+        # no texture step across the weld within the coarse region (or the box given): it took
+        # in the bead or the plate beside the face, as smooth as each other; the face is the much
+        # more finely textured band along it, when one stands out and its own edges are clear
+        band = _textured_band(gray, calib, centre, axis, outline, wide or max(MAX_FACE_WIDTH_MM.values()))
+        if band is not None:
+            centre_b, L_b, W_b = band
+            fit_b = _fine_fit(gray, calib, centre_b, axis, L_b, W_b)
+            if UNCLEAR_WIDTH_NOTE not in fit_b[3]:
                 outline, c_x, c_y, fine_notes, centre, axis = fit_b
                 L0, W0 = L_b, W_b
     warnings.extend(fine_notes)
