@@ -450,3 +450,36 @@ def test_tinted_strip_along_the_edge_is_unfused_only_when_smooth(seed):
     rgb, mask = tinted(1.0)
     cast = [d for d in segment(rgb, mask, px_per_mm=PPM, photo_px_per_mm=PPM) if d.kind == "unfused"]
     assert not cast, [(round(u.features["greatest_mm"], 1), round(u.features["cy_mm"], 1)) for u in cast]
+
+
+def noisy_wall_band_face(*, seed, band=True):
+    """scikit-image's gravel photo as the face's grain (10 x 50 mm) with a 25 mm untinted wall band 1 mm wide
+    across its middle (x 10-35 mm, y 4.5-5.5 mm): flat, slightly darker, carrying only pixel noise about as
+    strong as the grain's own finest detail (a smooth wall seen through a noisy camera)."""
+    shape = (int(10 * PPM), int(50 * PPM))
+    g = gravel(shape, sd=14.0)
+    if band:
+        rng = np.random.default_rng(seed)
+        m = np.zeros(shape, bool)
+        m[int(4.5 * PPM) : int(5.5 * PPM), int(10 * PPM) : int(35 * PPM)] = True
+        g = np.where(m, 140.0 + rng.normal(0.0, 9.0, shape), g)
+    return to_rgb(g, blur_px=0.6)
+
+
+@pytest.mark.parametrize("seed", [1, 2, 3])
+def test_untinted_wall_band_with_pixel_noise_is_found_calm_along_the_weld(seed):
+    # truth by construction: the band above, 25 mm along the weld.  Its pixel noise gives it most of the
+    # face's fine-scale texture, so the grain-based smooth search does not see it; calm along the weld at
+    # 0.15-0.4 mm it is reported as lack of fusion, at a confidence under the limit sets' default 0.5 (it can
+    # send a coupon to review, not reject it alone), at its length within issue 2's 10 %.  The same gravel
+    # face without the band gets no such detection.
+    rgb = noisy_wall_band_face(seed=seed)
+    dets = segment(rgb, None, px_per_mm=PPM, photo_px_per_mm=8.0)
+    calm = [d for d in dets if d.features.get("source") == "calm"]
+    d, dist = nearest(calm, 22.5, 5.0)
+    assert d is not None and dist < 2.0, [(d.kind, round(d.features["greatest_mm"], 1)) for d in dets]
+    assert d.kind == "unfused" and d.confidence < 0.5
+    along = (d.contour[:, 0].max() - d.contour[:, 0].min()) / PPM
+    assert abs(along - 25.0) < 0.1 * 25.0, along
+    plain = segment(noisy_wall_band_face(seed=seed, band=False), None, px_per_mm=PPM, photo_px_per_mm=8.0)
+    assert not [d for d in plain if d.features.get("source") == "calm"]
