@@ -750,27 +750,19 @@ def find_face(
     L0, W0 = L, Wd
     outline, c_x, c_y, fine_notes, centre, axis = _fine_fit(gray, calib, centre, axis, L, Wd)
     wide = MAX_FACE_WIDTH_MM.get(test)
-    if roi is None and wide is not None and _shoelace(outline) / max(np.ptp(outline[:, 0]), 1e-6) > wide:
+    if roi is None and wide is not None and _mean_width(outline) > wide:
         # the region found is the specimen (plate, bead and face): the face is the much
         # more finely textured band along it, when one stands out
-        band = _textured_band(gray, calib, centre, axis, outline, wide)
-        if band is not None:
-            centre_b, L_b, W_b = band
-            fit_b = _fine_fit(gray, calib, centre_b, axis, L_b, W_b)
-            if _shoelace(fit_b[0]) / max(np.ptp(fit_b[0][:, 0]), 1e-6) <= wide:
-                outline, c_x, c_y, fine_notes, centre, axis = fit_b
-                L0, W0 = L_b, W_b
+        refit = _fit_on_band(gray, calib, centre, axis, outline, wide)
+        if refit is not None and _mean_width(refit[0][0]) <= wide:
+            (outline, c_x, c_y, fine_notes, centre, axis), (L0, W0) = refit
     if UNCLEAR_WIDTH_NOTE in fine_notes:
         # no texture step across the weld within the coarse region (or the box given): it took
         # in the bead or the plate beside the face, as smooth as each other; the face is the much
         # more finely textured band along it, when one stands out and its own edges are clear
-        band = _textured_band(gray, calib, centre, axis, outline, wide or max(MAX_FACE_WIDTH_MM.values()))
-        if band is not None:
-            centre_b, L_b, W_b = band
-            fit_b = _fine_fit(gray, calib, centre_b, axis, L_b, W_b)
-            if UNCLEAR_WIDTH_NOTE not in fit_b[3]:
-                outline, c_x, c_y, fine_notes, centre, axis = fit_b
-                L0, W0 = L_b, W_b
+        refit = _fit_on_band(gray, calib, centre, axis, outline, wide or max(MAX_FACE_WIDTH_MM.values()))
+        if refit is not None and UNCLEAR_WIDTH_NOTE not in refit[0][3]:
+            (outline, c_x, c_y, fine_notes, centre, axis), (L0, W0) = refit
     warnings.extend(fine_notes)
     lo_o, hi_o = outline.min(axis=0), outline.max(axis=0)
     fx0, fx1 = float(lo_o[0]), float(hi_o[0])
@@ -916,6 +908,21 @@ def _textured_band(gray, calib: Calibration, centre, axis: float, outline: np.nd
         return None
     c = _frame_point(centre, axis, ((x0 + x1) / 2, y0 + (a + b + 1) / 2 / q))
     return c, float(x1 - x0), float(width)
+
+
+def _fit_on_band(gray, calib: Calibration, centre, axis: float, outline: np.ndarray, wide: float):
+    """The fine fit on the :func:`_textured_band` of ``outline``: ``(fit, (length, width))`` with ``fit``
+    as :func:`_fine_fit` returns it and the band's rough size, or None when no band stands out."""
+    band = _textured_band(gray, calib, centre, axis, outline, wide)
+    if band is None:
+        return None
+    centre_b, L_b, W_b = band
+    return _fine_fit(gray, calib, centre_b, axis, L_b, W_b), (L_b, W_b)
+
+
+def _mean_width(outline: np.ndarray) -> float:
+    """Mean extent across the weld of an outline in face mm: its area over its length."""
+    return _shoelace(outline) / max(np.ptp(outline[:, 0]), 1e-6)
 
 
 def _frame_point(centre, axis_deg: float, xy) -> np.ndarray:

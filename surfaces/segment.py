@@ -467,19 +467,25 @@ def _smooth_candidates(M: _Maps, taken_dets) -> list[Detection]:
     smooth = hysteresis(-tex, -SMOOTH_GROW, -SMOOTH_SEED) | hysteresis(chroma, c_lo, c_hi)
     smooth &= M.mask
     smooth = _smooth_outline(smooth, tex, chroma, M, c_hi=c_hi)
-    taken = np.zeros((h, w), np.uint8)
-    for d in taken_dets:
-        cv2.fillPoly(taken, [np.round(d.contour).astype(np.int32)], 1)
-    smooth &= cv2.dilate(taken, np.ones((3, 3), np.uint8)) == 0
+    free = _outside(taken_dets, (h, w))
+    smooth &= free
     k = max(3, int(round(0.3 * M.mm)) | 1)
     sm = cv2.morphologyEx(smooth.astype(np.uint8), cv2.MORPH_OPEN, np.ones((k, k), np.uint8))
     sm = cv2.morphologyEx(sm, cv2.MORPH_CLOSE, np.ones((k, k), np.uint8))
     # lack of fusion runs along the weld: pieces of one band a short gap apart are one region
     kx = max(3, int(round(JOIN_ALONG_MM * M.mm)) | 1)
     sm = cv2.morphologyEx(sm, cv2.MORPH_CLOSE, np.ones((1, kx), np.uint8)) > 0
-    sm &= M.mask & (cv2.dilate(taken, np.ones((3, 3), np.uint8)) == 0)
+    sm &= M.mask & free
     lab, n = ndi.label(sm)
     return _region_candidates(lab, M, min_px=(0.8 * M.mm) ** 2, min_greatest_mm=1.0, kind="unfused", source="smooth")
+
+
+def _outside(dets, shape) -> np.ndarray:
+    """True where no candidate of ``dets`` lies, nor one pixel around its outline."""
+    taken = np.zeros(shape, np.uint8)
+    for d in dets:
+        cv2.fillPoly(taken, [np.round(d.contour).astype(np.int32)], 1)
+    return cv2.dilate(taken, np.ones((3, 3), np.uint8)) == 0
 
 
 #: the calm-band search (:func:`_calm_candidates`): detail along the weld between the grain's scale
@@ -535,10 +541,8 @@ def _calm_candidates(M: _Maps, taken_dets) -> list[Detection]:
     med = float(np.median(e[M.mask][:: max(1, int(M.mask.sum()) // 100000)])) or 1.0
     r = cv2.GaussianBlur(e, (0, 0), sigmaX=CALM_WINDOW_MM * M.mm, sigmaY=0.2 * M.mm) / (med * _level_along(e, M))
     calm = hysteresis(-r, -CALM_GROW, -CALM_SEED) & M.mask
-    taken = np.zeros(calm.shape, np.uint8)
-    for d in taken_dets:
-        cv2.fillPoly(taken, [np.round(d.contour).astype(np.int32)], 1)
-    calm &= cv2.dilate(taken, np.ones((3, 3), np.uint8)) == 0
+    free = _outside(taken_dets, calm.shape)
+    calm &= free
     kx = max(3, int(round(JOIN_ALONG_MM * M.mm)) | 1)
     calm = (cv2.morphologyEx(calm.astype(np.uint8), cv2.MORPH_CLOSE, np.ones((1, kx), np.uint8)) > 0) & M.mask
     lab, n = ndi.label(calm)
@@ -563,7 +567,7 @@ def _calm_candidates(M: _Maps, taken_dets) -> list[Detection]:
     k = max(1, int(round(CALM_REACH_MM * M.mm)))
     near = cv2.dilate(lab.astype(np.float32), cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * k + 1, 2 * k + 1)))
     near = near.astype(np.int32)
-    grow = (near > 0) & M.mask & ~on_border & (r < lvl[near]) & (cv2.dilate(taken, np.ones((3, 3), np.uint8)) == 0)
+    grow = (near > 0) & M.mask & ~on_border & (r < lvl[near]) & free
     gl, _ = ndi.label(grow | (lab > 0))
     keep = np.unique(gl[lab > 0])
     lab, n = ndi.label(np.isin(gl, keep[keep > 0]))
