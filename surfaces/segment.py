@@ -598,6 +598,27 @@ def _texture_along(M: _Maps) -> np.ndarray:
     return _level_along(M.tex, M)
 
 
+def _column_percentile(t: np.ndarray, q: float) -> np.ndarray:
+    """Per column the ``q``-th percentile of the values that are not NaN (each column has one or more).
+
+    The same numbers as ``np.nanpercentile(t, q, axis=0)`` (its default linear method and its
+    interpolation formula), from one sort of the array: NumPy's own version handles the columns
+    one by one and took 0.04 s of a 12 MP photo's 0.4 s here.
+    """
+    s = np.sort(t, axis=0)  # NaN sorts last
+    n = np.count_nonzero(~np.isnan(t), axis=0)
+    idx = (n - 1) * (q / 100.0)
+    lo = np.floor(idx).astype(np.intp)
+    hi = np.minimum(lo + 1, n - 1)
+    g = idx - lo  # the weight in float64; NumPy applies it, and 1 - it, at the data's precision
+    c = np.arange(t.shape[1])
+    a, b = s[lo, c], s[hi, c]
+    d = b - a
+    out = a + d * g.astype(t.dtype)
+    np.subtract(b, d * (1.0 - g).astype(t.dtype), out=out, where=g >= 0.5)  # NumPy's _lerp
+    return out
+
+
 def _level_along(values: np.ndarray, M: _Maps) -> np.ndarray:
     """The level of ``values`` along the weld over the whole face's, as :func:`_texture_along` for the texture."""
     t = np.where(M.mask, values, np.nan)
@@ -605,7 +626,7 @@ def _level_along(values: np.ndarray, M: _Maps) -> np.ndarray:
     if cols.sum() < 2:
         return np.ones((1, values.shape[1]), np.float32)
     prof = np.full(values.shape[1], np.nan)
-    prof[cols] = np.nanpercentile(t[:, cols], 75, axis=0)
+    prof[cols] = _column_percentile(t[:, cols], 75)
     idx = np.arange(len(prof))
     prof = np.interp(idx, idx[cols], prof[cols])
     whole = float(np.median(prof[cols]))

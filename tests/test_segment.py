@@ -483,3 +483,24 @@ def test_untinted_wall_band_with_pixel_noise_is_found_calm_along_the_weld(seed):
     assert abs(along - 25.0) < 0.1 * 25.0, along
     plain = segment(noisy_wall_band_face(seed=seed, band=False), None, px_per_mm=PPM, photo_px_per_mm=8.0)
     assert not [d for d in plain if d.features.get("source") == "calm"]
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_column_percentile_equals_numpys_nanpercentile(dtype):
+    # reference library: NumPy's nanpercentile (default linear method) on the same arrays, equal to the
+    # last bit, with ties, single values and mostly-NaN columns
+    from surfaces.segment import _column_percentile
+
+    rng = np.random.default_rng(7)
+    for _ in range(300):
+        h, w = int(rng.integers(1, 120)), int(rng.integers(1, 40))
+        t = rng.gamma(2.0, 3.0, (h, w)).astype(dtype)
+        if rng.random() < 0.4:
+            t = np.round(t, 1)
+        keep = rng.random((h, w)) < rng.uniform(0.05, 1.0)
+        keep[int(rng.integers(0, h)), :] = True
+        t = np.where(keep, t, np.nan)
+        for q in (10, 25, 33, 50, 75, 90, 97):
+            ref = np.nanpercentile(t, q, axis=0)
+            got = _column_percentile(t, q)
+            assert got.dtype == ref.dtype and np.array_equal(got, ref), (q, h, w)
