@@ -320,6 +320,9 @@ CARD_FLOOD_TOLERANCES = (0.25, 0.12, 0.06)
 #: a flooded card (its print filled in) fills at least this share of its smallest enclosing
 #: rectangle; paper joined to a pale plate or table does not
 CARD_RECTANGULAR = 0.8
+#: Canny's hysteresis thresholds (on a 3x3 Sobel of the coarse plane blurred by 1 px) for the
+#: card's outline when no grey range separates paper from table: an edge of 6 grey levels' step holds
+CARD_EDGE_THRESHOLDS = (6, 15)
 
 
 def _rectangular(region: np.ndarray) -> float:
@@ -367,8 +370,23 @@ def _card_mask(val: np.ndarray, quad_px: np.ndarray, s: float) -> np.ndarray:
             card = flooded
             break
     if card is None:
+        # a table as bright as the paper somewhere (light falling across a pale table) takes every
+        # grey range: the paper is flooded again within the card's own edges (the card's outline is a
+        # sharp step on any table), thickened by a pixel to close the gaps Canny leaves where edges meet
+        edges = cv2.Canny(cv2.GaussianBlur(img, (0, 0), 1.0), *CARD_EDGE_THRESHOLDS, L2gradient=True)
+        mask[:] = 0
+        mask[1:-1, 1:-1] = cv2.dilate(edges, np.ones((3, 3), np.uint8)) > 0
+        for x, y in paper:
+            if img[y, x] >= 0.7 * white and not mask[y + 1, x + 1]:
+                cv2.floodFill(img, mask, (x, y), 255, loDiff=max(1, int(CARD_FLOOD_TOLERANCES[0] * white)),
+                              upDiff=255, flags=4 | cv2.FLOODFILL_MASK_ONLY | cv2.FLOODFILL_FIXED_RANGE | (2 << 8))
+        flooded = mask[1:-1, 1:-1] == 2
+        # never less than the square the card is at least (a flood held by the print's edges
+        # beside the marker)
         card = np.zeros((h, w), bool)
         cv2.fillPoly(card.view(np.uint8), [np.round(ctr + (q - ctr) * 2.6).astype(np.int32)], 1)
+        if flooded.sum() <= largest and _rectangular(flooded) >= CARD_RECTANGULAR:
+            card |= flooded
     marker = np.zeros((h, w), np.uint8)
     cv2.fillPoly(marker, [np.round(ctr + (q - ctr) * 1.3).astype(np.int32)], 1)
     card |= marker > 0
