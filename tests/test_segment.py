@@ -11,6 +11,7 @@ the same pixels.
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import cv2
 import numpy as np
@@ -504,3 +505,37 @@ def test_column_percentile_equals_numpys_nanpercentile(dtype):
             ref = np.nanpercentile(t, q, axis=0)
             got = _column_percentile(t, q)
             assert got.dtype == ref.dtype and np.array_equal(got, ref), (q, h, w)
+
+
+
+# photos bench.generated_set draws right at a limit (set seed, index among its at-limit photos)
+@pytest.mark.parametrize("set_seed, j, whole", [(31337, 3, True), (20261, 4, False)])
+def test_grained_patch_taken_for_lack_of_fusion_sends_to_review_not_reject(tmp_path, set_seed, j, whole):
+    # truth by construction (surfaces.synth through bench's at-limit jobs; dev2 limit_036 and test
+    # limit_037): one pore within 0.08 mm of a preset's limit and no lack of fusion.  Bright grained patches
+    # on a coloured face were reported as lack of fusion at 1.0, rejecting dev2 limit_036, a borderline
+    # accept.  Lack of fusion is a smooth surface (issue 2's description of the kind; common practice): what
+    # the smooth search takes that keeps nearly all its ring's grain stays reported, under the limit sets'
+    # default confidence 0.5 (review, never reject alone), and that borderline coupon goes to review.  (Test
+    # limit_037 stays rejected for another reason, a pore measured 0.47 mm over its size; only its patch is
+    # checked here.)
+    import json
+
+    from surfaces import bench, evaluate
+    from surfaces.limits import judge_assessment, list_presets
+    from surfaces.pipeline import assess_path
+
+    job = bench._at_limit_jobs(tmp_path, n=j + 1, seed=set_seed, start=33)[j]
+    path = Path(bench._render_one(job))
+    truth = json.loads(path.with_name(path.stem + ".truth.json").read_text())
+    a = assess_path(str(path), bench._settings_for_truth(truth)).assessment
+    assert not [i for i in truth["imperfections"] if i["kind"] == "unfused"]
+    m = evaluate.match(a, truth)
+    false_ids = {int(x.det_id) for _, x in m.iterrows() if x.det_id == x.det_id and int(x.det_id) >= 0 and not x.matched}
+    grained = [i for i in a["imperfections"] if i["kind"] == "unfused" and int(i["id"]) in false_ids]
+    assert all(i["confidence"] < 0.5 for i in grained), [(i["greatest_mm"], i["confidence"]) for i in grained]
+    for ls in list_presets() if whole else ():
+        if ls.applies_to(a["test"]):
+            tv = evaluate.truth_band(truth, limit_set=ls, test=a["test"], nominal=dict(a.get("nominal") or {}))
+            if tv["borderline"]:
+                assert judge_assessment(a, ls)["verdict"]["result"] == "review", ls.name
