@@ -539,3 +539,25 @@ def test_grained_patch_taken_for_lack_of_fusion_sends_to_review_not_reject(tmp_p
             tv = evaluate.truth_band(truth, limit_set=ls, test=a["test"], nominal=dict(a.get("nominal") or {}))
             if tv["borderline"]:
                 assert judge_assessment(a, ls)["verdict"]["result"] == "review", ls.name
+
+
+def test_grey_wall_band_hidden_in_camera_noise_on_a_12_mp_photo_is_not_passed(tmp_path):
+    # truth by construction (surfaces.synth, seeded; the 12 MP photo generated_set drew for seed 70737, a
+    # fresh set): a grey side-wall band of lack of fusion 7.5 mm along inside a fillet-break face.  Its camera
+    # noise leaves it half the face's fine texture and 0.345 of its calm along the weld; neither search
+    # started a region on it, and the coupon was accepted under ISO 5817 level C, which permits no lack of
+    # fusion (REFERENCES.md).  It is now found (calm along the weld) and the coupon goes to review.
+    import json
+
+    from surfaces import bench, evaluate
+    from surfaces.limits import judge_assessment, load_limit_set
+    from surfaces.pipeline import assess_path
+    from surfaces.synth import render_fracture
+
+    path = render_fracture(70737, test="fillet-break", megapixels=12.0).save(tmp_path / "face.jpg")
+    truth = json.loads(path.with_suffix(".truth.json").read_text())
+    a = assess_path(str(path), bench._settings_for_truth(truth)).assessment
+    m = evaluate.match(a, truth)
+    band = m[m.truth_kind == "unfused"]
+    assert len(band) == 1 and bool(band.matched.iloc[0]) and band.det_kind.iloc[0] == "unfused", band.to_dict("records")
+    assert judge_assessment(a, load_limit_set("iso-5817-c-fillet-break"))["verdict"]["result"] != "accept"
