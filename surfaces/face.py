@@ -356,37 +356,35 @@ def _card_mask(val: np.ndarray, quad_px: np.ndarray, s: float) -> np.ndarray:
     white = float(np.median([img[y, x] for x, y in paper]))
     side_px = float(np.mean(np.linalg.norm(np.roll(q, -1, 0) - q, axis=1)))
     largest = min(70000.0 * s * s, 0.4 * h * w, 400.0 * side_px**2)  # an A4 sheet is the largest we print
-    card = None
-    # a flood that leaks into a pale table is no card: the paper is flooded again within a
-    # narrower range of its own grey (a cream card on a beige table differs by a few levels)
-    for tol in CARD_FLOOD_TOLERANCES:
+    def flood(tol, barrier=None, connectivity=8):
+        # the paper from each quiet-zone point, within ``tol`` of its grey below it (mask only:
+        # ``img`` kept), held by ``barrier`` where given
         mask[:] = 0
+        if barrier is not None:
+            mask[1:-1, 1:-1] = barrier
         for x, y in paper:
             if img[y, x] >= 0.7 * white and not mask[y + 1, x + 1]:
-                cv2.floodFill(img, mask, (x, y), 255, loDiff=max(1, int(tol * white)), upDiff=255,  # mask only: img kept
-                              flags=8 | cv2.FLOODFILL_MASK_ONLY | cv2.FLOODFILL_FIXED_RANGE | (255 << 8))
-        flooded = mask[1:-1, 1:-1] > 0
-        if flooded.sum() <= largest and _rectangular(flooded) >= CARD_RECTANGULAR:
-            card = flooded
-            break
+                cv2.floodFill(img, mask, (x, y), 255, loDiff=max(1, int(tol * white)), upDiff=255,
+                              flags=connectivity | cv2.FLOODFILL_MASK_ONLY | cv2.FLOODFILL_FIXED_RANGE | (2 << 8))
+        flooded = mask[1:-1, 1:-1] == 2
+        return flooded if flooded.sum() <= largest and _rectangular(flooded) >= CARD_RECTANGULAR else None
+
+    # a flood that leaks into a pale table is no card: the paper is flooded again within a
+    # narrower range of its own grey (a cream card on a beige table differs by a few levels)
+    card = next((f for f in map(flood, CARD_FLOOD_TOLERANCES) if f is not None), None)
     if card is None:
         # a table as bright as the paper somewhere (light falling across a pale table) takes every
         # grey range: the paper is flooded again within the card's own edges (the card's outline is a
-        # sharp step on any table), thickened by a pixel to close the gaps Canny leaves where edges meet
+        # sharp step on any table), thickened by a pixel to close the gaps Canny leaves where edges
+        # meet, 4-connected so that a diagonal edge holds
         edges = cv2.Canny(cv2.GaussianBlur(img, (0, 0), 1.0), *CARD_EDGE_THRESHOLDS, L2gradient=True)
-        mask[:] = 0
-        mask[1:-1, 1:-1] = cv2.dilate(edges, np.ones((3, 3), np.uint8)) > 0
-        for x, y in paper:
-            if img[y, x] >= 0.7 * white and not mask[y + 1, x + 1]:
-                cv2.floodFill(img, mask, (x, y), 255, loDiff=max(1, int(CARD_FLOOD_TOLERANCES[0] * white)),
-                              upDiff=255, flags=4 | cv2.FLOODFILL_MASK_ONLY | cv2.FLOODFILL_FIXED_RANGE | (2 << 8))
-        flooded = mask[1:-1, 1:-1] == 2
+        held = flood(CARD_FLOOD_TOLERANCES[0], barrier=cv2.dilate(edges, np.ones((3, 3), np.uint8)) > 0, connectivity=4)
         # never less than the square the card is at least (a flood held by the print's edges
         # beside the marker)
         card = np.zeros((h, w), bool)
         cv2.fillPoly(card.view(np.uint8), [np.round(ctr + (q - ctr) * 2.6).astype(np.int32)], 1)
-        if flooded.sum() <= largest and _rectangular(flooded) >= CARD_RECTANGULAR:
-            card |= flooded
+        if held is not None:
+            card |= held
     marker = np.zeros((h, w), np.uint8)
     cv2.fillPoly(marker, [np.round(ctr + (q - ctr) * 1.3).astype(np.int32)], 1)
     card |= marker > 0

@@ -384,9 +384,14 @@ def along_the_edge(f: dict) -> bool:
     return f.get("border_touch", 0.0) >= EDGE_LINE_TOUCH and f.get("border_reach_mm", np.inf) < EDGE_LINE_REACH_MM
 
 
+#: the confidence of a finding that may only send a coupon to review: under the limit sets' default
+#: min_confidence (0.5), so it never rejects a coupon alone, and is never dropped (the edge lines,
+#: grained tinted regions and calm bands below, each for its own reason)
+REVIEW_ONLY_CONFIDENCE = 0.45
+
 EDGE_LINE_TOUCH = 0.4
 EDGE_LINE_REACH_MM = 0.35
-EDGE_LINE_CONFIDENCE = 0.45
+EDGE_LINE_CONFIDENCE = REVIEW_ONLY_CONFIDENCE
 
 
 def grained_unfused(f: dict) -> bool:
@@ -407,7 +412,7 @@ def grained_unfused(f: dict) -> bool:
 #: lack of fusion kept at most 0.75 of its ring's grain; the bright or tinted patches called lack of
 #: fusion that were none (dev2 and test limit_036, test limit_037) kept 0.95-1.10 of it
 GRAINED_SHARE = 0.85
-GRAINED_CONFIDENCE = 0.45
+GRAINED_CONFIDENCE = REVIEW_ONLY_CONFIDENCE
 
 SMOOTH_RATIO = 0.5
 #: a strip along the edge (as above) whose inner texture is over this share of its ring's is the edge, tint or
@@ -535,7 +540,7 @@ CALM_OUTLINE_MAX = 0.7
 CALM_REACH_MM = 0.6
 #: what a calm band is reported at: under the limit sets' default min_confidence (0.5), so it can
 #: send a coupon to review, never reject it alone (the region model was not fitted on such bands)
-CALM_CONFIDENCE = 0.45
+CALM_CONFIDENCE = REVIEW_ONLY_CONFIDENCE
 
 
 def calm_along(gray: np.ndarray, *, px_per_mm: float, fine_mm: float) -> np.ndarray:
