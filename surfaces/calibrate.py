@@ -43,7 +43,9 @@ How the marker is measured
 3. **Homography.**  Detections on one spot are merged, and when some
    marker's grid fit succeeded, detections whose grid fit failed are
    dropped with a warning (a square in the background texture decoded with
-   error correction shows no printed pattern and quiet zone).  The four
+   error correction shows no printed pattern and quiet zone), and so are
+   detections whose own scale is far less certain than the best one's
+   (``JOIN_SIGMA_RATIO``: a speck decoded as a 10 px marker).  The four
    corners give the photo -> plane map of that marker (plane origin at its top-left corner, X right, Y down, mm).  With
    several markers, each one's scale is compared at a common point; when they
    agree (within ``CONSISTENCY_WARN_PCT`` or three times their own combined
@@ -571,7 +573,8 @@ def _printed_hits(hits: list[MarkerHit]) -> tuple[list[MarkerHit], list[str]]:  
 def _calibrate_from_hits(hits, side_mm, eval_pt, hint, size, *, notes=()) -> Calibration:
     w, h = size
     hits, warnings = _printed_hits(list(hits))
-    warnings = list(notes) + warnings
+    hits, weak = _helpful_hits(hits, side_mm)
+    warnings = list(notes) + warnings + weak
     centres = np.array([hit.corners_px.mean(axis=0) for hit in hits])
     if hint is not None:
         ref = int(np.argmin(np.hypot(*(centres - np.asarray(hint)).T)))
@@ -644,6 +647,52 @@ def _calibrate_from_hits(hits, side_mm, eval_pt, hint, size, *, notes=()) -> Cal
         consistency_pct=consistency,
         warnings=tuple(warnings),
     )
+
+
+#: A detection whose scale alone is more than this many times less certain (at the detections' common
+#: centre) than the most certain detection's, and uncertain there by more than
+#: ``EXTRAPOLATION_WARN_PCT``, is not joined to it (see :func:`_helpful_hits`).
+JOIN_SIGMA_RATIO: float = 4.0
+
+
+def _helpful_hits(hits: list[MarkerHit], side_mm: float) -> tuple[list[MarkerHit], list[str]]:
+    """Drop detections too uncertain to help the most certain one; returns the kept hits and a note per drop.
+
+    The joint fit weighs every corner alike, so a detection whose own scale
+    at the detections' common centre is ``JOIN_SIGMA_RATIO`` times less
+    certain than the best one's, and worse than ``EXTRAPOLATION_WARN_PCT``
+    (a speck of texture decoded as a 10 px "marker", a marker far off at
+    the photo's edge), adds nothing but its errors: one such square 10 px
+    across beside a 200 px marker bent the joint perspective by 290 % at
+    the face.  Markers that are all well measured are all kept, and so is a
+    weak one whose scale differs from the best one's beyond doubt (more
+    than ``CONSISTENCY_ERROR_PCT`` and three combined sigmas: printed at
+    another size), so that the consistency check still refuses misprints.
+    """
+    if len(hits) < 2:
+        return hits, []
+    common = tuple(np.mean([hit.corners_px.mean(axis=0) for hit in hits], axis=0))
+    sig = np.array([_mc_scale_pct([hit], side_mm, 0, False, common) for hit in hits])
+    best = float(np.nanmin(sig)) if np.isfinite(sig).any() else float("nan")
+    if not math.isfinite(best):
+        return hits, []
+    bar = max(JOIN_SIGMA_RATIO * best, EXTRAPOLATION_WARN_PCT)
+    i_best = int(np.nanargmin(sig))
+    scale = np.array([local_scale_px_per_mm(_square_homography(hit.corners_px, side_mm), *common) for hit in hits])
+    off = 100.0 * np.abs(scale / scale[i_best] - 1.0)
+    # a weak one that disagrees beyond doubt (printed at another size) is kept, for the consistency check to refuse
+    keep = [k for k in range(len(hits))
+            if np.isfinite(sig[k]) and (sig[k] <= bar or off[k] > max(CONSISTENCY_ERROR_PCT, 3.0 * math.hypot(sig[k], best)))]
+    notes = []
+    for k in range(len(hits)):
+        if k not in keep:
+            x, y = hits[k].corners_px.mean(axis=0)
+            notes.append(
+                f"ignored marker id {hits[k].marker_id} at ({x:.0f}, {y:.0f}) px: {hits[k].side_px:.0f} px across, "
+                f"its scale is {sig[k] / max(best, 1e-6):.0f} times less certain than the best marker's, so it "
+                "cannot help (a speck decoded as a marker, or a marker too small in the photo)"
+            )
+    return [hits[k] for k in keep], notes
 
 
 def _square_plane(side_mm: float) -> np.ndarray:

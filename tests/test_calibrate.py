@@ -572,6 +572,25 @@ def test_detection_without_printed_pattern_is_dropped_and_a_twin_merged():
         _calibrate_from_hits([real, MeasuredMarker(**{**vars(fake), "grid_points": 400})], 20.0, centre, None, (W, H))
 
 
+def test_speck_decoded_as_a_tiny_marker_is_not_joined_to_the_real_one():
+    """A 10 px quadrilateral of texture that decoded as a marker (module 1.6 px: too small for the grid fit,
+    so the pattern rule keeps it) beside a real 200 px marker. Its own scale is hundreds of times less certain;
+    joined in the (unweighted) joint fit it bent the perspective (a generated photo: +290 % at the face, face
+    refused). Truth by construction: the analytic scale of the similarity G."""
+    G = similarity(8.0, -5.0, 700, 500)
+    img = render((W, H), [(42, 25.0, G)], noise=2, seed=6)
+    hits, _ = detect_markers(img)
+    assert len(hits) == 1 and hits[0].grid_points > 0
+    speck = np.array([[415.0, 592.0], [422.0, 583.0], [423.0, 596.0], [418.0, 600.0]])  # as seen on that photo
+    fake = MarkerHit(marker_id=17, corners_px=speck, side_px=10.4, module_px=10.4 / 6, reproj_rms_px=0.5)
+    face = tuple(apply(G, [[80.0, 12.0]])[0])
+    cal = _calibrate_from_hits([hits[0], fake], 25.0, face, face, (W, H))
+    assert cal.method == "marker" and [m.marker_id for m in cal.markers] == [42]
+    assert sum("ignored marker id 17" in w and "less certain" in w for w in cal.warnings) == 1
+    assert abs(scale_error_pct(cal, G, 80.0, 12.0)[0]) < 0.2
+    assert cal.uncertainty_pct < 1.0
+
+
 def _with_faint(G, share, faint):
     """The 20 mm marker id 5 at G plus the markers ``faint`` at ``share`` of the print's contrast (texture-like)."""
     bg = render((W, H), []).astype(np.float32)
