@@ -63,7 +63,10 @@ How the marker is measured
      homography (cluster-robust over segments: points along one segment
      share JPEG blocks and paper grain) plus the effect of an unmodelled
      change of the edge bias across the marker (``EDGE_BIAS_GRADIENT_PX``),
-     turned into a covariance of the eight corner coordinates; floors
+     plus one random shift per grid line (lines printed off their place:
+     a printer's dot raster, a raster marker image; its variance from the
+     lines' mean residuals beyond their segments' scatter), all turned
+     into a covariance of the eight corner coordinates; floors
      ``GRID_FLOOR_PX`` and ``GRID_FLOOR_MODULE``.  For an outline-only fit,
      sigma_c per corner coordinate from the line-fit residuals
      (``2 * rms / sqrt(n_eff)``, n_eff discounting correlated residuals)
@@ -1498,7 +1501,8 @@ def _grid_solve(pts, good, on_u, kk, pol, nrm, mod_n, seg, G, bias, module, P):
     sigma are dropped.  The covariance is cluster-robust over segments
     (points along one segment share JPEG blocks, paper grain and print
     defects, so they are not independent) plus the effect of an unmodelled
-    change of the bias across the marker (``EDGE_BIAS_GRADIENT_PX``).
+    change of the bias across the marker (``EDGE_BIAS_GRADIENT_PX``) and of
+    grid lines printed off their place (:func:`_line_shift_cov`).
     """
     if good.sum() < 24:
         return None
@@ -1553,6 +1557,7 @@ def _grid_solve(pts, good, on_u, kk, pol, nrm, mod_n, seg, G, bias, module, P):
         grad_col = Ju[:, 8] * (coord - MODULES / 2.0) / (MODULES / 2.0) * (EDGE_BIAS_GRADIENT_PX / L)
         dp_grad = -A @ (Ju.T @ grad_col)
         cov_p = cov_p + np.outer(dp_grad, dp_grad)
+    cov_p = cov_p + _line_shift_cov(Ju, ru, sg, np.where(on_u, 0, MODULES + 1)[use] + kk[use].astype(int), A)
     H = np.r_[p[:8], 1.0].reshape(3, 3)
     Hpx = H @ T
     Gnew = np.linalg.inv(Hpx)
@@ -1572,6 +1577,42 @@ def _grid_solve(pts, good, on_u, kk, pol, nrm, mod_n, seg, G, bias, module, P):
         D[:, i] = (corners_of(dq) - c0) / h
     rms = float(np.sqrt(np.mean(ru**2)))
     return Gnew, float(p[8] * L), cov_p, rms, int(use.sum()), n_cl, D
+
+
+def _line_shift_cov(Ju: np.ndarray, ru: np.ndarray, sg: np.ndarray, line: np.ndarray, A: np.ndarray) -> np.ndarray:
+    """Covariance (9 x 9) of the grid fit's parameters from grid lines printed off their place.
+
+    A printer puts every edge on its dot raster (half a dot is 0.02 mm at
+    600 dpi, about 0.6 % of a 20 mm marker's module), and a marker printed
+    from a raster image carries that image's rounding: OpenCV's own
+    ``generateImageMarker`` draws the inner edges one pixel off at some
+    sizes (98 px modules, for one).  Each grid line then sits off by its own
+    shift, common to all its segments, which the cluster-robust covariance
+    over segments does not see.  Model: one random shift per line (U = k or
+    V = k), its variance the lines' mean residuals beyond what the scatter
+    of their segments explains (method of moments, the fit's 9 parameters
+    taken from the degrees of freedom), propagated through the fit.  Zero
+    when the lines agree with each other within their noise.
+    """
+    ids = np.unique(line)
+    if len(ids) <= 10:
+        return np.zeros_like(A)
+    sq, noise = 0.0, 0.0
+    for i in ids:
+        on = line == i
+        sq += float(ru[on].mean()) ** 2
+        segs = np.unique(sg[on])
+        if len(segs) > 1:
+            noise += float(np.var([ru[on & (sg == k)].mean() for k in segs], ddof=1)) / len(segs)
+        else:
+            noise += float(np.var(ru[on])) / max(int(on.sum()) - 1, 1)
+    between = max(sq - noise, 0.0) / (len(ids) - 9)
+    cov = np.zeros_like(A)
+    if between > 0.0:
+        for i in ids:
+            dp = -A @ (Ju.T @ np.where(line == i, math.sqrt(between), 0.0))
+            cov += np.outer(dp, dp)
+    return cov
 
 
 def _phi(x: np.ndarray) -> np.ndarray:
