@@ -93,6 +93,13 @@ def test_marker_image_is_opencvs_own():
     img = marker_image(17, 120)
     # source: cv2.aruco.generateImageMarker, and OpenCV's detector reads the id back
     assert np.array_equal(img, cv2.aruco.generateImageMarker(DICT, 17, 120, borderBits=1))
+    # at 588 px OpenCV's own drawing puts the inner edges one pixel off its 98 px module grid; ours keeps
+    # every module 98 whole pixels (OpenCV's 6 px pattern scaled), as the card's vector PDF prints it
+    opencv = cv2.aruco.generateImageMarker(DICT, 17, 588, borderBits=1)
+    exact = np.kron(cv2.aruco.generateImageMarker(DICT, 17, 6, borderBits=1), np.ones((98, 98), np.uint8))
+    assert not np.array_equal(opencv, exact) and np.array_equal(marker_image(17, 588), exact)
+    for side in (18, 60, 294, 600):
+        assert np.array_equal(marker_image(5, side)[:: side // 6, :: side // 6], cv2.aruco.generateImageMarker(DICT, 5, 6))
     canvas = np.full((240, 240), 255, np.uint8)
     canvas[60:180, 60:180] = img
     _, ids, _ = _detector().detectMarkers(canvas)

@@ -6,7 +6,7 @@ package.
 render_fracture   fillet-weld break or nick-break fracture face beside the card
 render_bend       guided-bend coupon (optionally curved) beside the card
 generate_set      many photos + truth JSON + manifest.csv (also ``python -m surfaces.synth``)
-marker_image      the DICT_4X4_50 marker as OpenCV draws it
+marker_image      the DICT_4X4_50 marker, OpenCV's pattern in whole-pixel modules
 SynthPhoto        rendered photo (``rgb``) and its ``truth`` dict; ``save(path)``
 
 Truth (``surfaces.truth/1``), all mm on the card's plane unless named ``_px``

@@ -24,8 +24,14 @@ MODULES = 6  # 4x4 data bits + a one-module black border on each side
 def marker_image(marker_id: int, side_px: int) -> np.ndarray:
     """The DICT_4X4_50 marker ``marker_id`` as a ``(side_px, side_px)`` uint8 image.
 
-    Black outer square with no white margin, exactly as OpenCV's
-    ``cv2.aruco.generateImageMarker`` draws it (one-module border).
+    Black outer square with no white margin (one-module border): OpenCV's
+    pattern (``cv2.aruco.generateImageMarker`` at 6 px) with every module
+    ``side_px / 6`` whole pixels, as the card's PDF draws it (vector
+    modules).  OpenCV's generator at the full size is not used: at some
+    sizes (module 49, 98, 103, 107, 161, 187, 196 or 197 px of 3-200) it
+    rounds the inner edges one pixel off the grid, and a card rendered so
+    would carry a print error the truth does not know of.  A side that is
+    not a multiple of 6 falls back to OpenCV's drawing.
 
     Examples
     --------
@@ -37,7 +43,10 @@ def marker_image(marker_id: int, side_px: int) -> np.ndarray:
     if int(side_px) < MODULES:
         raise SurfacesError(f"marker side {side_px} px is too small (use at least {MODULES} px)")
     d = cv2.aruco.getPredefinedDictionary(cv2.aruco.DICT_4X4_50)
-    return cv2.aruco.generateImageMarker(d, int(marker_id), int(side_px), borderBits=1)
+    if int(side_px) % MODULES:
+        return cv2.aruco.generateImageMarker(d, int(marker_id), int(side_px), borderBits=1)
+    m = int(side_px) // MODULES
+    return np.kron(cv2.aruco.generateImageMarker(d, int(marker_id), MODULES, borderBits=1), np.ones((m, m), np.uint8))
 
 
 @dataclass
