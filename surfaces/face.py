@@ -120,6 +120,35 @@ def _card_exclusion(calib: Calibration) -> list[np.ndarray]:
     return out
 
 
+#: the marker's zone the fine pass never takes for face: the marker and this many modules of its quiet
+#: zone around it (a printed marker has a white margin of a module or more; common practice)
+MARKER_ZONE_MODULES = 1.0
+
+
+def _marker_zones(calib: Calibration) -> list[np.ndarray]:
+    """Plane polygons (mm) of each marker with ``MARKER_ZONE_MODULES`` of its quiet zone around it."""
+    out = []
+    grow = (6.0 + 2.0 * MARKER_ZONE_MODULES) / 6.0
+    for m in calib.markers:
+        c = apply_h(calib.H, m.corners_px)
+        ctr = c.mean(axis=0)
+        out.append(ctr + (c - ctr) * grow)
+    return out
+
+
+def _in_zones(zones: list[np.ndarray] | None, A: np.ndarray, shape) -> np.ndarray | None:
+    """(h, w) bool: True at the pixels of the face frame ``A`` (face px -> plane mm) inside any of ``zones``."""
+    if not zones:
+        return None
+    m = np.zeros(shape, np.uint8)
+    Ainv = np.linalg.inv(A)
+    for z in zones:
+        q = apply_h(Ainv, z)
+        if np.all(np.isfinite(q)) and np.abs(q).max() < 1e7:
+            cv2.fillPoly(m, [np.round(q * 16).astype(np.int32)], 1, shift=4)
+    return m > 0
+
+
 def _coarse_face(gray: np.ndarray, rgb: np.ndarray, calib: Calibration, roi_poly_px, test: str):
     poly_mm, where = _search_box(calib, gray.shape, roi_poly_px)
     lo = poly_mm.min(axis=0)
@@ -556,8 +585,11 @@ MAX_GROW = 3
 EDGE_BIN_MM = 2.0
 
 
-def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: float):
+def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: float, *,
+                  zones: list[np.ndarray] | None = None):
     """The face's outline around a rough frame (centre, axis, size), from texture profiles.
+
+    ``zones``: plane polygons (mm) whose texture is never the face's (:func:`_marker_zones`).
 
     Returns
     -------
@@ -588,6 +620,12 @@ def _fine_outline(gray, calib: Calibration, centre, axis: float, L: float, Wd: f
     e = _texture_energy(g, px_per_mm=q, fine_mm=fine_mm, window_mm=win_mm)
     e *= 1.0 - _coherence(g, sigma_px=max(0.5, 0.5 * win_mm / 0.35) * q)
     e = e * e  # blurred energy is linear in the blur: its half-level is the edge (sqrt would bias outward)
+    zone = _in_zones(zones, A, (h, w))
+    if zone is not None:
+        # the marker's print is textured but never face: a face ending a few mm from the card
+        # would otherwise run on across the gap onto it (the coarse pass keeps clear of the whole
+        # card; this pass looks past the coarse region's ends)
+        e[zone] = 0.0
     gi = cv2.GaussianBlur(g.astype(np.float32), (0, 0), max(0.08, 0.5 / max(ppm_photo, 1e-3)) * q)
     mrow = max(1, int(margin * q * 0.6))
     core_c = slice(int(w * 0.5 - L * q * 0.3), int(w * 0.5 + L * q * 0.3) + 1)
@@ -762,21 +800,22 @@ def find_face(
     roi_poly = _roi_polygon(roi, gray.shape) if roi is not None else None
     warnings: list[str] = []
     centre, axis, L, Wd, fill, where = _coarse_face(gray, rgb, calib, roi_poly, test)
+    zones = _marker_zones(calib)
     method = "auto" if roi is None else ("roi-box" if len(roi) == 4 else "roi-corners")
     L0, W0 = L, Wd
-    outline, c_x, c_y, fine_notes, centre, axis = _fine_fit(gray, calib, centre, axis, L, Wd)
+    outline, c_x, c_y, fine_notes, centre, axis = _fine_fit(gray, calib, centre, axis, L, Wd, zones=zones)
     wide = MAX_FACE_WIDTH_MM.get(test)
     if roi is None and wide is not None and _mean_width(outline) > wide:
         # the region found is the specimen (plate, bead and face): the face is the much
         # more finely textured band along it, when one stands out
-        refit = _fit_on_band(gray, calib, centre, axis, outline, wide)
+        refit = _fit_on_band(gray, calib, centre, axis, outline, wide, zones=zones)
         if refit is not None and _mean_width(refit[0][0]) <= wide:
             (outline, c_x, c_y, fine_notes, centre, axis), (L0, W0) = refit
     if UNCLEAR_WIDTH_NOTE in fine_notes:
         # no texture step across the weld within the coarse region (or the box given): it took
         # in the bead or the plate beside the face, as smooth as each other; the face is the much
         # more finely textured band along it, when one stands out and its own edges are clear
-        refit = _fit_on_band(gray, calib, centre, axis, outline, wide or max(MAX_FACE_WIDTH_MM.values()))
+        refit = _fit_on_band(gray, calib, centre, axis, outline, wide or max(MAX_FACE_WIDTH_MM.values()), zones=zones)
         if refit is not None and UNCLEAR_WIDTH_NOTE not in refit[0][3]:
             (outline, c_x, c_y, fine_notes, centre, axis), (L0, W0) = refit
     warnings.extend(fine_notes)
@@ -854,13 +893,14 @@ def find_face(
     )
 
 
-def _fine_fit(gray, calib: Calibration, centre, axis: float, L: float, Wd: float):
+def _fine_fit(gray, calib: Calibration, centre, axis: float, L: float, Wd: float, *,
+              zones: list[np.ndarray] | None = None):
     """:func:`_fine_outline` repeated until its frame fits the face (lengthened where the face
     runs on, turned when it was across the weld or its edges lean).  Returns the last outline's
     results and the frame it is in: ``outline, c_x, c_y, notes, centre, axis``."""
     attempt, grown = 0, 0
     while True:
-        outline, c_x, c_y, fine_notes, slope, runs_on = _fine_outline(gray, calib, centre, axis, L, Wd)
+        outline, c_x, c_y, fine_notes, slope, runs_on = _fine_outline(gray, calib, centre, axis, L, Wd, zones=zones)
         lo_o, hi_o = outline.min(axis=0), outline.max(axis=0)
         size = hi_o - lo_o
         mid = 0.5 * (lo_o + hi_o)
@@ -926,14 +966,14 @@ def _textured_band(gray, calib: Calibration, centre, axis: float, outline: np.nd
     return c, float(x1 - x0), float(width)
 
 
-def _fit_on_band(gray, calib: Calibration, centre, axis: float, outline: np.ndarray, wide: float):
+def _fit_on_band(gray, calib: Calibration, centre, axis: float, outline: np.ndarray, wide: float, *, zones=None):
     """The fine fit on the :func:`_textured_band` of ``outline``: ``(fit, (length, width))`` with ``fit``
     as :func:`_fine_fit` returns it and the band's rough size, or None when no band stands out."""
     band = _textured_band(gray, calib, centre, axis, outline, wide)
     if band is None:
         return None
     centre_b, L_b, W_b = band
-    return _fine_fit(gray, calib, centre_b, axis, L_b, W_b), (L_b, W_b)
+    return _fine_fit(gray, calib, centre_b, axis, L_b, W_b, zones=zones), (L_b, W_b)
 
 
 def _mean_width(outline: np.ndarray) -> float:
