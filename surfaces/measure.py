@@ -5,6 +5,14 @@ imperfection table (one row per imperfection, columns
 :data:`TABLE_COLUMNS`, units in the names; no detections gives 0 rows with
 the same columns).
 
+Sizes: the greatest dimension and the width are the outline's maximum and
+minimum Feret diameters, except for a rounded pore (outline within
+``ROUND_MISFIT`` of an ellipse, less elongated than ``ROUND_ASPECT``): its
+axes are those of the ellipse with its area and second moments
+(:func:`round_axes_mm`), which the wiggles of a traced outline do not
+lengthen; the value is taken as uniformly distributed between that axis and
+the Feret diameter, which adds (difference) / sqrt(3) to its uncertainty.
+
 Uncertainty model (1 sigma, documented in the README):
 
 * scale: the calibration's relative uncertainty multiplies every length
@@ -56,7 +64,7 @@ from scipy import ndimage as ndi
 from .face import face_to_photo
 from .model import Calibration, Face
 from .segment import Detection, dark_piece, grow_by_reach, ring_around, trace_sigma_px
-from .shapes import polygon_features
+from .shapes import ellipse_misfit, moment_ellipse, polygon_features
 
 EDGE_BAND_MM = 0.5  # "starts at an edge / touches the root" tolerance
 
@@ -79,6 +87,38 @@ def empty_table() -> pd.DataFrame:
 #: Outline terms of the uncertainty model (see the module docstring).
 OUTLINE_EDGE_PX = 0.5
 OUTLINE_REL = 0.05
+
+
+#: a pore whose outline is this close to an ellipse (:func:`~surfaces.shapes.ellipse_misfit`) and less
+#: elongated than ROUND_ASPECT is measured by the ellipse of its area and second moments (see the module
+#: docstring)
+ROUND_MISFIT = 0.12
+ROUND_ASPECT = 1.3
+
+
+def round_axes_mm(mm: np.ndarray, f: dict) -> tuple[float, float] | None:
+    """Greatest dimension and width (mm) of a rounded outline from its moment ellipse, or None.
+
+    The maximum Feret diameter of a traced outline is the distance between
+    its two farthest points, so every wiggle the photo's noise and grain put
+    in the outline of a round cavity lengthens it and shortens the minimum
+    one: on generated round pores (318 matched) the greatest dimension read
+    5.9 % long and the width 1.6 % short while the area was within 1.4 %.
+    The axes of the ellipse with the outline's area and second moments
+    average over the whole outline instead.  Used only where the outline is
+    that ellipse within :data:`ROUND_MISFIT` and less elongated than
+    :data:`ROUND_ASPECT` (a gas pore is rounded; common practice): an
+    irregular or spurred outline keeps its Feret diameters.
+    """
+    if len(mm) < 5 or not f["aspect"] < ROUND_ASPECT or f["area_mm2"] <= 0:
+        return None
+    if ellipse_misfit(mm) >= ROUND_MISFIT:
+        return None
+    rel = (mm - mm[0]).astype(np.float32).reshape(-1, 1, 2)
+    a, b, _ = moment_ellipse(cv2.moments(rel))
+    if not (a > 0 and b > 0):
+        return None
+    return 2.0 * a, 2.0 * b
 
 
 #: contrast fractions bounding the outline level of a dark region (see the module docstring)
@@ -267,6 +307,13 @@ def measure(
         if length_factor is not None:
             mm, extra = length_factor(mm)
         f = polygon_features(mm, px_per_mm=1.0)
+        u_round = 0.0  # mm: how far the Feret diameter of a rounded pore's outline lies beyond its ellipse's axis
+        if d.kind == "pore":
+            axes = round_axes_mm(mm, f)
+            if axes is not None:
+                # the value reported is the ellipse's end of the range up to the Feret diameter
+                u_round = max(f["greatest_mm"] - axes[0], 0.0) / math.sqrt(3.0)
+                f["greatest_mm"], f["width_mm"] = axes
         se = edge_sigma_mm(d.kind, photo_px_per_mm=photo_px_per_mm, work_px_per_mm=face.px_per_mm)
         ur = math.hypot(u_scale, extra)
         ur_len = math.hypot(ur, OUTLINE_REL)
@@ -307,7 +354,7 @@ def measure(
                 "iso6520": d.iso6520,
                 "confidence": float(d.confidence),
                 "greatest_mm": f["greatest_mm"],
-                "greatest_u_mm": math.hypot(ulen(f["greatest_mm"]), u_spur),
+                "greatest_u_mm": math.hypot(ulen(f["greatest_mm"]), u_spur, u_round),
                 "width_mm": f["width_mm"],
                 "width_u_mm": ulen(f["width_mm"]),
                 "along_mm": f["along_mm"],

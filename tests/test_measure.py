@@ -123,7 +123,8 @@ def test_the_spur_term_enters_the_greatest_uncertainty_only():
     face, calib = _face_and_calib()
     plain = _outline(_disc_with_spur(30.0, 0, 0)) + [200, 100]
     spur = _outline(_disc_with_spur(30.0, 12.0, 1)) + [200, 100]
-    dets = [Detection("pore", 0.9, plain, "2011"), Detection("pore", 0.9, spur, "2011")]
+    # as slag inclusions: a rounded pore's outline adds its own term (its Feret diameter over its ellipse's)
+    dets = [Detection("inclusion", 0.9, plain, "301"), Detection("inclusion", 0.9, spur, "301")]
     t = measure(dets, face, calib, photo_px_per_mm=face.px_per_mm)
     spread = spur_spread_mm(spur, px_per_mm=face.px_per_mm, photo_px_per_mm=face.px_per_mm)
     u0, u1 = t["greatest_u_mm"].iloc[0], t["greatest_u_mm"].iloc[1]
@@ -133,3 +134,83 @@ def test_the_spur_term_enters_the_greatest_uncertainty_only():
     assert spread > 0.5
     assert u1 == pytest.approx(expected, rel=0.1)
     assert t["width_u_mm"].iloc[1] == pytest.approx(t["width_u_mm"].iloc[0], rel=0.1)
+
+
+# --------------------------------------------------------------------------- round pores: moment ellipse
+
+
+def _noisy_circle(d_mm, sigma_mm, seed, n=240, aspect=1.0):
+    """Outline (mm) of an ellipse of axes d x d/aspect whose radius wiggles by ``sigma_mm``: white noise
+    smoothed over about 8 of the ``n`` points, as a traced outline wiggles, without the 0-3 cycles per turn
+    that would change the shape itself (truth by construction)."""
+    rng = np.random.default_rng(seed)
+    t = np.linspace(0.0, 2 * np.pi, n, endpoint=False)
+    k = np.abs(np.fft.fftfreq(n) * n)
+    keep = np.exp(-0.5 * (k / 15.0) ** 2) * (k >= 4)
+    noise = np.real(np.fft.ifft(np.fft.fft(rng.normal(0.0, 1.0, n)) * keep))
+    noise *= 0.0 if sigma_mm == 0 else sigma_mm / (d_mm / 2) / noise.std()
+    r = 1.0 + noise
+    return np.c_[0.5 * d_mm * r * np.cos(t), 0.5 * d_mm / aspect * r * np.sin(t)] + [3.0, 3.0]
+
+
+def test_round_pore_is_measured_by_its_moment_ellipse_not_its_wiggles():
+    from skimage.measure import regionprops
+
+    from surfaces.measure import round_axes_mm
+    from surfaces.shapes import polygon_features
+
+    over, axes_err = [], []
+    for seed in range(6):
+        mm = _noisy_circle(1.0, 0.015, seed)
+        f = polygon_features(mm, px_per_mm=1.0)
+        g, w = round_axes_mm(mm, f)
+        over.append(f["greatest_mm"] - 1.0)
+        axes_err.append(g - 1.0)
+        assert w <= g
+        # the same ellipse as scikit-image's regionprops (axis_major_length: the ellipse with the region's
+        # normalised second central moments) on the outline rasterised at 200 px/mm
+        m = np.zeros((1200, 1200), np.uint8)
+        cv2.fillPoly(m, [np.round(mm * 200 * 16).astype(np.int32)], 1, shift=4)
+        rp = regionprops(m)[0]
+        assert g == pytest.approx(rp.axis_major_length / 200, rel=0.01)
+        assert w == pytest.approx(rp.axis_minor_length / 200, rel=0.01)
+    # the wiggles of a 1 mm circle traced to 0.015 mm lengthen its max Feret diameter by several
+    # per cent; the moment ellipse stays on the diameter (analytic)
+    assert min(over) > 0.03
+    assert max(abs(e) for e in axes_err) < 0.01
+    # an ellipse 1.2 x 1.0 mm without noise: its axes (analytic)
+    mm = _noisy_circle(1.2, 0.0, 0, aspect=1.2)
+    g, w = round_axes_mm(mm, polygon_features(mm, px_per_mm=1.0))
+    assert g == pytest.approx(1.2, rel=0.002) and w == pytest.approx(1.0, rel=0.002)
+
+
+def test_irregular_or_elongated_outlines_keep_their_feret_diameters():
+    from surfaces.measure import round_axes_mm
+    from surfaces.shapes import polygon_features
+
+    t = np.linspace(0.0, 2 * np.pi, 240, endpoint=False)
+    star = np.c_[(1 + 0.25 * np.cos(5 * t)) * np.cos(t), (1 + 0.25 * np.cos(5 * t)) * np.sin(t)] + 3.0
+    assert round_axes_mm(star, polygon_features(star, px_per_mm=1.0)) is None
+    stadium = _noisy_circle(2.0, 0.0, 0, aspect=2.0)
+    assert round_axes_mm(stadium, polygon_features(stadium, px_per_mm=1.0)) is None
+
+
+def test_only_pores_are_measured_by_the_moment_ellipse():
+    # through measure(): one noisy round outline as a pore and as a slag inclusion on a flat face
+    from test_bend import _face_and_calib
+
+    from surfaces.measure import measure
+    from surfaces.segment import Detection
+
+    face, calib = _face_and_calib()
+    q = face.px_per_mm
+    c = _noisy_circle(1.5, 0.02, 3) * q + [200, 100] - 0.5  # face px: pixel centres at integers
+    t = measure([Detection("pore", 0.9, c, "2011"), Detection("inclusion", 0.9, c, "301")], face, calib,
+                photo_px_per_mm=q)
+    sx = face.length_mm / face.image.shape[1]
+    assert t["greatest_mm"].iloc[0] == pytest.approx(1.5 * sx * q, rel=0.015)
+    assert t["greatest_mm"].iloc[1] > 1.03 * t["greatest_mm"].iloc[0]
+    # the pore's value is the ellipse's end of the range up to its Feret diameter (the inclusion's value):
+    # that range / sqrt(3) is in its uncertainty
+    spread = t["greatest_mm"].iloc[1] - t["greatest_mm"].iloc[0]
+    assert t["greatest_u_mm"].iloc[0] >= spread / np.sqrt(3.0) - 1e-9
