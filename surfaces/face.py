@@ -550,6 +550,10 @@ MAX_FACE_WIDTH_MM = {"fillet-break": 30.0, "nick-break": 50.0}
 MIN_OUTLINE_SHARE = 0.2
 #: below this outline confidence an automatic search gives up (asks for --roi) ...
 MIN_AUTO_CONFIDENCE = 0.55
+#: the shortest face a fracture test leaves, mm: a fillet-weld break specimen runs tens of mm of weld and a
+#: nick-break specimen is about an inch wide (common practice); an outline shorter than this is a mark on
+#: the plate or the table, not the face
+MIN_FACE_LENGTH_MM = 10.0
 #: ... and below this one the face carries a warning to check the outline
 WARN_CONFIDENCE = 0.7
 #: resolution of the fine pass that places the face's outline (mm pitch 0.1)
@@ -826,6 +830,14 @@ def find_face(
     area = _shoelace(outline)
     if length <= 1 or width <= 0.5 or area <= 0.5:
         raise FaceError("the face found is too small to assess: give --roi around the face")
+    if length < MIN_FACE_LENGTH_MM:
+        # a face this short measured as the face would pass the coupon unseen (a rust spot 4 mm across
+        # was taken for the face of a 120 mm fillet break, and the coupon accepted)
+        msg = (f"the face found is only {length:.1f} x {width:.1f} mm, shorter than any {test} face "
+               f"(at least {MIN_FACE_LENGTH_MM:g} mm along the weld)")
+        if roi is None:
+            raise FaceError(msg + ": it is likely a mark on the plate or the table; give --roi X0,Y0,X1,Y1 around the face")
+        warnings.append(msg + ": check the box")
     if width > length:
         warnings.append("the face is wider than long: check the weld axis on the overlay")
     conf = float(np.clip(min(c_x, c_y) * 1.5, 0.05, 1.0)) * (0.5 + 0.5 * fill)

@@ -598,6 +598,26 @@ def test_face_ending_a_few_mm_from_the_card_does_not_run_on_onto_it(tmp_path):
     assert [i["kind"] for i in a["imperfections"]].count("unfused") == 0
 
 
+def test_a_rust_spot_taken_for_the_face_is_refused_not_passed(tmp_path):
+    # truth by construction (surfaces.synth; the at-limit photo generated_set drew for seed 131313, a fresh
+    # set): a fillet face 113 mm long with one 2.38 mm pore on a rusty plate. The face search took a rust
+    # spot 4.1 x 3.8 mm on the plate for the face (outline confidence 0.91), found nothing on it, and the
+    # coupon was accepted under every preset (four of them false accepts). No fracture face is that short
+    # (common practice: tens of mm of weld, a nick-break specimen about an inch wide): refused, asking for --roi.
+    import json
+
+    from surfaces import bench
+    from surfaces.model import FaceError
+    from surfaces.pipeline import assess_path
+    from surfaces.synth import render_fracture
+
+    path = render_fracture(181316, test="fillet-break", megapixels=3.0,
+                           defects=[{"kind": "pore", "d_mm": 2.38}]).save(tmp_path / "face.jpg")
+    truth = json.loads(path.with_suffix(".truth.json").read_text())
+    with pytest.raises(FaceError, match=r"only 4\.\d x 3\.\d mm, shorter than any fillet-break face.*--roi"):
+        assess_path(str(path), bench._settings_for_truth(truth))
+
+
 @pytest.mark.parametrize("seed", [0, 1, 2])
 def test_edge_line_finds_the_edge_beyond_a_band_along_one_end_of_it(seed):
     """Stretch positions of a long edge (analytic: y = 200 + 0.004 x plus a break's 0.1 mm noise, q = 10 px/mm),
