@@ -125,6 +125,12 @@ def _card_exclusion(calib: Calibration) -> list[np.ndarray]:
 MARKER_ZONE_MODULES = 1.0
 
 
+def _on_markers(zones: list[np.ndarray], Af: np.ndarray, mask: np.ndarray) -> float:
+    """Area (mm2) of the face ``mask`` (face px, frame ``Af``: face px -> plane mm) inside the marker ``zones``."""
+    inside = _in_zones(zones, Af, mask.shape)
+    return 0.0 if inside is None else float((inside & mask).sum()) * abs(float(np.linalg.det(Af[:2, :2])))
+
+
 def _marker_zones(calib: Calibration) -> list[np.ndarray]:
     """Plane polygons (mm) of each marker with ``MARKER_ZONE_MODULES`` of its quiet zone around it."""
     out = []
@@ -873,6 +879,14 @@ def find_face(
     mask = np.zeros((hf, wf), np.uint8)
     cv2.fillPoly(mask, [np.round(oc * 16).astype(np.int32)], 1, lineType=cv2.LINE_8, shift=4)  # pixel centres inside
     mask = mask > 0
+    on_card = _on_markers(zones, Af, mask)
+    if on_card:
+        # a face outline over the marker is certainly wrong (the fine pass ran on past an end onto the
+        # card): measured, the marker's print reads as imperfections and the face's scale is off
+        msg = f"the face found runs onto the reference card ({on_card:.0f} mm2 of it over the marker)"
+        if roi is None:
+            raise FaceError(msg + ": give --roi X0,Y0,X1,Y1 around the face, or move the card a little further away")
+        warnings.append(msg + ": check the box")
     poly_px = apply_h(np.linalg.inv(calib.H) @ Af, oc)
     Hp, Wp = gray.shape
     frame = np.array([[-0.5, -0.5], [Wp - 0.5, -0.5], [Wp - 0.5, Hp - 0.5], [-0.5, Hp - 0.5]], np.float32)
