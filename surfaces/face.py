@@ -110,14 +110,19 @@ def _search_box(calib: Calibration, shape, roi_poly_px) -> tuple[np.ndarray, str
     return apply_h(calib.H, corners), "photo"
 
 
-def _card_exclusion(calib: Calibration) -> list[np.ndarray]:
-    """Plane polygons around each marker that are certainly card, not face."""
+def _marker_squares(calib: Calibration, grow: float) -> list[np.ndarray]:
+    """Plane polygons (mm): each marker's square scaled by ``grow`` about its centre."""
     out = []
     for m in calib.markers:
         c = apply_h(calib.H, m.corners_px)
         ctr = c.mean(axis=0)
-        out.append(ctr + (c - ctr) * 2.2)  # marker + quiet zone + card margin
+        out.append(ctr + (c - ctr) * grow)
     return out
+
+
+def _card_exclusion(calib: Calibration) -> list[np.ndarray]:
+    """Plane polygons around each marker that are certainly card, not face."""
+    return _marker_squares(calib, 2.2)  # marker + quiet zone + card margin
 
 
 #: the marker's zone the fine pass never takes for face: the marker and this many modules of its quiet
@@ -133,13 +138,7 @@ def _on_markers(zones: list[np.ndarray], Af: np.ndarray, mask: np.ndarray) -> fl
 
 def _marker_zones(calib: Calibration) -> list[np.ndarray]:
     """Plane polygons (mm) of each marker with ``MARKER_ZONE_MODULES`` of its quiet zone around it."""
-    out = []
-    grow = (6.0 + 2.0 * MARKER_ZONE_MODULES) / 6.0
-    for m in calib.markers:
-        c = apply_h(calib.H, m.corners_px)
-        ctr = c.mean(axis=0)
-        out.append(ctr + (c - ctr) * grow)
-    return out
+    return _marker_squares(calib, (6.0 + 2.0 * MARKER_ZONE_MODULES) / 6.0)
 
 
 def _in_zones(zones: list[np.ndarray] | None, A: np.ndarray, shape) -> np.ndarray | None:
@@ -838,21 +837,18 @@ def find_face(
         raise FaceError("the face found is too small to assess: give --roi around the face")
     if length < MIN_FACE_LENGTH_MM:
         # a face this short measured as the face would pass the coupon unseen (a rust spot 4 mm across
-        # was taken for the face of a 120 mm fillet break, and the coupon accepted)
-        msg = (f"the face found is only {length:.1f} x {width:.1f} mm, shorter than any {test} face "
-               f"(at least {MIN_FACE_LENGTH_MM:g} mm along the weld)")
-        if roi is None:
-            raise FaceError(msg + ": it is likely a mark on the plate or the table; give --roi X0,Y0,X1,Y1 around the face")
-        warnings.append(msg + ": check the box")
+        # was taken for the face of a 113 mm fillet break, and the coupon accepted)
+        _refuse_or_warn(f"the face found is only {length:.1f} x {width:.1f} mm, shorter than any {test} face "
+                        f"(at least {MIN_FACE_LENGTH_MM:g} mm along the weld)",
+                        "it is likely a mark on the plate or the table; give --roi X0,Y0,X1,Y1 around the face",
+                        roi, warnings)
     if width > length:
         warnings.append("the face is wider than long: check the weld axis on the overlay")
     conf = float(np.clip(min(c_x, c_y) * 1.5, 0.05, 1.0)) * (0.5 + 0.5 * fill)
     if wide is not None and area / length > wide:
-        msg = (f"the face found is {area / length:.0f} mm across, more than a {test} face spans "
-               f"(about {wide:.0f} mm at most): it is likely the plate or the table")
-        if roi is None:
-            raise FaceError(msg + ": give --roi X0,Y0,X1,Y1 around the face")
-        warnings.append(msg + ": check the box")
+        _refuse_or_warn(f"the face found is {area / length:.0f} mm across, more than a {test} face spans "
+                        f"(about {wide:.0f} mm at most): it is likely the plate or the table",
+                        "give --roi X0,Y0,X1,Y1 around the face", roi, warnings)
     if roi is None and area < MIN_OUTLINE_SHARE * L0 * W0:
         # the outline and the textured region it came from disagree: one of them is wrong
         raise FaceError(
@@ -873,7 +869,6 @@ def find_face(
     hf = max(1, int(round(width * px_per_mm)))
     Af = face_frame(centre, axis, (fx0, fy0), px_per_mm=px_per_mm)
     Af = _rescale_frame(Af, length / wf, width / hf, px_per_mm)
-    img = warp_to_face(rgb, calib.H, Af, (hf, wf))
     # outline -> final face pixels (corners of the image at -0.5 .. n - 0.5)
     oc = np.c_[(outline[:, 0] - fx0) * wf / length - 0.5, (outline[:, 1] - fy0) * hf / width - 0.5]
     mask = np.zeros((hf, wf), np.uint8)
@@ -883,10 +878,10 @@ def find_face(
     if on_card:
         # a face outline over the marker is certainly wrong (the fine pass ran on past an end onto the
         # card): measured, the marker's print reads as imperfections and the face's scale is off
-        msg = f"the face found runs onto the reference card ({on_card:.0f} mm2 of it over the marker)"
-        if roi is None:
-            raise FaceError(msg + ": give --roi X0,Y0,X1,Y1 around the face, or move the card a little further away")
-        warnings.append(msg + ": check the box")
+        _refuse_or_warn(f"the face found runs onto the reference card ({on_card:.0f} mm2 of it over the marker)",
+                        "give --roi X0,Y0,X1,Y1 around the face, or move the card a little further away",
+                        roi, warnings)
+    img = warp_to_face(rgb, calib.H, Af, (hf, wf))
     poly_px = apply_h(np.linalg.inv(calib.H) @ Af, oc)
     Hp, Wp = gray.shape
     frame = np.array([[-0.5, -0.5], [Wp - 0.5, -0.5], [Wp - 0.5, Hp - 0.5], [-0.5, Hp - 0.5]], np.float32)
@@ -917,6 +912,14 @@ def find_face(
         confidence=conf,
         warnings=tuple(warnings),
     )
+
+
+def _refuse_or_warn(msg: str, fix: str, roi, warnings: list[str]) -> None:
+    """A face found that cannot be the face: refused (``msg: fix``) when found automatically; inside a
+    ``--roi`` box the person chose the place, so only a warning (``msg: check the box``)."""
+    if roi is None:
+        raise FaceError(f"{msg}: {fix}")
+    warnings.append(f"{msg}: check the box")
 
 
 def _fine_fit(gray, calib: Calibration, centre, axis: float, L: float, Wd: float, *,
