@@ -16,7 +16,8 @@ The face is located in two passes:
    long edges are where the texture profile rises to half-way between the
    outside and inside levels, walking in from outside, snapped to the
    brightness step, then moved out over a calmer end of the face's own
-   brightness that is still textured (the profile along the face follows an upper share of
+   brightness that is still textured (of any brightness where its texture is plainly the
+   face's: a shinier zone of the break) (the profile along the face follows an upper share of
    the rows across it, so a defect across most of the face does not end it, and each end
    sits at the half-way level of the face's own texture just inside it); a frame whose margin
    the face's texture runs into (the coarse region was a stretch of the face) is lengthened
@@ -588,6 +589,10 @@ LOCAL_END_REACH_MM = 3.0
 #: an end moves out over a calmer stretch of the face only when the texture just inside it is at
 #: least this many times the surroundings' (room for a faint level between the two)
 FAINT_END_CLEAR = 4.0
+#: ... and a sample textured at least this share of the texture just inside the end, and this many
+#: times the texture beside the long edges there, is face whatever its brightness
+FAINT_FACE_SHARE = 0.25
+FAINT_FACE_BESIDE = 4.0
 #: how many times the frame is lengthened when the face's texture runs on past its margin
 MAX_GROW = 3
 #: length of the stretches along the weld whose long edges are located separately
@@ -1338,7 +1343,10 @@ def _faint_end(tex, bright, beside, pos: float, outward: int, *, out_level: floa
     texture is above that level, above twice the texture ``beside`` the long
     edges there (a textured plate or table carries its texture across) and
     its brightness ``bright`` is within half the face-to-surroundings
-    difference of ``inner_i``; the walk stops where over 70 % of the next
+    difference of ``inner_i`` (or its texture is plainly the face's: at
+    least :data:`FAINT_FACE_SHARE` of the texture just inside the end and
+    :data:`FAINT_FACE_BESIDE` times that beside: a brighter or darker zone
+    of the break, whose brightness alone would end the face); the walk stops where over 70 % of the next
     ``2 * persist`` samples are not (a pore at the very end is passed over).
     A stretch of at least ``persist`` samples moves the end to the half-way
     level between the texture just inside the last face sample and the
@@ -1366,7 +1374,11 @@ def _faint_end(tex, bright, beside, pos: float, outward: int, *, out_level: floa
     faint = math.sqrt(local * out)
     ok = (tex >= faint) & (tex >= 2.0 * np.asarray(beside, dtype=np.float64))
     if abs(inner_i - outer_i) >= 12.0:  # brightness tells face from surroundings only where they differ
-        ok &= np.abs(np.asarray(bright, dtype=np.float64) - inner_i) <= 0.5 * abs(inner_i - outer_i)
+        # ... except where the texture is plainly the face's: a fracture has brighter and darker
+        # zones (a shinier crystalline stretch, a duller fibrous one: common practice), and a zone
+        # brighter than the face's middle stops no end that its texture carries on
+        plainly = (tex >= FAINT_FACE_SHARE * local) & (tex >= FAINT_FACE_BESIDE * np.asarray(beside, dtype=np.float64))
+        ok &= plainly | (np.abs(np.asarray(bright, dtype=np.float64) - inner_i) <= 0.5 * abs(inner_i - outer_i))
     last = None
     for step in range(1, n):
         i = k + outward * step

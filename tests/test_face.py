@@ -282,6 +282,53 @@ def test_faint_end_does_not_walk_onto_plate_table_or_shadow():
     assert _faint_end(tex, bright, np.zeros_like(tex), 520.0, -1, out_level=0.05, **kw) == 520.0
 
 
+def _bright_zone_profiles(q=10.0, zone_tex=40.0):
+    """Constructed profiles along a face: a middle textured at 100 and of brightness 150 up to X = 30 mm,
+    then a zone of the break much brighter (220) than the middle and than the surroundings (60), textured
+    at ``zone_tex``, up to X = 50 mm; plain surroundings (0.05) beyond (Gaussian-CDF steps, as above)."""
+    from scipy.special import ndtr
+
+    x = np.arange(800) / q
+    zone = zone_tex - 0.05
+    tex = 0.05 + (100.0 - zone) * (1 - ndtr((x - 30.0) / 0.3)) + zone * (1 - ndtr((x - 50.0) / 0.3))
+    bright = 60.0 + 90.0 * (1 - ndtr((x - 30.0) / 0.2)) + 160.0 * (ndtr((x - 30.0) / 0.2) - ndtr((x - 50.0) / 0.2))
+    return x, tex, bright
+
+
+def test_faint_end_follows_a_brighter_zone_whose_texture_is_the_faces():
+    """A zone of the break brighter than the face's middle and its surroundings (a shinier stretch),
+    textured at 40 % of the middle and untextured beside the long edges, is face: the end moves from
+    X = 30 mm out to its end at X = 50 mm (the half-way level, analytic). The same zone is not taken when
+    the texture beside the long edges is more than a quarter of it (a textured plate or table there), or
+    when it is textured at only 20 % of the middle: its brightness then ends the face, as before."""
+    from surfaces.face import _faint_end
+
+    q = 10.0
+    kw = dict(out_level=0.05, inner_i=150.0, outer_i=60.0, q=q, persist=20)
+    x, tex, bright = _bright_zone_profiles(q)
+    pos = _faint_end(tex, bright, np.zeros_like(tex), 300.0, +1, **kw)
+    assert pos / q == pytest.approx(50.0, abs=0.15)
+    beside = np.where((x > 30.0) & (x < 50.0), 12.0, 0.0)  # 40 < 4 x 12
+    assert _faint_end(tex, bright, beside, 300.0, +1, **kw) == 300.0
+    x, tex, bright = _bright_zone_profiles(q, zone_tex=20.0)
+    assert _faint_end(tex, bright, np.zeros_like(tex), 300.0, +1, **kw) == 300.0
+
+
+@pytest.mark.parametrize("seed, megapixels, defects", [
+    (55151, 3.0, [{"kind": "pore", "d_mm": 2.30}]),  # set 5151's first at-limit photo
+    (70731, 3.1102811775697026, None),  # set 70707's photo 24
+])
+def test_face_with_a_brighter_stretch_is_found_to_its_end(tmp_path, seed, megapixels, defects):
+    # truth by construction (surfaces.synth, seeded; photos generated_set drew): fillet-break faces whose
+    # break turns brighter and calmer over its last 25-30 mm, brighter than the plate or table beyond.
+    # Their texture went on, but the end stopped where the brightness changed: 21 % and 10 % of the face
+    # were left out, with no warning (imperfections there would have gone unmeasured). The faces found
+    # now are the truth's (areas by OpenCV's fillPoly on the photo's pixel grid).
+    a, truth, true_m, found_m = _assess_rendered(tmp_path, seed, "fillet-break", megapixels, defects=defects)
+    assert (true_m & found_m).sum() >= 0.95 * true_m.sum(), (true_m & found_m).sum() / true_m.sum()
+    assert found_m.sum() <= 1.05 * true_m.sum(), found_m.sum() / true_m.sum()
+
+
 def test_smooth_rim_brighter_than_the_face_beside_a_shadow_stays_in_the_face():
     """A smooth rim along the edge, a little brighter than the face's middle, with a dark gap beyond it
     and a table nearly as bright as the face further out: the rim is face up to the dark gap (the
