@@ -603,3 +603,62 @@ def test_pore_at_the_darkest_spot_of_a_long_band_of_dark_grain_is_found(tmp_path
     assert pore.det_kind.iloc[0] in ("pore", "inclusion") and pore.det_confidence.iloc[0] >= 0.5
     for name in ("api-1104-break", "iso-5817-b-fillet-break"):
         assert judge_assessment(a, load_limit_set(name))["verdict"]["result"] != "accept", name
+
+
+def _candidate(p_none: float, greatest: float, box, probs=None):
+    """A candidate region judged ``none`` by the model (constructed: square outline ``box`` in face pixels)."""
+    from surfaces.segment import Detection
+
+    x0, y0, x1, y1 = box
+    contour = np.array([[x0, y0], [x1, y0], [x1, y1], [x0, y1]], float)
+    rest = probs or {"pore": 0.1, "inclusion": 1.0 - p_none - 0.15, "unfused": 0.03, "crack": 0.02}
+    f = {"greatest_mm": greatest, "area_mm2": greatest * greatest, "aspect": 1.0, "edge_contact": 0.0,
+         "cx_px": 0.5 * (x0 + x1), "cy_px": 0.5 * (y0 + y1), "source": "dark", "tex_in": 1.0, "tex_ring": 1.0,
+         "contrast": 0.3, "ridge_peak": 20.0, "chroma": 0.0}
+    return Detection("none", p_none, contour, "", f, probs={"none": p_none, **rest})
+
+
+def test_doubtful_region_is_reported_for_review_where_nothing_else_is():
+    """A 2 mm region the model calls none at P(none) 0.5 (just over the detection threshold), likeliest slag,
+    is reported as an inclusion, at a confidence a judge counts towards review only; at P(none) 0.6, 1 mm
+    long, or likeliest a pore, it is not; and a doubtful view overlapping a detection already kept is
+    dropped, not merged into it."""
+    from surfaces.limits import DEFAULT_MIN_CONFIDENCE
+    from surfaces.regionmodel import DETECT_P_NONE
+    from surfaces.segment import DOUBT_MIN_MM, DOUBT_P_NONE, _doubtful_left, doubtful_region
+
+    assert DETECT_P_NONE < 0.5 < DOUBT_P_NONE and DOUBT_MIN_MM <= 2.0
+    c = _candidate(0.5, 2.0, (10, 10, 30, 30))
+    assert doubtful_region(c)
+    assert not doubtful_region(_candidate(0.6, 2.0, (10, 10, 30, 30)))
+    assert not doubtful_region(_candidate(0.5, 1.0, (10, 10, 20, 20)))
+    pore_like = {"pore": 0.3, "inclusion": 0.1, "unfused": 0.05, "crack": 0.05}
+    assert not doubtful_region(_candidate(0.5, 2.0, (10, 10, 30, 30), probs=pore_like))
+    (d,) = _doubtful_left([c], [])
+    assert d.kind == "inclusion" and d.iso6520 == "301"  # ISO 6520-1: 301 slag inclusion
+    assert d.confidence < DEFAULT_MIN_CONFIDENCE
+    kept = _candidate(0.1, 2.0, (25, 25, 45, 45))
+    kept.kind, kept.confidence = "pore", 0.9
+    assert _doubtful_left([_candidate(0.5, 2.0, (10, 10, 30, 30))], [kept]) == []
+    far = _candidate(0.1, 2.0, (100, 100, 120, 120))
+    far.kind = "pore"
+    assert len(_doubtful_left([_candidate(0.5, 2.0, (10, 10, 30, 30))], [far])) == 1
+
+
+def test_slag_inclusion_the_model_doubts_is_sent_to_review_not_dropped(tmp_path):
+    # truth by construction (surfaces.synth, seeded; the photo generated_set drew for seed 111126 in a fresh
+    # set): a fillet-break face with a slag inclusion 4.48 mm long (contrast 0.33 to its ring).  The region
+    # model put it at P(none) 0.51, just over the 0.4 it reports under, so nothing was reported there; the
+    # coupon, rejected before only through a smooth-region view of it that a change of the face's outline
+    # removed, is now sent to review with the inclusion shown (a 4.5 mm inclusion fails API 1104's and
+    # AWS D1.1's fillet-break limits, REFERENCES.md: the inspector decides).
+    from surfaces.limits import judge_assessment, list_presets
+    from surfaces.segment import REVIEW_ONLY_CONFIDENCE
+
+    a, m = _assess_generated(tmp_path, 111126, "fillet-break", 3.1644127196995173)
+    slag = m[(m.truth_kind == "inclusion") & (m.truth_greatest_mm > 4)]
+    assert len(slag) == 1 and bool(slag.matched.iloc[0]), slag.to_dict("records")
+    assert slag.det_kind.iloc[0] == "inclusion" and slag.det_confidence.iloc[0] <= REVIEW_ONLY_CONFIDENCE
+    for ls in list_presets():
+        if ls.applies_to("fillet-break"):
+            assert judge_assessment(a, ls)["verdict"]["result"] != "accept", ls.name
