@@ -43,9 +43,7 @@ Two steps:
    never reject it alone (``REVIEW_ONLY_CONFIDENCE``: a dark line along the
    face's edge, a faint line, a grained tinted region, a calm band).  The model's
    probability is the detection's confidence; two views of one imperfection
-   are merged (:func:`_dedupe`).  A region of a millimetre and a half or more,
-   likeliest slag, that the model calls no imperfection by a small margin
-   (:func:`doubtful_region`) is reported for review where nothing else is.  Nothing under ``min_size_mm``
+   are merged (:func:`_dedupe`).  Nothing under ``min_size_mm``
    is reported, and nothing the photo cannot resolve (under
    ``RESOLVE_PX`` photo pixels) is claimed.
 """
@@ -279,8 +277,7 @@ def segment(
         # bands the fine-grain search cannot see: calm along the weld, inside the face
         cands += _calm_candidates(M, [c for c in cands if c.kind != "none"])
     min_resolvable = RESOLVE_PX / photo_mm
-    smallest = max(min_size_mm, SPECK_MM, min_resolvable)
-    out, doubtful = [], []
+    out = []
     for c in cands:
         f = c.features
         if fitting:  # bootstrapping the region model: features only
@@ -289,16 +286,11 @@ def segment(
         if keep_all:
             out.append(c)
             continue
-        if f["greatest_mm"] < smallest:
-            continue
-        if c.kind == "none":
-            if doubtful_region(c):
-                doubtful.append(c)
+        if c.kind == "none" or f["greatest_mm"] < max(min_size_mm, SPECK_MM, min_resolvable):
             continue
         out.append(c)
     if not keep_all:
         out = _dedupe(_join_around_patches(out, M))
-        out += _doubtful_left(doubtful, out)
     out.sort(key=lambda d: (d.features["cx_px"], d.features["cy_px"]))
     return out
 
@@ -318,69 +310,13 @@ def _name(c: Detection) -> Detection:
     elif kind == "unfused" and grained_unfused(f):
         conf = min(conf, GRAINED_CONFIDENCE)
     c.kind, c.confidence, c.probs = kind, conf, probs
-    _set_iso6520(c)
-    return c
-
-
-def _set_iso6520(c: Detection) -> None:
-    f = c.features
-    if c.kind == "pore":
+    if kind == "pore":
         c.iso6520 = ISO6520["pore"] if f["aspect"] < 1.5 else ISO6520["pore-elongated"]
-    elif c.kind == "unfused":
+    elif kind == "unfused":
         c.iso6520 = ISO6520["unfused-root"] if f["edge_contact"] > 0.3 else ISO6520["unfused"]
-    elif c.kind in ISO6520:
-        c.iso6520 = ISO6520[c.kind]
-
-
-#: a candidate the region model calls ``none`` with ``P(none)`` under this ...
-DOUBT_P_NONE = 0.55
-#: ... at least this long (mm) and likeliest slag is reported all the same, for review only (see :func:`doubtful_region`)
-DOUBT_MIN_MM = 1.5
-
-
-def doubtful_region(c: Detection) -> bool:
-    """Whether a candidate judged no imperfection is too doubtful a slag inclusion to drop unseen.
-
-    The region model reports a region when ``P(none)`` is under
-    :data:`~surfaces.regionmodel.DETECT_P_NONE`; slag is where it errs most
-    (irregular, often of low contrast): on generated faces a 4.5 mm slag
-    inclusion of contrast 0.33 (fresh set 111111) stood at ``P(none)`` 0.51 and
-    was dropped.  A region with ``P(none)`` under :data:`DOUBT_P_NONE`, at
-    least :data:`DOUBT_MIN_MM` long, not ruled out by a plain rule and whose
-    likeliest kind is ``inclusion`` is reported as an inclusion at a
-    confidence of at most :data:`REVIEW_ONLY_CONFIDENCE`: never alone a reject,
-    and never a silent accept.  Measured on 12 generated sets (460 photos),
-    8 of 36 such inclusions were real imperfections (6 slag, 2 pores) and no
-    verdict changed; of the doubtful pores and cracks the same margin would
-    add, 1 in 11 was real, and they are left out.
-    """
-    f = c.features
-    p = c.probs or {}
-    if c.kind != "none" or "none" not in p or not p["none"] < DOUBT_P_NONE or f["greatest_mm"] < DOUBT_MIN_MM:
-        return False
-    return max(KIND_ORDER[1:], key=lambda k: p.get(k, 0.0)) == "inclusion" and not ruled_out(f)
-
-
-def _doubtful_left(doubtful: list[Detection], kept: list[Detection]) -> list[Detection]:
-    """The doubtful regions (:func:`doubtful_region`) as inclusions for review, one per region, where no detection is.
-
-    A doubtful view of a region already reported (a ridge on the rim of a
-    pore, a larger outline around a crack) adds nothing and must not replace
-    the confident one, so any doubtful region touching a kept detection's
-    outline is left out.
-    """
-    named = []
-    for c in doubtful:
-        c.kind, c.confidence = "inclusion", min(float(c.probs["inclusion"]), REVIEW_ONLY_CONFIDENCE)
-        _set_iso6520(c)
-        named.append(c)
-    boxes = [_box(k.contour) for k in kept]
-    out = []
-    for d in _dedupe(named):
-        bd = _box(d.contour)
-        if not any(_boxes_touch(bd, bk) and _overlap(d.contour, k.contour, bd, bk) > 0 for k, bk in zip(kept, boxes)):
-            out.append(d)
-    return out
+    elif kind in ISO6520:
+        c.iso6520 = ISO6520[kind]
+    return c
 
 
 class SegmentError(SurfacesError):
