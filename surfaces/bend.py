@@ -80,6 +80,7 @@ EXTEND_TRIES = 2
 #: so a higher power favours pairs that span the table too).
 COVER_POWER = 1.0
 OUT_OF_PHOTO = "part of the coupon lies outside the photo: retake with the whole bend in frame"
+UNDER_CARD = "the reference card covers part of the coupon: that part is not assessed"
 NEAR_PHOTO_EDGE = (
     "the coupon ends close to the photo's edge, where it may run on out of view: check the visible length "
     "on the overlay, or retake with room around the bend"
@@ -846,7 +847,7 @@ def find_coupon(
     img = _face.warp_to_face(rgb, calib.H, Af, (hf, wf))
     on_card = _card_in_frame(card_map, Af, (hf, wf))
     if on_card.any():
-        warnings.append("the reference card covers part of the coupon: that part is not assessed")
+        warnings.append(UNDER_CARD)
     corners = np.array([[-0.5, -0.5], [wf - 0.5, -0.5], [wf - 0.5, hf - 0.5], [-0.5, hf - 0.5]])
     poly_px = apply_h(np.linalg.inv(calib.H) @ Af, corners)
     Hp, Wp = gray.shape[:2]
@@ -866,6 +867,7 @@ def find_coupon(
         root_side="unknown",
         confidence=float(np.clip(fit_ok, 0.05, 1.0)),
         warnings=tuple(warnings),
+        unseen=tuple(w for w in warnings if w in (UNDER_CARD, OUT_OF_PHOTO)),
     )
 
 

@@ -573,6 +573,7 @@ OPEN_END_SHARE = 0.12
 #: the fine pass found no texture step across the weld and kept the coarse region's width
 UNCLEAR_WIDTH_NOTE = "face edges across the weld are unclear: width taken from the coarse outline"
 OPEN_END_NOTE = "the face's texture goes on beyond an end: check the ends on the overlay"
+PART_OUTSIDE_NOTE = "part of the face lies outside the photo: retake with the whole face in frame"
 #: a band along a region too wide for a face is the face when its texture (square root of the
 #: energy) is at least this many times the region's median row
 BAND_CONTRAST = 1.5
@@ -902,7 +903,7 @@ def find_face(
                 f"the face found runs out of the photo ({100 * (1 - seen / max(whole, 1e-9)):.0f} % of it outside): "
                 "retake with the whole face in frame, or give --roi X0,Y0,X1,Y1 around the face"
             )
-        warnings.append("part of the face lies outside the photo: retake with the whole face in frame")
+        warnings.append(PART_OUTSIDE_NOTE)
     return Face(
         image=img,
         mask=mask,
@@ -916,6 +917,7 @@ def find_face(
         root_side="unknown",
         confidence=conf,
         warnings=tuple(warnings),
+        unseen=tuple(w for w in warnings if w == PART_OUTSIDE_NOTE),
     )
 
 

@@ -56,6 +56,10 @@ Every rule returns ``pass``, ``fail`` or ``review`` and the verdict is
   Each such unreviewed detection is judged once more with ``at_root`` the
   other way, and a worse verdict sends an ``accept`` to ``review`` (as for a
   doubtful kind).
+* **Part of the face not assessed.**  When the face finder says part of the
+  face is out of the photo or under the reference card (the assessment's
+  ``face.unseen``), a coupon that is not rejected
+  anyway goes to ``review``: what was not seen cannot be passed.
 * **Cut by a face end.**  An unreviewed imperfection that some rule judges
   and that lies within ``END_CUT_MM`` of an end of the face found may go on
   past that end (a cavity at the end of a break can end the face the tool
@@ -1705,6 +1709,11 @@ def judge(table: pd.DataFrame, *, face: dict, nominal: dict, limit_set: LimitSet
                     "clause": "", "confidence": "", "messages": messages,
                 })
 
+        unseen = (face or {}).get("unseen") or []
+        unseen = [unseen] if isinstance(unseen, str) else list(unseen)
+        doubt("face-unseen", "part of the face not in the assessment",
+              [f"part of the face is not assessed ({str(w).split(':')[0]}): an accept needs the whole face; "
+               "retake the photo or examine that part" for w in unseen], [])
         cut = _cut_by_end(items, limit_set)
         doubt("face-end", f"imperfection within {END_CUT_MM:g} mm of a face end", [r for r, _ in cut],
               [i for _, i in cut])

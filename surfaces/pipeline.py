@@ -195,7 +195,7 @@ def judge_records(assessment: dict, limit_set) -> dict:
         table = table[table["status"] != "dismissed"]
     return judge(
         table,
-        face={k: assessment["face"][k] for k in ("length_mm", "width_mm", "area_mm2")},
+        face={k: assessment["face"][k] for k in ("length_mm", "width_mm", "area_mm2", "unseen") if k in assessment["face"]},
         nominal=dict(assessment.get("nominal") or {}),
         limit_set=limit_set,
         test=assessment["test"],
@@ -241,6 +241,7 @@ def build_assessment(photo, settings, calib, face, table, ppm_photo, limit_set, 
                 "px_per_mm": face.px_per_mm,
                 "A_face_to_plane": face.A_face_to_plane,
                 "warnings": list(face.warnings),
+                "unseen": list(face.unseen),
             },
             "imperfections": table_records(table),
             "limits": limits_info,

@@ -672,6 +672,24 @@ def test_the_root_doubt_works_both_ways():
     assert v.result == "review" and "judged away from it the coupon would be reject" in v.reasons[0]
 
 
+# --------------------------------------------------------------------------- part of the face not seen
+
+
+def test_a_face_partly_not_assessed_is_never_accepted():
+    # what the photo does not show (out of frame, under the card) cannot be passed (common practice:
+    # the whole test face is examined); a coupon failing on what was seen stays a reject
+    ls = one_rule(**MAX3)
+    small = imp(1, "pore", 1.0, x0=5.0)
+    part = dict(FACE, unseen=["part of the face lies outside the photo: retake with the whole face in frame"])
+    assert verdict(ls, small).result == "accept"
+    v = verdict(ls, small, face=part)
+    assert v.result == "review"
+    assert v.reasons[0].startswith("part of the face is not assessed (part of the face lies outside the photo)")
+    assert any(d["rule"] == "face-unseen" for d in v.details)
+    assert verdict(ls, small, imp(2, "pore", 4.0), face=part).result == "reject"
+    assert verdict(ls, small, face=dict(FACE, unseen=[])).result == "accept"
+
+
 # --------------------------------------------------------------------------- cut by a face end
 
 
