@@ -603,3 +603,23 @@ def test_pore_at_the_darkest_spot_of_a_long_band_of_dark_grain_is_found(tmp_path
     assert pore.det_kind.iloc[0] in ("pore", "inclusion") and pore.det_confidence.iloc[0] >= 0.5
     for name in ("api-1104-break", "iso-5817-b-fillet-break"):
         assert judge_assessment(a, load_limit_set(name))["verdict"]["result"] != "accept", name
+
+
+def test_faintly_tinted_root_band_under_both_seeds_is_sent_to_review(tmp_path):
+    # truth by construction (surfaces.synth, seeded; the photo generated_set drew for seed 191919 in a fresh
+    # set): a fillet-break face with a brown root band of lack of fusion 12.5 x 2.5 mm.  It stood at 0.73 of
+    # the face's fine texture and 6 colour units from the face's, under both the smooth search's and the
+    # colour search's seeds: nothing was found, and the coupon was accepted under all seven fillet-break
+    # presets, every one of which rejects lack of fusion (REFERENCES.md).  Both cues together now give a band
+    # reported for review only.
+    from surfaces.limits import judge_assessment, list_presets
+    from surfaces.segment import FAINT_TINT_CONFIDENCE
+
+    a, m = _assess_generated(tmp_path, 191919, "fillet-break", 3.494071106701832)
+    band = m[m.truth_kind == "unfused"]
+    assert len(band) == 1 and bool(band.matched.iloc[0]) and band.det_kind.iloc[0] == "unfused", band.to_dict("records")
+    assert band.det_confidence.iloc[0] <= FAINT_TINT_CONFIDENCE < 0.5
+    assert 0.8 * band.truth_along_mm.iloc[0] <= band.det_along_mm.iloc[0] <= 1.1 * band.truth_along_mm.iloc[0]
+    for ls in list_presets():
+        if ls.applies_to("fillet-break"):
+            assert judge_assessment(a, ls)["verdict"]["result"] != "accept", ls.name
