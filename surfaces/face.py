@@ -1374,12 +1374,13 @@ def _faint_end(tex, bright, beside, pos: float, outward: int, *, out_level: floa
         return pos
     out = max(float(out_level), 0.0025 * local)  # plain surroundings: the faint level is a twentieth of the face's
     faint = math.sqrt(local * out)
-    ok = (tex >= faint) & (tex >= 2.0 * np.asarray(beside, dtype=np.float64))
+    beside = np.asarray(beside, dtype=np.float64)
+    ok = (tex >= faint) & (tex >= 2.0 * beside)
     if abs(inner_i - outer_i) >= 12.0:  # brightness tells face from surroundings only where they differ
         # ... except where the texture is plainly the face's: a fracture has brighter and darker
         # zones (a shinier crystalline stretch, a duller fibrous one: common practice), and a zone
         # brighter than the face's middle stops no end that its texture carries on
-        plainly = (tex >= FAINT_FACE_SHARE * local) & (tex >= FAINT_FACE_BESIDE * np.asarray(beside, dtype=np.float64))
+        plainly = (tex >= FAINT_FACE_SHARE * local) & (tex >= FAINT_FACE_BESIDE * beside)
         ok &= plainly | (np.abs(np.asarray(bright, dtype=np.float64) - inner_i) <= 0.5 * abs(inner_i - outer_i))
     last = None
     for step in range(1, n):

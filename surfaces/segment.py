@@ -268,7 +268,8 @@ def segment(
         for c in cands:
             _name(c)
         blocking = [c for c in cands if c.kind != "none" or c.features["tex_in"] > SMOOTH_BLOCK * c.features["tex_ring"]]
-    smooth = _smooth_candidates(M, blocking)
+    grain_tint = _grain_and_tint(M)  # the smooth and the faint-tint searches read the same maps
+    smooth = _smooth_candidates(M, blocking, grain_tint)
     if not fitting:
         for c in smooth:
             _name(c)
@@ -277,7 +278,7 @@ def segment(
         # bands the fine-grain search cannot see: calm along the weld, inside the face
         cands += _calm_candidates(M, [c for c in cands if c.kind != "none"])
         # and bands a little smoother and a little tinted, under both the smooth and the colour seeds
-        cands += _faint_tint_candidates(M, [c for c in cands if c.kind != "none"])
+        cands += _faint_tint_candidates(M, [c for c in cands if c.kind != "none"], grain_tint)
     min_resolvable = RESOLVE_PX / photo_mm
     out = []
     for c in cands:
@@ -520,10 +521,10 @@ def _ridge_candidates(M: _Maps) -> list[Detection]:
     return out
 
 
-def _smooth_candidates(M: _Maps, taken_dets) -> list[Detection]:
+def _smooth_candidates(M: _Maps, taken_dets, grain_tint) -> list[Detection]:
     h, w = M.g.shape
     # smooth (little fracture grain) or tinted (oxide colour) areas: hysteresis on both
-    tex, chroma, c_hi, c_lo = _grain_and_tint(M)
+    tex, chroma, c_hi, c_lo = grain_tint
     smooth = hysteresis(-tex, -SMOOTH_GROW, -SMOOTH_SEED) | hysteresis(chroma, c_lo, c_hi)
     smooth &= M.mask
     smooth = _smooth_outline(smooth, tex, chroma, M, c_hi=c_hi)
@@ -674,7 +675,7 @@ FAINT_TINT_CONFIDENCE = REVIEW_ONLY_CONFIDENCE
 FAINT_TINT_EDGE_MM = 0.3
 
 
-def _faint_tint_candidates(M: _Maps, taken_dets) -> list[Detection]:
+def _faint_tint_candidates(M: _Maps, taken_dets, grain_tint) -> list[Detection]:
     """Bands along the weld a little smoother and a little tinted, both under the smooth search's seeds.
 
     On generated set 191919 a brown root band 12.5 mm long stood at 0.73 of the face's fine texture
@@ -689,7 +690,7 @@ def _faint_tint_candidates(M: _Maps, taken_dets) -> list[Detection]:
     A band must reach :data:`STRIP_REACH_MM` into the face: a thinner strip along the edge is the edge's
     own rim or a colour cast (a card beside the face), as for the smooth search's strips.
     """
-    tex, chroma, _, c_lo = _grain_and_tint(M)
+    tex, chroma, _, c_lo = grain_tint  # from _grain_and_tint
     both = (tex < FAINT_TINT_TEX) & (chroma > c_lo) & M.mask & _outside(taken_dets, M.mask.shape)
     k = max(3, int(round(0.3 * M.mm)) | 1)
     sm = cv2.morphologyEx(both.astype(np.uint8), cv2.MORPH_OPEN, np.ones((k, k), np.uint8))
